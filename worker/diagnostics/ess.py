@@ -1,0 +1,84 @@
+"""Effective sample sizes: basic, bulk and tail (Vehtari et al. 2021, sections 3.2 and 4.3).
+
+Each ``*_batch`` function takes ``(quantities, chains, draws)`` and returns one value per
+quantity, NaN where the value is undefined (see ``splitting.undefined_mask``). The one-quantity
+functions of the contract take ``(chains, draws)`` and return a float.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from worker.diagnostics.autocorrelation import combined_autocorrelation, integrated_time
+from worker.diagnostics.ranks import rank_normalize
+from worker.diagnostics.splitting import as_batch, split_chains, undefined_mask
+
+TAIL_PROBABILITIES = (0.05, 0.95)
+
+
+def _ess_of_split(split: np.ndarray) -> np.ndarray:
+    """ESS of chains that are already split; NaN where undefined."""
+    _, m, n = split.shape
+    total = m * n
+    tau = integrated_time(combined_autocorrelation(split))
+    # Vehtari et al. (2021) bound tau below by 1 / log10(S) so that antithetic chains cannot claim
+    # an effective sample size above S * log10(S).
+    tau = np.maximum(tau, 1.0 / np.log10(total))
+    ess = total / tau
+    ess[undefined_mask(split)] = np.nan
+    return ess
+
+
+def ess_batch(x: np.ndarray) -> np.ndarray:
+    """Basic ESS of split chains without rank normalisation: the one that governs the mean."""
+    return _ess_of_split(split_chains(x))
+
+
+def bulk_ess_batch(x: np.ndarray) -> np.ndarray:
+    """ESS of the rank-normalised split chains, robust to heavy tails."""
+    bad = undefined_mask(x)
+    split = split_chains(np.where(bad[:, None, None], 0.0, x))
+    ess = _ess_of_split(rank_normalize(split))
+    ess[bad] = np.nan
+    return ess
+
+
+def quantile_ess_batch(x: np.ndarray, p: float) -> np.ndarray:
+    """ESS of the indicator I(x <= q_p) for every quantity: the ESS that governs the p-quantile.
+
+    An indicator that is constant (a quantile at the edge of a discrete support) has no ESS.
+    """
+    bad = undefined_mask(x)
+    q = x.shape[0]
+    safe = np.where(bad[:, None, None], 0.0, x)
+    cut = np.quantile(safe.reshape(q, -1), p, axis=1)
+    indicator = (safe <= cut[:, None, None]).astype(np.float64)
+    result = _ess_of_split(split_chains(indicator))
+    result[bad] = np.nan
+    return result
+
+
+def tail_ess_batch(x: np.ndarray) -> np.ndarray:
+    """Minimum of the 5% and 95% quantile ESS."""
+    lower, upper = (quantile_ess_batch(x, p) for p in TAIL_PROBABILITIES)
+    return np.minimum(lower, upper)
+
+
+def ess(x: np.ndarray) -> float:
+    """Basic ESS of one quantity's ``(chains, draws)`` array."""
+    return float(ess_batch(as_batch(x))[0])
+
+
+def bulk_ess(x: np.ndarray) -> float:
+    """Bulk-ESS of one quantity's ``(chains, draws)`` array."""
+    return float(bulk_ess_batch(as_batch(x))[0])
+
+
+def tail_ess(x: np.ndarray) -> float:
+    """Tail-ESS of one quantity's ``(chains, draws)`` array."""
+    return float(tail_ess_batch(as_batch(x))[0])
+
+
+def quantile_ess(x: np.ndarray, p: float) -> float:
+    """ESS of the p-quantile of one quantity's ``(chains, draws)`` array."""
+    return float(quantile_ess_batch(as_batch(x), p)[0])
