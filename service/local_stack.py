@@ -1,0 +1,402 @@
+"""Start and stop a broker, the API server and Celery workers as child processes on this machine.
+
+Used by `drawyard serve`, the demo, the test harness and the service benchmark, so that every one of
+them launches the real parts the same way. Each child runs in its own process group so that stopping
+it also stops the processes it forked (gunicorn's workers, Celery's pool processes).
+"""
+
+from __future__ import annotations
+
+import atexit
+import contextlib
+import ctypes
+import os
+import shutil
+import signal
+import socket
+import subprocess
+import sys
+import time
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import requests
+
+READY_PATH = "/v1/health/ready"
+LIVE_PATH = "/v1/health/live"
+APP_FACTORY = "service.app:create_app()"
+CELERY_APP = "worker.celery_app:celery_app"
+
+_PR_SET_PDEATHSIG = 1
+
+
+class StartupError(RuntimeError):
+    """A child process exited or never became ready; the message carries its log's tail."""
+
+
+def free_port() -> int:
+    """A TCP port on 127.0.0.1 that was free a moment ago (the kernel picks it)."""
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as sock:
+        sock.bind(("127.0.0.1", 0))
+        return int(sock.getsockname()[1])
+
+
+def _die_with_parent() -> None:
+    # Runs in the child between fork and exec: if the launching process dies without cleaning up
+    # (SIGKILL, a crash), the kernel sends the child SIGTERM instead of leaving it orphaned.
+    with contextlib.suppress(OSError, AttributeError):
+        libc = ctypes.CDLL("libc.so.6", use_errno=True)
+        libc.prctl(_PR_SET_PDEATHSIG, signal.SIGTERM)
+
+
+@dataclass(eq=False)
+class ChildProcess:
+    """One launched server or worker, its log file, and how to stop it."""
+
+    name: str
+    popen: subprocess.Popen[bytes]
+    log_path: Path
+    stop_signal: int = signal.SIGTERM
+    grace_seconds: float = 10.0
+
+    @property
+    def pid(self) -> int:
+        return self.popen.pid
+
+    def alive(self) -> bool:
+        return self.popen.poll() is None
+
+    def signal_group(self, signum: int) -> None:
+        """Send a signal to the child and everything it forked."""
+        with contextlib.suppress(ProcessLookupError, PermissionError):
+            os.killpg(self.popen.pid, signum)
+
+    def kill(self) -> None:
+        """SIGKILL the whole group at once (a crash, as far as anyone else can tell) and reap it."""
+        self.signal_group(signal.SIGKILL)
+        with contextlib.suppress(subprocess.TimeoutExpired):
+            self.popen.wait(timeout=10)
+        _running.discard(self)
+
+    def stop(self) -> None:
+        """Ask politely with the stop signal, then SIGKILL the group after the grace period."""
+        if self.alive():
+            self.signal_group(self.stop_signal)
+            try:
+                self.popen.wait(timeout=self.grace_seconds)
+            except subprocess.TimeoutExpired:
+                pass
+        # Stragglers in the group (pool processes, backends) go too, even if the leader exited.
+        self.signal_group(signal.SIGKILL)
+        with contextlib.suppress(subprocess.TimeoutExpired):
+            self.popen.wait(timeout=10)
+        _running.discard(self)
+
+    def log_tail(self, lines: int = 40) -> str:
+        try:
+            text = self.log_path.read_text(errors="replace")
+        except OSError:
+            return ""
+        return "\n".join(text.splitlines()[-lines:])
+
+
+_running: set[ChildProcess] = set()
+
+
+def _stop_all_children() -> None:
+    for child in list(_running):
+        child.stop()
+
+
+atexit.register(_stop_all_children)
+
+
+def start_child(
+    name: str,
+    argv: Sequence[str],
+    log_path: Path,
+    env: Mapping[str, str] | None = None,
+    cwd: Path | None = None,
+    stop_signal: int = signal.SIGTERM,
+    grace_seconds: float = 10.0,
+    user: str | None = None,
+) -> ChildProcess:
+    """Launch argv in a new session with output to log_path; it is stopped at interpreter exit."""
+    log_path.parent.mkdir(parents=True, exist_ok=True)
+    full_env = dict(os.environ)
+    if env:
+        full_env.update(env)
+    with open(log_path, "ab") as log:
+        popen = subprocess.Popen(
+            list(argv),
+            stdin=subprocess.DEVNULL,
+            stdout=log,
+            stderr=subprocess.STDOUT,
+            env=full_env,
+            cwd=str(cwd) if cwd else None,
+            start_new_session=True,
+            preexec_fn=_die_with_parent,
+            user=user,
+        )
+    child = ChildProcess(name, popen, log_path, stop_signal, grace_seconds)
+    _running.add(child)
+    return child
+
+
+def wait_until(
+    ready: Callable[[], bool],
+    children: Sequence[ChildProcess],
+    timeout: float,
+    what: str,
+) -> None:
+    """Poll ready() until it is true; fail early, with the log, when a child has exited."""
+    deadline = time.monotonic() + timeout
+    while True:
+        for child in children:
+            if not child.alive():
+                raise StartupError(
+                    f"{child.name} exited with status {child.popen.returncode} while waiting for "
+                    f"{what}; last lines of {child.log_path}:\n{child.log_tail()}"
+                )
+        if ready():
+            return
+        if time.monotonic() > deadline:
+            tails = "\n".join(f"--- {c.name} ({c.log_path}):\n{c.log_tail()}" for c in children)
+            raise StartupError(f"timed out after {timeout:.0f} s waiting for {what}\n{tails}")
+        time.sleep(0.05)
+
+
+# --- Redis ------------------------------------------------------------------------------------
+
+
+def redis_installed() -> bool:
+    return shutil.which("redis-server") is not None
+
+
+@dataclass
+class RedisServer:
+    """A private redis-server on a loopback port, no persistence; restartable on the same port."""
+
+    directory: Path
+    port: int = 0
+    child: ChildProcess | None = None
+
+    @property
+    def url(self) -> str:
+        return f"redis://127.0.0.1:{self.port}/0"
+
+    def start(self, timeout: float = 20.0) -> RedisServer:
+        self.directory.mkdir(parents=True, exist_ok=True)
+        # A port picked by free_port() can be taken by someone else before redis binds it: retry.
+        attempts = 1 if self.port else 3
+        for attempt in range(attempts):
+            port = self.port or free_port()
+            self.child = start_child(
+                "redis-server",
+                [
+                    "redis-server", "--port", str(port), "--bind", "127.0.0.1",
+                    "--save", "", "--appendonly", "no", "--dir", str(self.directory),
+                ],
+                self.directory / "redis.log",
+                grace_seconds=5.0,
+            )
+            self.port = port
+            try:
+                wait_until(self.ping, [self.child], timeout, f"redis-server on port {port}")
+                return self
+            except StartupError:
+                self.child.stop()
+                if attempt == attempts - 1:
+                    raise
+                self.port = 0
+        return self
+
+    def ping(self) -> bool:
+        import redis
+
+        try:
+            return bool(redis.Redis(port=self.port, socket_timeout=1).ping())
+        except redis.RedisError:
+            return False
+
+    def flush(self) -> None:
+        import redis
+
+        redis.Redis(port=self.port, socket_timeout=5).flushall()
+
+    def stop(self) -> None:
+        if self.child is not None:
+            self.child.stop()
+            self.child = None
+
+    def restart(self, down_seconds: float = 0.0) -> None:
+        """Stop and start again on the same port (contents are lost: there is no persistence)."""
+        self.stop()
+        time.sleep(down_seconds)
+        self.start()
+
+
+# --- API and workers ---------------------------------------------------------------------------
+
+
+def service_env(database_url: str, broker_url: str, extra: Mapping[str, str] | None = None) -> dict:
+    """The DRAWYARD_* settings the API and the workers share."""
+    env = {"DRAWYARD_DATABASE_URL": database_url, "DRAWYARD_BROKER_URL": broker_url}
+    # Child Pythons must not buffer logs, or a crash loses the lines that explain it.
+    env["PYTHONUNBUFFERED"] = "1"
+    if extra:
+        env.update(extra)
+    return env
+
+
+def start_api(
+    port: int,
+    env: Mapping[str, str],
+    log_path: Path,
+    host: str = "127.0.0.1",
+    processes: int = 1,
+) -> ChildProcess:
+    """gunicorn serving the app factory with the production settings of gunicorn_conf.py."""
+    argv = [
+        sys.executable, "-m", "gunicorn",
+        "--config", "python:service.gunicorn_conf",
+        "--bind", f"{host}:{port}",
+        "--workers", str(processes),
+        APP_FACTORY,
+    ]
+    # SIGINT is gunicorn's quick shutdown; SIGTERM would wait for slow clients.
+    return start_child("api", argv, log_path, env, stop_signal=signal.SIGINT, grace_seconds=10.0)
+
+
+def start_worker(
+    index: int,
+    env: Mapping[str, str],
+    log_path: Path,
+    concurrency: int = 1,
+) -> ChildProcess:
+    """One Celery worker process (a main process plus `concurrency` pool processes)."""
+    argv = [
+        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
+        "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
+        "-n", f"w{index}@%h", "--loglevel", "INFO",
+        "--without-heartbeat", "--without-gossip", "--without-mingle",
+    ]
+    # Warm shutdown (SIGTERM) lets a running chain notice and stop; late acknowledgement puts any
+    # unfinished chain back on the queue, so the grace period can be short.
+    return start_child(f"worker {index}", argv, log_path, env, grace_seconds=15.0)
+
+
+def api_ready(base_url: str) -> Callable[[], bool]:
+    def ready() -> bool:
+        try:
+            return requests.get(base_url + READY_PATH, timeout=2).status_code == 200
+        except requests.RequestException:
+            return False
+
+    return ready
+
+
+def run_migrations(database_url: str) -> None:
+    from service.store import migrate
+
+    migrate(database_url)
+
+
+# --- A whole local stack -----------------------------------------------------------------------
+
+
+@dataclass
+class LocalStack:
+    """A broker (or none, for the filesystem transport), the API and N workers for one machine."""
+
+    var_dir: Path
+    database_url: str | None = None
+    broker: str = "auto"  # "auto" | "redis" | "filesystem" | an explicit broker URL
+    workers: int = 1
+    host: str = "127.0.0.1"
+    port: int = 0
+    extra_env: dict[str, str] = field(default_factory=dict)
+    redis: RedisServer | None = None
+    api: ChildProcess | None = None
+    worker_processes: list[ChildProcess] = field(default_factory=list)
+    broker_url: str = ""
+    broker_note: str = ""
+
+    @property
+    def base_url(self) -> str:
+        shown = "127.0.0.1" if self.host in ("0.0.0.0", "") else self.host
+        return f"http://{shown}:{self.port}"
+
+    def _choose_broker(self) -> dict[str, str]:
+        env: dict[str, str] = {}
+        wants_redis = self.broker == "redis" or (self.broker == "auto" and redis_installed())
+        if wants_redis:
+            self.redis = RedisServer(self.var_dir / "redis").start()
+            self.broker_url = self.redis.url
+            self.broker_note = f"private redis-server on port {self.redis.port}"
+        elif self.broker in ("auto", "filesystem"):
+            folder = self.var_dir / "broker"
+            folder.mkdir(parents=True, exist_ok=True)
+            self.broker_url = "filesystem://"
+            env["DRAWYARD_BROKER_FOLDER"] = str(folder)
+            self.broker_note = (
+                f"SERVERLESS FILESYSTEM BROKER in {folder}: SINGLE MACHINE ONLY. Workers on other "
+                "machines cannot see these queues; install redis-server or set a redis:// broker "
+                "for anything beyond one machine."
+            )
+        else:
+            self.broker_url = self.broker
+            self.broker_note = f"broker {self.broker}"
+        return env
+
+    def start(self, timeout: float = 90.0) -> LocalStack:
+        self.var_dir.mkdir(parents=True, exist_ok=True)
+        if self.database_url is None:
+            self.database_url = f"sqlite:///{(self.var_dir / 'drawyard.sqlite').resolve()}"
+        try:
+            env = self._choose_broker()
+            env.update(self.extra_env)
+            env = service_env(self.database_url, self.broker_url, env)
+            run_migrations(self.database_url)
+            self.port = self.port or free_port()
+            logs = self.var_dir / "logs"
+            self.api = start_api(self.port, env, logs / "api.log", host=self.host)
+            self.worker_processes = [
+                start_worker(i, env, logs / f"worker{i}.log") for i in range(self.workers)
+            ]
+            wait_until(
+                api_ready(self.base_url),
+                [self.api, *self.worker_processes],
+                timeout,
+                f"the API to answer {self.base_url}{READY_PATH}",
+            )
+        except BaseException:
+            self.stop()
+            raise
+        return self
+
+    def children(self) -> list[ChildProcess]:
+        out = [c for c in [self.api, *self.worker_processes] if c is not None]
+        if self.redis is not None and self.redis.child is not None:
+            out.append(self.redis.child)
+        return out
+
+    def stop(self) -> None:
+        """Workers first (so no chain is left holding the broker), then the API, then the broker."""
+        for worker in self.worker_processes:
+            worker.signal_group(worker.stop_signal)
+        for worker in self.worker_processes:
+            worker.stop()
+        if self.api is not None:
+            self.api.stop()
+        if self.redis is not None:
+            self.redis.stop()
+
+    @contextlib.contextmanager
+    def running(self, timeout: float = 90.0) -> Iterator[LocalStack]:
+        self.start(timeout)
+        try:
+            yield self
+        finally:
+            self.stop()

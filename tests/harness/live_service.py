@@ -1,0 +1,101 @@
+"""The real API (gunicorn) and N real Celery worker processes for a given database and broker."""
+
+from __future__ import annotations
+
+import tempfile
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from service.local_stack import (
+    READY_PATH,
+    ChildProcess,
+    api_ready,
+    free_port,
+    service_env,
+    start_api,
+    start_worker,
+    wait_until,
+)
+
+
+@dataclass
+class LiveService:
+    """What a test gets back: the base URL and handles to every process (to SIGKILL a worker)."""
+
+    base_url: str
+    api: ChildProcess
+    workers: list[ChildProcess]
+    env: dict[str, str]
+    log_dir: Path
+    database_url: str
+    broker_url: str
+    _next_index: int = field(default=0, repr=False)
+
+    def add_worker(self, timeout: float = 60.0) -> ChildProcess:
+        """Start one more worker (e.g. to take over after another was killed)."""
+        index = self._next_index
+        self._next_index += 1
+        worker = start_worker(index, self.env, self.log_dir / f"worker{index}.log")
+        self.workers.append(worker)
+        wait_until(lambda: _worker_log_says_ready(worker), [worker], timeout, f"{worker.name}")
+        return worker
+
+    def kill_worker(self, index: int) -> None:
+        """SIGKILL a worker's whole process group: the main process and its pool process."""
+        self.workers[index].kill()
+
+    def logs(self) -> str:
+        """Every process's log tail, for assertion messages."""
+        return "\n".join(
+            f"--- {child.name} ({child.log_path}):\n{child.log_tail(60)}"
+            for child in [self.api, *self.workers]
+        )
+
+    def stop(self) -> None:
+        for worker in self.workers:
+            worker.signal_group(worker.stop_signal)
+        for worker in self.workers:
+            worker.stop()
+        self.api.stop()
+
+
+def _worker_log_says_ready(worker: ChildProcess) -> bool:
+    # Celery logs "<name> ready." once it consumes from its queues; with mingle and gossip off
+    # there is no broadcast to ask instead.
+    try:
+        return " ready." in worker.log_path.read_text(errors="replace")
+    except OSError:
+        return False
+
+
+def start_live_service(
+    database_url: str,
+    broker_url: str,
+    workers: int = 1,
+    env: Mapping[str, str] | None = None,
+    log_dir: Path | None = None,
+    timeout: float = 90.0,
+) -> LiveService:
+    """Start gunicorn and the workers, and wait until the API is ready and each worker consumes."""
+    log_dir = log_dir or Path(tempfile.mkdtemp(prefix="drawyard-live-"))
+    full_env = service_env(database_url, broker_url, env)
+    port = free_port()
+    api = start_api(port, full_env, log_dir / "api.log")
+    service = LiveService(
+        f"http://127.0.0.1:{port}", api, [], full_env, log_dir, database_url, broker_url
+    )
+    try:
+        for _ in range(workers):
+            index = service._next_index
+            service._next_index += 1
+            service.workers.append(start_worker(index, full_env, log_dir / f"worker{index}.log"))
+        everyone = [api, *service.workers]
+        what = f"{service.base_url}{READY_PATH}"
+        wait_until(api_ready(service.base_url), everyone, timeout, what)
+        for worker in service.workers:
+            wait_until(lambda w=worker: _worker_log_says_ready(w), everyone, timeout, worker.name)
+    except BaseException:
+        service.stop()
+        raise
+    return service
