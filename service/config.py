@@ -1,0 +1,93 @@
+"""Service settings: defaults, then DRAWYARD_* environment variables, then an explicit mapping."""
+
+from __future__ import annotations
+
+import logging
+import os
+from collections.abc import Mapping
+from dataclasses import dataclass, fields
+from typing import Any
+
+PREFIX = "DRAWYARD_"
+log = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Everything the API and the workers read from their environment.
+
+    Each field is read from ``DRAWYARD_<FIELD NAME IN CAPITALS>``; README.md lists them.
+    """
+
+    database_url: str = "sqlite:///var/drawyard.sqlite"
+    broker_url: str = "redis://127.0.0.1:6379/0"
+    # Folder of the serverless broker used when broker_url is "filesystem://" (one machine only).
+    broker_folder: str = "var/broker"
+    queue: str = "drawyard"
+    # Seconds; 0 means "derive from chain_time_limit" so a running chain is never redelivered.
+    visibility_timeout: int = 0
+    chain_time_limit: int = 3600
+    max_chains: int = 16
+    max_draws: int = 100_000
+    max_body_bytes: int = 10 * 1024 * 1024
+    checkpoint_every: int = 200
+    # How often a running chain writes progress, renews its lease and looks at the cancel flag.
+    progress_interval: float = 1.0
+    # A lease not renewed for this long is taken to belong to a dead worker.
+    lease_seconds: int = 60
+    page_limit: int = 50
+    max_page_limit: int = 500
+
+    @property
+    def effective_visibility_timeout(self) -> int:
+        """The broker's redelivery timeout: explicit, or longer than the longest allowed chain."""
+        if self.visibility_timeout > 0:
+            return self.visibility_timeout
+        # Margin covers queueing behind other chains on the same worker process and the finish.
+        return self.chain_time_limit + max(600, self.chain_time_limit // 4)
+
+
+def _convert(kind: type, raw: Any, name: str) -> Any:
+    if isinstance(raw, kind) and not (kind is int and isinstance(raw, bool)):
+        return raw
+    try:
+        if kind is int:
+            return int(str(raw).strip())
+        if kind is float:
+            return float(str(raw).strip())
+    except ValueError as error:
+        message = f"setting {PREFIX}{name.upper()}: expected a {kind.__name__}, got {raw!r}"
+        raise ValueError(message) from error
+    return str(raw)
+
+
+def load_settings(
+    config: Mapping[str, Any] | None = None, environ: Mapping[str, str] | None = None
+) -> Settings:
+    """Build settings from defaults, the environment, then ``config``.
+
+    ``config`` keys are field names in either case, with or without the ``DRAWYARD_`` prefix; an
+    explicit mapping wins over the environment so that tests can build apps side by side.
+    """
+    environ = os.environ if environ is None else environ
+    explicit = {}
+    for key, value in (config or {}).items():
+        name = key.upper().removeprefix(PREFIX).lower()
+        explicit[name] = value
+    values: dict[str, Any] = {}
+    types = {"int": int, "float": float, "str": str}
+    for field in fields(Settings):
+        kind = types[field.type] if isinstance(field.type, str) else field.type
+        if field.name in explicit:
+            values[field.name] = _convert(kind, explicit[field.name], field.name)
+        elif PREFIX + field.name.upper() in environ:
+            values[field.name] = _convert(kind, environ[PREFIX + field.name.upper()], field.name)
+    settings = Settings(**values)
+    if 0 < settings.visibility_timeout <= settings.chain_time_limit:
+        log.warning(
+            "visibility timeout %ss is not longer than the chain time limit %ss: the broker will "
+            "redeliver long chains (the chain lease drops the duplicates)",
+            settings.visibility_timeout,
+            settings.chain_time_limit,
+        )
+    return settings
