@@ -1,0 +1,194 @@
+"""The `drawyard` console command: a local service for one user, migrations, and a worker."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import signal
+import sys
+import time
+from collections.abc import Sequence
+from pathlib import Path
+from typing import NoReturn
+
+from service.local_stack import CELERY_APP, LocalStack, StartupError
+
+BANNER_WIDTH = 78
+
+
+def loud(lines: Sequence[str]) -> str:
+    """A framed block that stands out in a terminal full of log lines."""
+    bar = "!" * BANNER_WIDTH
+    return "\n".join([bar, *(f"!! {line}" for line in lines), bar])
+
+
+def _add_serve(commands: argparse._SubParsersAction) -> None:
+    serve = commands.add_parser(
+        "serve",
+        help="run the API, one worker and a broker on this machine until Ctrl-C",
+        description=(
+            "Start a local drawyard for one user: a SQLite store under --var, a private "
+            "redis-server when one is installed (otherwise a serverless filesystem broker that "
+            "works on this machine only), migrations, the API under gunicorn and Celery workers. "
+            "Ctrl-C stops everything it started."
+        ),
+    )
+    serve.add_argument("--var", type=Path, default=Path("var"),
+                       help="folder for the database, broker files and logs (default: ./var)")
+    serve.add_argument("--host", default="127.0.0.1",
+                       help="address the API listens on (default: 127.0.0.1)")
+    serve.add_argument("--port", type=int, default=8000, help="API port (default: 8000)")
+    serve.add_argument("--workers", type=int, default=1,
+                       help="number of worker processes, one chain at a time each (default: 1)")
+    serve.add_argument(
+        "--broker", default=None,
+        help="'auto' (default: private redis-server if installed, else the filesystem broker), "
+             "'redis', 'filesystem', or a broker URL; DRAWYARD_BROKER_URL, when set, is used "
+             "instead of 'auto'",
+    )
+    serve.add_argument(
+        "--database-url", default=None,
+        help="store URL (default: DRAWYARD_DATABASE_URL if set, else a SQLite file under --var)",
+    )
+    serve.set_defaults(run=run_serve)
+
+
+def _add_migrate(commands: argparse._SubParsersAction) -> None:
+    migrate = commands.add_parser(
+        "migrate",
+        help="create or upgrade the results store's tables",
+        description="Apply the store's migrations up to the newest revision.",
+    )
+    migrate.add_argument(
+        "--database-url", default=None,
+        help="store URL (default: DRAWYARD_DATABASE_URL, else sqlite:///var/drawyard.sqlite)",
+    )
+    migrate.set_defaults(run=run_migrate)
+
+
+def _add_worker(commands: argparse._SubParsersAction) -> None:
+    worker = commands.add_parser(
+        "worker",
+        help="run one Celery worker process in the foreground",
+        description=(
+            "Run a worker that takes chains from the broker in DRAWYARD_BROKER_URL and writes "
+            "to the store in DRAWYARD_DATABASE_URL. Start one per core."
+        ),
+    )
+    worker.add_argument("--concurrency", type=int, default=1,
+                        help="pool processes in this worker (default: 1)")
+    worker.add_argument("--name", default="worker@%h",
+                        help="worker node name (default: worker@%%h)")
+    worker.add_argument("--loglevel", default="INFO", help="log level (default: INFO)")
+    worker.set_defaults(run=run_worker)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="drawyard",
+        description="Bayesian posterior sampling as queued jobs behind a REST API.",
+    )
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    _add_serve(commands)
+    _add_migrate(commands)
+    _add_worker(commands)
+    return parser
+
+
+def _serve_database_url(args: argparse.Namespace) -> str:
+    if args.database_url:
+        return args.database_url
+    if os.environ.get("DRAWYARD_DATABASE_URL"):
+        return os.environ["DRAWYARD_DATABASE_URL"]
+    return f"sqlite:///{(args.var / 'drawyard.sqlite').resolve()}"
+
+
+class _Stop(Exception):
+    pass
+
+
+def _raise_stop(signum: int, frame: object) -> None:
+    raise _Stop(signal.Signals(signum).name)
+
+
+def run_serve(args: argparse.Namespace) -> int:
+    broker = args.broker or os.environ.get("DRAWYARD_BROKER_URL") or "auto"
+    stack = LocalStack(
+        var_dir=args.var.resolve(),
+        database_url=_serve_database_url(args),
+        broker=broker,
+        workers=args.workers,
+        host=args.host,
+        port=args.port,
+    )
+    # Children run in their own sessions, so Ctrl-C reaches only this process, which then stops
+    # them in order: workers, API, broker.
+    signal.signal(signal.SIGTERM, _raise_stop)
+    signal.signal(signal.SIGINT, _raise_stop)
+    try:
+        stack.start()
+    except (_Stop, StartupError) as error:
+        stack.stop()
+        print(f"drawyard serve: could not start: {error}", file=sys.stderr)
+        return 1
+    if stack.broker_url == "filesystem://":
+        print(loud([stack.broker_note]), flush=True)
+    print(
+        f"drawyard is serving at {stack.base_url}\n"
+        f"  store:   {stack.database_url}\n"
+        f"  broker:  {stack.broker_note if stack.redis else stack.broker_url}\n"
+        f"  workers: {args.workers}\n"
+        f"  logs:    {stack.var_dir / 'logs'}\n"
+        f"  try:     curl {stack.base_url}/v1/health/ready\n"
+        "Press Ctrl-C to stop.",
+        flush=True,
+    )
+    status = 0
+    try:
+        while True:
+            dead = [child for child in stack.children() if not child.alive()]
+            if dead:
+                for child in dead:
+                    print(
+                        f"drawyard serve: {child.name} exited ({child.popen.returncode}); "
+                        f"last lines of {child.log_path}:\n{child.log_tail()}",
+                        file=sys.stderr,
+                    )
+                status = 1
+                break
+            time.sleep(0.5)
+    except _Stop:
+        print("\nstopping workers, API and broker ...", flush=True)
+    finally:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        stack.stop()
+    return status
+
+
+def run_migrate(args: argparse.Namespace) -> int:
+    from service.config import load_settings
+    from service.store import migrate
+
+    url = args.database_url or load_settings().database_url
+    migrate(url)
+    print(f"store at {url} is at the newest revision")
+    return 0
+
+
+def run_worker(args: argparse.Namespace) -> NoReturn:
+    argv = [
+        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
+        "--concurrency", str(args.concurrency), "--prefetch-multiplier", "1",
+        "-n", args.name, "--loglevel", args.loglevel,
+    ]
+    # Replace this process so that signals from a supervisor reach the worker itself.
+    os.execv(sys.executable, argv)
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    return int(args.run(args))
+
+
+if __name__ == "__main__":
+    sys.exit(main())
