@@ -1,0 +1,341 @@
+"""The Chain driver: warm-up then sampling for one chain, resumable from a snapshot."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from worker.samplers import snapshot as snapshot_format
+from worker.samplers.dual_averaging import DualAveraging, initial_step_size
+from worker.samplers.hamiltonian import Metric, State
+from worker.samplers.initialisation import initial_state
+from worker.samplers.metric_adaptation import RunningCovariance, warmup_schedule
+from worker.samplers.metropolis import (
+    MetropolisTransition,
+    RandomWalkProposal,
+    default_log_scale,
+    scale_gain,
+)
+from worker.samplers.nuts import NutsTransition
+from worker.samplers.settings import SamplerSettings
+from worker.samplers.static_hmc import StaticHmcTransition
+from worker.samplers.target import Target
+
+STAT_TYPES: dict[str, dict[str, type]] = {
+    "nuts": {
+        "step_size": np.float64, "tree_depth": np.int64, "leapfrog_steps": np.int64,
+        "acceptance": np.float64, "energy": np.float64, "divergent": np.bool_,
+        "log_density": np.float64,
+    },
+    "hmc": {
+        "step_size": np.float64, "leapfrog_steps": np.int64, "acceptance": np.float64,
+        "energy": np.float64, "divergent": np.bool_, "log_density": np.float64,
+    },
+    "metropolis": {
+        "acceptance": np.float64, "log_density": np.float64, "proposal_scale": np.float64,
+    },
+}  # fmt: skip
+
+PROGRESS_CALLS = 100  # progress is reported about every 1% of iterations, and at the end
+LOG_STEP_LIMIT = 700.0  # keeps exp(log step) a positive finite float whatever adaptation does
+LOG_SCALE_LIMIT = 50.0
+
+ProgressCallback = Callable[[str, int, int], None]
+
+
+@dataclass
+class ChainOutput:
+    draws: np.ndarray  # (draws so far, dimension), unconstrained, sampling phase only
+    stats: dict[str, np.ndarray]
+    warmup_stats: dict[str, np.ndarray]
+    adapted: dict
+    completed: bool
+
+
+def sampling_sequence(seed: np.random.SeedSequence, child: int) -> np.random.SeedSequence:
+    """Child ``child`` of ``seed``, the same one ``seed.spawn`` would make, without mutating it.
+
+    DEVELOPERS.md: child 0 drives sampling, child 1 generated quantities.
+    """
+    return np.random.SeedSequence(
+        seed.entropy, spawn_key=(*seed.spawn_key, child), pool_size=seed.pool_size
+    )
+
+
+class Chain:
+    """One Markov chain for a Target: initialisation, windowed warm-up, then sampling.
+
+    All randomness comes from one Generator built from child 0 of ``seed``, and every piece of
+    state that influences the future lives in attributes that ``snapshot`` writes out, so a chain
+    restored at any iteration continues with exactly the draws the uninterrupted chain makes.
+    """
+
+    def __init__(
+        self,
+        target: Target,
+        settings: SamplerSettings,
+        seed: np.random.SeedSequence,
+        initial_point: np.ndarray | None = None,
+    ):
+        if int(target.dimension) < 1:
+            raise ValueError(f"the target must have dimension >= 1, got {target.dimension}")
+        self._setup(target, settings)
+        self.rng = np.random.default_rng(sampling_sequence(seed, 0))
+        self.iteration = 0
+        self.divergences = {"warmup": 0, "sampling": 0}
+        self.estimator = RunningCovariance(self.dimension, settings.metric == "dense")
+        self.state = initial_state(
+            target,
+            settings.initialisation,
+            settings.init_radius,
+            self.rng,
+            initial_point,
+            needs_gradient=not self._metropolis,
+        )
+        if self._metropolis:
+            self.proposal = RandomWalkProposal.initial(settings.metric, self.dimension)
+            self.scale_updates = 0
+            self.average_sum = 0.0
+            self.average_count = 0
+        else:
+            self.metric = Metric.identity(settings.metric, self.dimension)
+            self.step_size = initial_step_size(target, self.metric, self.state, 1.0, self.rng)
+            self.dual = DualAveraging.start(self.step_size, self.goal)
+        self._allocate()
+
+    def _setup(self, target: Target, settings: SamplerSettings) -> None:
+        self.target = target
+        self.settings = settings
+        self.dimension = int(target.dimension)
+        self.total_iterations = settings.warmup_iterations + settings.draws
+        self.goal = settings.acceptance_goal(self.dimension)
+        self.schedule = warmup_schedule(settings.warmup_iterations)
+        self._metropolis = settings.method == "metropolis"
+        self._types = STAT_TYPES[settings.method]
+        # A unit metric has nothing to estimate, so its warm-up is step size (or scale) only.
+        self._windows = self.schedule.window_ends if settings.metric != "unit" else frozenset()
+
+    def _allocate(self) -> None:
+        s = self.settings
+        self.draws = np.zeros((s.draws, self.dimension))
+        self.stats = {k: np.zeros(s.draws, dtype=t) for k, t in self._types.items()}
+        self.warmup_stats = {
+            k: np.zeros(s.warmup_iterations, dtype=t) for k, t in self._types.items()
+        }
+
+    # ---- running -------------------------------------------------------------------------------
+
+    def run(
+        self,
+        progress: ProgressCallback | None = None,
+        should_stop: Callable[[], bool] | None = None,
+        checkpoint: Callable[[bytes], None] | None = None,
+        checkpoint_every: int = 100,
+    ) -> ChainOutput:
+        """Run to the end, or until ``should_stop()`` is true (polled before every iteration).
+
+        ``progress(phase, iteration, divergences)`` gets the phase of the iteration just finished
+        ("warmup" or "sampling"), the number of iterations finished counting warm-up, and the
+        divergences so far in that phase; it is called about every 1% of iterations and after the
+        last. ``checkpoint(snapshot_bytes)`` is called after every ``checkpoint_every`` iterations.
+        """
+        if checkpoint_every < 1:
+            raise ValueError("checkpoint_every must be at least 1")
+        stride = max(1, math.ceil(self.total_iterations / PROGRESS_CALLS))
+        while self.iteration < self.total_iterations:
+            if should_stop is not None and should_stop():
+                break
+            self.step()
+            done = self.iteration
+            if progress is not None and (done % stride == 0 or done == self.total_iterations):
+                phase = "warmup" if done <= self.settings.warmup_iterations else "sampling"
+                progress(phase, done, self.divergences[phase])
+            if checkpoint is not None and done % checkpoint_every == 0:
+                if done < self.total_iterations:
+                    checkpoint(self.snapshot())
+        return self.output()
+
+    def step(self) -> None:
+        """One iteration: a transition, its bookkeeping, and (in warm-up) adaptation."""
+        i = self.iteration
+        warmup = self.settings.warmup_iterations
+        self.state, stats = self._transition()(self.state, self.rng)
+        if i < warmup:
+            self._record(self.warmup_stats, i, stats)
+            if stats.get("divergent"):
+                self.divergences["warmup"] += 1
+            if self._metropolis:
+                self._adapt_proposal(i, stats["acceptance"])
+            else:
+                self._adapt_hamiltonian(i, stats["acceptance"])
+        else:
+            j = i - warmup
+            self.draws[j] = self.state.position
+            self._record(self.stats, j, stats)
+            if stats.get("divergent"):
+                self.divergences["sampling"] += 1
+        self.iteration = i + 1
+
+    def _transition(self) -> Callable[[State, np.random.Generator], tuple[State, dict]]:
+        s = self.settings
+        if s.method == "nuts":
+            return NutsTransition(
+                self.target, self.metric, self.step_size, s.max_tree_depth, s.divergence_threshold
+            )
+        if s.method == "hmc":
+            return StaticHmcTransition(
+                self.target, self.metric, self.step_size, s.integration_time, s.jitter,
+                2**s.max_tree_depth, s.divergence_threshold,
+            )  # fmt: skip
+        return MetropolisTransition(self.target, self.proposal)
+
+    def _record(self, table: dict[str, np.ndarray], row: int, stats: dict[str, float]) -> None:
+        for name, column in table.items():
+            column[row] = stats[name]
+
+    def _adapt_hamiltonian(self, i: int, acceptance: float) -> None:
+        self.dual.update(acceptance)
+        self.dual.log_step = min(max(self.dual.log_step, -LOG_STEP_LIMIT), LOG_STEP_LIMIT)
+        self.step_size = math.exp(self.dual.log_step)
+        if self._windows and self.schedule.in_window(i):
+            self.estimator.add(self.state.position)
+        if i + 1 in self._windows:
+            estimate = self.estimator.regularised()
+            self.estimator.reset()
+            if estimate is not None:
+                self.metric = Metric(self.settings.metric, estimate)
+            # A new metric changes the scale of every direction: search a fresh step size and
+            # restart dual averaging around it (Hoffman & Gelman 2014, section 3.2).
+            self.step_size = initial_step_size(
+                self.target, self.metric, self.state, self.step_size, self.rng
+            )
+            self.dual = DualAveraging.start(self.step_size, self.goal)
+        if i + 1 == self.settings.warmup_iterations:
+            self.step_size = self.dual.final_step_size()
+
+    def _adapt_proposal(self, i: int, acceptance: float) -> None:
+        proposal = self.proposal
+        self.scale_updates += 1
+        proposal.log_scale += scale_gain(self.scale_updates) * (acceptance - self.goal)
+        proposal.log_scale = min(max(proposal.log_scale, -LOG_SCALE_LIMIT), LOG_SCALE_LIMIT)
+        if self._windows and self.schedule.in_window(i):
+            self.estimator.add(self.state.position)
+        if i + 1 in self._windows:
+            estimate = self.estimator.regularised()
+            self.estimator.reset()
+            if estimate is not None:
+                # With the covariance learned, the optimal scale is again about 2.38/sqrt(d).
+                self.proposal = RandomWalkProposal(
+                    self.settings.metric, estimate, default_log_scale(self.dimension)
+                )
+                self.scale_updates = 0
+        warmup = self.settings.warmup_iterations
+        average_from = self.schedule.final_start if self._windows else warmup // 2
+        if i >= average_from:
+            self.average_sum += self.proposal.log_scale
+            self.average_count += 1
+        if i + 1 == warmup and self.average_count:
+            self.proposal.log_scale = self.average_sum / self.average_count
+
+    # ---- results -------------------------------------------------------------------------------
+
+    def output(self) -> ChainOutput:
+        warmup = self.settings.warmup_iterations
+        done_warmup = min(self.iteration, warmup)
+        done_draws = max(0, self.iteration - warmup)
+        return ChainOutput(
+            draws=self.draws[:done_draws].copy(),
+            stats={k: v[:done_draws].copy() for k, v in self.stats.items()},
+            warmup_stats={k: v[:done_warmup].copy() for k, v in self.warmup_stats.items()},
+            adapted=self.adapted(),
+            completed=self.iteration == self.total_iterations,
+        )
+
+    def adapted(self) -> dict:
+        """The current (after warm-up: final) step size and metric, or proposal, as JSON values."""
+        if self._metropolis:
+            return self.proposal.as_json()
+        return {"step_size": self.step_size, **self.metric.as_json()}
+
+    # ---- snapshot / restore --------------------------------------------------------------------
+
+    def snapshot(self) -> bytes:
+        """The complete state as bytes (see worker.samplers.snapshot for the format)."""
+        warmup = self.settings.warmup_iterations
+        done_warmup = min(self.iteration, warmup)
+        done_draws = max(0, self.iteration - warmup)
+        header = {
+            "settings": self.settings.as_dict(),
+            "dimension": self.dimension,
+            "iteration": self.iteration,
+            "generator": self.rng.bit_generator.state,
+            "log_density": self.state.log_density,
+            "divergences": self.divergences,
+            "estimator_count": self.estimator.count,
+        }
+        arrays = {
+            "position": self.state.position,
+            "gradient": self.state.gradient,
+            "draws": self.draws[:done_draws],
+            **self.estimator.arrays("estimator_"),
+            **{f"stat_{k}": v[:done_draws] for k, v in self.stats.items()},
+            **{f"warmup_stat_{k}": v[:done_warmup] for k, v in self.warmup_stats.items()},
+        }
+        if self._metropolis:
+            header.update(
+                log_scale=self.proposal.log_scale,
+                scale_updates=self.scale_updates,
+                average_sum=self.average_sum,
+                average_count=self.average_count,
+            )
+            arrays["proposal_covariance"] = self.proposal.covariance
+        else:
+            header.update(step_size=self.step_size, dual_averaging=self.dual.as_dict())
+            arrays["inverse_metric"] = self.metric.inverse
+        return snapshot_format.encode(header, arrays)
+
+    @classmethod
+    def restore(cls, target: Target, blob: bytes) -> Chain:
+        """A chain that continues exactly where the snapshotted one stopped."""
+        header, arrays = snapshot_format.decode(blob)
+        settings = SamplerSettings.from_dict(header["settings"])
+        if int(target.dimension) != header["dimension"]:
+            raise snapshot_format.SnapshotError(
+                f"the snapshot is for dimension {header['dimension']}, the target has "
+                f"{target.dimension}"
+            )
+        chain = cls.__new__(cls)
+        chain._setup(target, settings)
+        chain._allocate()
+        bit_generator = getattr(np.random, header["generator"]["bit_generator"])()
+        bit_generator.state = header["generator"]
+        chain.rng = np.random.Generator(bit_generator)
+        chain.iteration = int(header["iteration"])
+        chain.divergences = {k: int(v) for k, v in header["divergences"].items()}
+        chain.state = State(
+            np.array(arrays["position"]), float(header["log_density"]), np.array(arrays["gradient"])
+        )
+        chain.estimator = RunningCovariance(chain.dimension, settings.metric == "dense")
+        chain.estimator.load(int(header["estimator_count"]), arrays, "estimator_")
+        done = arrays["draws"].shape[0]
+        chain.draws[:done] = arrays["draws"]
+        for k, v in chain.stats.items():
+            v[:done] = arrays[f"stat_{k}"]
+        for k, v in chain.warmup_stats.items():
+            n = arrays[f"warmup_stat_{k}"].shape[0]
+            v[:n] = arrays[f"warmup_stat_{k}"]
+        if chain._metropolis:
+            chain.proposal = RandomWalkProposal(
+                settings.metric, arrays["proposal_covariance"], float(header["log_scale"])
+            )
+            chain.scale_updates = int(header["scale_updates"])
+            chain.average_sum = float(header["average_sum"])
+            chain.average_count = int(header["average_count"])
+        else:
+            chain.metric = Metric(settings.metric, arrays["inverse_metric"])
+            chain.step_size = float(header["step_size"])
+            chain.dual = DualAveraging(**header["dual_averaging"])
+        return chain

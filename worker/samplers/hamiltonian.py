@@ -1,0 +1,88 @@
+"""Euclidean Hamiltonian dynamics: the metric (mass matrix) and the leapfrog integrator.
+
+Following Neal (2011), MCMC using Hamiltonian dynamics, section 5.2-5.4: the Hamiltonian is
+H(q, p) = -log pi(q) + p' M^-1 p / 2 with momentum p ~ N(0, M). We store the inverse metric M^-1,
+which is what adaptation estimates (the posterior covariance, or its diagonal).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+
+from worker.samplers.target import Target, density_and_gradient
+
+
+class Metric:
+    """The inverse metric M^-1: identity ("unit"), a vector of variances, or a covariance matrix."""
+
+    def __init__(self, kind: str, inverse: np.ndarray):
+        self.kind = kind
+        self.inverse = np.array(inverse, dtype=np.float64)
+        if kind == "dense":
+            # M^-1 = L L'; momentum p = L'^-1 z then has covariance (L L')^-1 = M.
+            self._cholesky = np.linalg.cholesky(self.inverse)
+        else:
+            self._sd = np.sqrt(self.inverse)
+
+    @classmethod
+    def identity(cls, kind: str, dimension: int) -> Metric:
+        if kind == "dense":
+            return cls(kind, np.eye(dimension))
+        return cls(kind, np.ones(dimension))
+
+    def velocity(self, p: np.ndarray) -> np.ndarray:
+        """dq/dt = M^-1 p."""
+        if self.kind == "dense":
+            return self.inverse @ p
+        return self.inverse * p
+
+    def kinetic(self, p: np.ndarray) -> float:
+        return 0.5 * float(p @ self.velocity(p))
+
+    def draw_momentum(self, rng: np.random.Generator) -> np.ndarray:
+        z = rng.standard_normal(self.inverse.shape[0])
+        if self.kind == "dense":
+            return scipy.linalg.solve_triangular(self._cholesky, z, lower=True, trans="T")
+        return z / self._sd
+
+    def as_json(self) -> dict:
+        return {"metric": self.kind, "inverse_metric": self.inverse.tolist()}
+
+
+@dataclass(slots=True)
+class State:
+    """A position with its log density and gradient (what carries over between iterations)."""
+
+    position: np.ndarray
+    log_density: float
+    gradient: np.ndarray
+
+
+def leapfrog(
+    target: Target,
+    metric: Metric,
+    position: np.ndarray,
+    momentum: np.ndarray,
+    gradient: np.ndarray,
+    step: float,
+) -> tuple[np.ndarray, np.ndarray, float, np.ndarray]:
+    """One leapfrog step of signed size ``step`` (Neal 2011, eq. 5.18-5.20)."""
+    with np.errstate(all="ignore"):
+        half = momentum + (0.5 * step) * gradient
+        new_position = position + step * metric.velocity(half)
+    log_density, new_gradient = density_and_gradient(target, new_position)
+    with np.errstate(all="ignore"):
+        new_momentum = half + (0.5 * step) * new_gradient
+    return new_position, new_momentum, log_density, new_gradient
+
+
+def hamiltonian(log_density: float, momentum: np.ndarray, metric: Metric) -> float:
+    """H = -log density + kinetic energy; +inf outside the support or after overflow."""
+    if not np.isfinite(log_density):
+        return np.inf
+    with np.errstate(all="ignore"):
+        energy = -log_density + metric.kinetic(momentum)
+    return energy if np.isfinite(energy) else np.inf
