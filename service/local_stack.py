@@ -314,6 +314,7 @@ class LocalStack:
     database_url: str | None = None
     broker: str = "auto"  # "auto" | "redis" | "filesystem" | an explicit broker URL
     workers: int = 1
+    concurrency: int = 1
     host: str = "127.0.0.1"
     port: int = 0
     extra_env: dict[str, str] = field(default_factory=dict)
@@ -363,7 +364,8 @@ class LocalStack:
             logs = self.var_dir / "logs"
             self.api = start_api(self.port, env, logs / "api.log", host=self.host)
             self.worker_processes = [
-                start_worker(i, env, logs / f"worker{i}.log") for i in range(self.workers)
+                start_worker(i, env, logs / f"worker{i}.log", self.concurrency)
+                for i in range(self.workers)
             ]
             wait_until(
                 api_ready(self.base_url),
