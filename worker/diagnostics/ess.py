@@ -11,36 +11,57 @@ import numpy as np
 
 from worker.diagnostics.autocorrelation import combined_autocorrelation, integrated_time
 from worker.diagnostics.ranks import rank_normalize
-from worker.diagnostics.splitting import as_batch, split_chains, undefined_mask
+from worker.diagnostics.splitting import (
+    MIN_DRAWS_PER_CHAIN,
+    as_batch,
+    neutralize,
+    split_chains,
+    undefined_mask,
+)
 
 TAIL_PROBABILITIES = (0.05, 0.95)
 
 
 def _ess_of_split(split: np.ndarray) -> np.ndarray:
-    """ESS of chains that are already split; NaN where undefined."""
+    """ESS of chains that are already split; NaN where the split chains are undefined."""
     _, m, n = split.shape
     total = m * n
-    tau = integrated_time(combined_autocorrelation(split))
+    bad = undefined_mask(split, min_draws=MIN_DRAWS_PER_CHAIN // 2)
+    if bad.all():
+        return np.full(split.shape[0], np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tau = integrated_time(combined_autocorrelation(neutralize(split, bad)))
     # Vehtari et al. (2021) bound tau below by 1 / log10(S) so that antithetic chains cannot claim
     # an effective sample size above S * log10(S).
     tau = np.maximum(tau, 1.0 / np.log10(total))
-    ess = total / tau
-    ess[undefined_mask(split)] = np.nan
-    return ess
+    result = total / tau
+    result[bad] = np.nan
+    return result
+
+
+def _guarded(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    bad = undefined_mask(x)
+    return bad, neutralize(x, bad)
 
 
 def ess_batch(x: np.ndarray) -> np.ndarray:
     """Basic ESS of split chains without rank normalisation: the one that governs the mean."""
-    return _ess_of_split(split_chains(x))
+    bad, safe = _guarded(x)
+    if bad.all():
+        return np.full(x.shape[0], np.nan)
+    result = _ess_of_split(split_chains(safe))
+    result[bad] = np.nan
+    return result
 
 
 def bulk_ess_batch(x: np.ndarray) -> np.ndarray:
     """ESS of the rank-normalised split chains, robust to heavy tails."""
-    bad = undefined_mask(x)
-    split = split_chains(np.where(bad[:, None, None], 0.0, x))
-    ess = _ess_of_split(rank_normalize(split))
-    ess[bad] = np.nan
-    return ess
+    bad, safe = _guarded(x)
+    if bad.all():
+        return np.full(x.shape[0], np.nan)
+    result = _ess_of_split(rank_normalize(split_chains(safe)))
+    result[bad] = np.nan
+    return result
 
 
 def quantile_ess_batch(x: np.ndarray, p: float) -> np.ndarray:
@@ -48,9 +69,10 @@ def quantile_ess_batch(x: np.ndarray, p: float) -> np.ndarray:
 
     An indicator that is constant (a quantile at the edge of a discrete support) has no ESS.
     """
-    bad = undefined_mask(x)
+    bad, safe = _guarded(x)
     q = x.shape[0]
-    safe = np.where(bad[:, None, None], 0.0, x)
+    if bad.all():
+        return np.full(q, np.nan)
     cut = np.quantile(safe.reshape(q, -1), p, axis=1)
     indicator = (safe <= cut[:, None, None]).astype(np.float64)
     result = _ess_of_split(split_chains(indicator))

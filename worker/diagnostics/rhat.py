@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 
 from worker.diagnostics.ranks import fold, rank_normalize
-from worker.diagnostics.splitting import as_batch, split_chains, undefined_mask
+from worker.diagnostics.splitting import as_batch, neutralize, split_chains, undefined_mask
 
 
 def _rhat_of_split(split: np.ndarray) -> np.ndarray:
@@ -22,8 +22,11 @@ def _rhat_of_split(split: np.ndarray) -> np.ndarray:
 
 def classic_split_rhat_batch(x: np.ndarray) -> np.ndarray:
     """Split R-hat on the raw draws, without ranks or folding (BDA3 section 11.4)."""
-    result = _rhat_of_split(split_chains(x))
-    result[undefined_mask(x)] = np.nan
+    bad = undefined_mask(x)
+    if bad.all():
+        return np.full(x.shape[0], np.nan)
+    result = _rhat_of_split(split_chains(neutralize(x, bad)))
+    result[bad] = np.nan
     return result
 
 
@@ -34,8 +37,9 @@ def split_rhat_batch(x: np.ndarray) -> np.ndarray:
     in location but not in scale visible (Vehtari et al. 2021, section 4.2).
     """
     bad = undefined_mask(x)
-    safe = np.where(bad[:, None, None], 0.0, x)
-    split = split_chains(safe)
+    if bad.all():
+        return np.full(x.shape[0], np.nan)
+    split = split_chains(neutralize(x, bad))
     bulk = _rhat_of_split(rank_normalize(split))
     tail = _rhat_of_split(rank_normalize(fold(split)))
     result = np.maximum(bulk, tail)

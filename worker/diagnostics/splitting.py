@@ -36,7 +36,7 @@ def split_chains(x: np.ndarray) -> np.ndarray:
     return np.concatenate([first, second], axis=1).reshape(q, 2 * m, half)
 
 
-def undefined_mask(x: np.ndarray) -> np.ndarray:
+def undefined_mask(x: np.ndarray, min_draws: int = MIN_DRAWS_PER_CHAIN) -> np.ndarray:
     """Per quantity, True where R-hat and ESS cannot be computed.
 
     That is: any draw not finite, too few draws per chain, or every draw of every chain the same
@@ -44,10 +44,20 @@ def undefined_mask(x: np.ndarray) -> np.ndarray:
     Cholesky factor of a correlation matrix, carries no information about mixing).
     """
     q, _, n = x.shape
-    if n < MIN_DRAWS_PER_CHAIN:
+    if n < min_draws:
         return np.ones(q, dtype=bool)
     flat = x.reshape(q, -1)
     finite = np.isfinite(flat).all(axis=1)
     with np.errstate(invalid="ignore"):
-        constant = np.nanmax(flat, axis=1) == np.nanmin(flat, axis=1)
+        constant = flat.max(axis=1) == flat.min(axis=1)
     return ~finite | constant
+
+
+def neutralize(x: np.ndarray, bad: np.ndarray) -> np.ndarray:
+    """Replace the quantities flagged ``bad`` by a harmless varying series so the arithmetic on
+    the whole batch stays clean; callers overwrite their results with NaN afterwards."""
+    if not bad.any():
+        return x
+    _, m, n = x.shape
+    filler = (np.arange(m * n, dtype=np.float64) % 7.0).reshape(m, n)
+    return np.where(bad[:, None, None], filler, x)

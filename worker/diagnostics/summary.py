@@ -35,7 +35,7 @@ def _notes(block: np.ndarray) -> list[str | None]:
     flat = block.reshape(q, -1)
     finite = np.isfinite(flat).all(axis=1)
     with np.errstate(invalid="ignore"):
-        constant = np.nanmax(flat, axis=1) == np.nanmin(flat, axis=1)
+        constant = flat.max(axis=1) == flat.min(axis=1)
     notes: list[str | None] = [NOTE_TOO_FEW_DRAWS if n < MIN_DRAWS_PER_CHAIN else None] * q
     for i in np.flatnonzero(finite & constant):
         notes[i] = NOTE_CONSTANT
