@@ -18,7 +18,7 @@ venv: $(STAMP)
 # then pytest starts private instances on free ports and stops them at the end.
 test: $(STAMP)
 	bash tests/harness/install_services.sh
-	$(PY) -m pytest -q -p no:cacheprovider tests
+	$(PY) -m pytest -q -ra --durations=15 -p no:cacheprovider tests
 
 lint: $(STAMP)
 	$(VENV)/bin/ruff check service worker schemas tests

@@ -33,6 +33,15 @@ def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
             item.add_marker(pytest.mark.services)
 
 
+def pytest_sessionfinish(session: pytest.Session, exitstatus: int) -> None:
+    # A run in which nothing passed (everything skipped or deselected) must not look green in CI;
+    # pytest itself already fails a run that collected nothing.
+    reporter = session.config.pluginmanager.get_plugin("terminalreporter")
+    passed = len(reporter.stats.get("passed", [])) if reporter is not None else 1
+    if exitstatus == pytest.ExitCode.OK and passed == 0:
+        session.exitstatus = pytest.ExitCode.NO_TESTS_COLLECTED
+
+
 @pytest.fixture(scope="session")
 def redis_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[RedisServer]:
     """A private redis-server (no persistence) for the whole session; `.url`, `.port`,
