@@ -21,24 +21,7 @@ import sqlalchemy as sa
 
 from service.local_stack import RedisServer, free_port, start_child
 from tests.harness.postgres import PostgresServer
-
-
-def pid_gone(pid: int, within: float = 10.0) -> bool:
-    deadline = time.monotonic() + within
-    while time.monotonic() < deadline:
-        try:
-            os.kill(pid, 0)
-        except ProcessLookupError:
-            return True
-        # A zombie still answers kill(0); it has exited, which is what matters here.
-        try:
-            state = Path(f"/proc/{pid}/stat").read_text().split(")")[-1].split()[0]
-            if state == "Z":
-                return True
-        except OSError:
-            return True
-        time.sleep(0.05)
-    return False
+from tests.harness.processes import pid_gone
 
 
 def test_redis_answers_ping_and_stores(redis_server: RedisServer) -> None:
