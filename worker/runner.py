@@ -1,0 +1,428 @@
+"""The engine's in-process interface: a submission body in; chains, a summary and a verdict out.
+
+What the service, the worker tasks, the command line and the benchmarks call. A submission body
+has the members ``model`` (the spec), ``data``, ``sampler`` (settings), ``checks`` (verdict
+thresholds) and ``labels``. Everything a chain does is fixed by the body once its seed is
+recorded, so a chain can run in any process, be resumed from a snapshot, and give the same draws.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import secrets
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
+from worker.problems import InvalidSubmission, Problem
+from worker.samplers import Chain, SamplerSettings
+from worker.samplers.chain import sampling_sequence
+from worker.samplers.settings import INITIALISATIONS, METHODS, METRICS
+
+DEFAULT_CHAINS = 4
+DEFAULT_MAX_CHAINS = 16
+DEFAULT_MAX_DRAWS = 100_000
+MAX_SEED = 2**63 - 1  # seeds travel through JSON and SQL as signed 64-bit integers
+MAX_TREE_DEPTH_LIMIT = 30
+TOP_LEVEL_MEMBERS = ("model", "data", "sampler", "checks", "labels")
+# settings of the runner itself, beside those of one chain (SamplerSettings)
+JOB_SETTINGS = ("chains", "seed", "initial_values")
+CHAIN_SETTINGS = tuple(f.name for f in dataclasses.fields(SamplerSettings))
+GENERATED_CHILD = 1  # DEVELOPERS.md: child 1 of a chain's sequence drives generated quantities
+
+ProgressCallback = Callable[[str, int, int], None]
+
+
+# ---- checking a submission -------------------------------------------------------------------
+
+
+def _is_integer(value: Any) -> bool:
+    return isinstance(value, int) and not isinstance(value, bool)
+
+
+def _is_number(value: Any) -> bool:
+    return isinstance(value, int | float) and not isinstance(value, bool)
+
+
+def _integer_problem(value: Any, low: int, high: int, what: str) -> str | None:
+    if not _is_integer(value):
+        return f"The {what} must be a whole number, got {value!r}."
+    if not low <= value <= high:
+        return f"The {what} must be between {low} and {high}, got {value}."
+    return None
+
+
+def _positive_problem(value: Any, what: str) -> str | None:
+    if not (_is_number(value) and math.isfinite(value) and value > 0):
+        return f"The {what} must be a positive finite number, got {value!r}."
+    return None
+
+
+def _choice_problem(value: Any, choices: tuple[str, ...], what: str) -> str | None:
+    if value not in choices:
+        return f"The {what} must be one of {', '.join(choices)}, got {value!r}."
+    return None
+
+
+def _acceptance_problem(value: Any) -> str | None:
+    if value is None or (_is_number(value) and 0.0 < value < 1.0):
+        return None
+    return f"The target acceptance must be strictly between 0 and 1 (or null), got {value!r}."
+
+
+def _flag_problem(value: Any) -> str | None:
+    return None if isinstance(value, bool) else f"The jitter must be true or false, got {value!r}."
+
+
+def sampler_problems(
+    sampler: Any, max_chains: int = DEFAULT_MAX_CHAINS, max_draws: int = DEFAULT_MAX_DRAWS
+) -> list[Problem]:
+    """Every problem with the ``sampler`` member of a submission, with pointers under /sampler."""
+    if sampler is None:
+        return []
+    if not isinstance(sampler, dict):
+        return [Problem("/sampler", "The sampler settings must be an object.")]
+    checks: dict[str, Callable[[Any], str | None]] = {
+        "method": lambda v: _choice_problem(v, METHODS, "method"),
+        "warmup_iterations": lambda v: _integer_problem(v, 0, max_draws, "number of warm-up "
+                                                        "iterations"),
+        "draws": lambda v: _integer_problem(v, 1, max_draws, "number of draws per chain"),
+        "chains": lambda v: _integer_problem(v, 1, max_chains, "number of chains"),
+        "seed": lambda v: _integer_problem(v, 0, MAX_SEED, "seed"),
+        "target_acceptance": _acceptance_problem,
+        "max_tree_depth": lambda v: _integer_problem(v, 1, MAX_TREE_DEPTH_LIMIT, "maximum tree "
+                                                     "depth"),
+        "metric": lambda v: _choice_problem(v, METRICS, "metric"),
+        "integration_time": lambda v: _positive_problem(v, "integration time"),
+        "jitter": _flag_problem,
+        "divergence_threshold": lambda v: _positive_problem(v, "divergence threshold"),
+        "initialisation": lambda v: _choice_problem(v, INITIALISATIONS, "initialisation"),
+        "init_radius": lambda v: _positive_problem(v, "initialisation radius"),
+        "initial_values": lambda v: None,  # checked against the model below
+    }  # fmt: skip
+    problems = []
+    for name, value in sampler.items():
+        where = f"/sampler/{_escape(name)}"
+        if name not in checks:
+            known = ", ".join(sorted(checks))
+            problems.append(Problem(where, f"Unknown sampler setting '{name}'; known: {known}."))
+            continue
+        message = checks[name](value)
+        if message:
+            problems.append(Problem(where, message))
+    problems.extend(_initial_values_shape_problems(sampler))
+    return problems
+
+
+def _escape(token: str) -> str:
+    return str(token).replace("~", "~0").replace("/", "~1")
+
+
+def _initial_values_shape_problems(sampler: dict) -> list[Problem]:
+    values = sampler.get("initial_values")
+    chains = sampler.get("chains", DEFAULT_CHAINS)
+    if values is None:
+        if sampler.get("initialisation") == "given":
+            return [
+                Problem(
+                    "/sampler/initial_values",
+                    "Initialisation 'given' needs initial values: an object of unknown names to "
+                    "values, or a list of such objects, one per chain.",
+                )
+            ]
+        return []
+    if isinstance(values, dict):
+        return []
+    if isinstance(values, list):
+        problems = [
+            Problem(
+                f"/sampler/initial_values/{i}", "Each chain's initial values must be an object."
+            )
+            for i, item in enumerate(values)
+            if not isinstance(item, dict)
+        ]
+        if _is_integer(chains) and len(values) != chains:
+            problems.append(
+                Problem(
+                    "/sampler/initial_values",
+                    f"There are {len(values)} sets of initial values for {chains} chains.",
+                )
+            )
+        return problems
+    return [
+        Problem(
+            "/sampler/initial_values",
+            "The initial values must be an object of unknown names to values, or a list of such "
+            "objects, one per chain.",
+        )
+    ]
+
+
+def _initial_values_for(sampler: dict, chain_index: int) -> dict | None:
+    values = sampler.get("initial_values")
+    if values is None:
+        return None
+    return values[chain_index] if isinstance(values, list) else values
+
+
+def _initial_value_problems(body: dict) -> list[Problem]:
+    """Initial values the compiled model cannot take (unknown names, wrong shapes, bounds)."""
+    from worker.modeling import compile_model
+
+    sampler = body.get("sampler") or {}
+    values = sampler.get("initial_values")
+    if values is None:
+        return []
+    model = compile_model(body["model"], body.get("data") or {})
+    sets = values if isinstance(values, list) else [values]
+    problems = []
+    for i, item in enumerate(sets):
+        where = "/sampler/initial_values" + (f"/{i}" if isinstance(values, list) else "")
+        try:
+            point = np.asarray(model.unconstrain(item), dtype=np.float64)
+        except InvalidSubmission as error:
+            problems.extend(
+                Problem(where, f"{p.message} (at {p.pointer})" if p.pointer else p.message)
+                for p in error.problems
+            )
+            continue
+        except (ValueError, KeyError, TypeError, IndexError) as error:
+            problems.append(Problem(where, f"These initial values cannot be used: {error}."))
+            continue
+        if point.shape != (model.dimension,) or not np.isfinite(point).all():
+            problems.append(
+                Problem(
+                    where, "These initial values lie outside the unknowns' bounds or structure."
+                )
+            )
+    return problems
+
+
+def check_submission(
+    body: Any, max_chains: int = DEFAULT_MAX_CHAINS, max_draws: int = DEFAULT_MAX_DRAWS
+) -> list[Problem]:
+    """Every problem with a submission: model and data, sampler settings, verdict thresholds.
+
+    ``max_chains`` and ``max_draws`` are the deployment's limits (the service passes its
+    configured values); ``max_draws`` bounds the draws and the warm-up iterations of each chain.
+    """
+    from worker.modeling import check_model
+
+    if not isinstance(body, dict):
+        return [Problem("", "The submission must be a JSON object.")]
+    problems = [
+        Problem(f"/{_escape(name)}", f"Unknown member '{name}' of the submission.")
+        for name in body
+        if name not in TOP_LEVEL_MEMBERS
+    ]
+    if "model" not in body:
+        problems.append(Problem("/model", "The submission has no model."))
+    else:
+        problems.extend(check_model(body["model"], body.get("data") or {}))
+    if body.get("data") is not None and not isinstance(body["data"], dict):
+        problems.append(Problem("/data", "The data must be an object of input names to values."))
+    sampler_found = sampler_problems(body.get("sampler"), max_chains, max_draws)
+    problems.extend(sampler_found)
+    problems.extend(check_thresholds(body.get("checks")))
+    if not problems:
+        problems.extend(_initial_value_problems(body))
+    return problems
+
+
+# ---- settings and seeds ----------------------------------------------------------------------
+
+
+def resolve_sampler(body_sampler: dict | None) -> dict:
+    """Every setting with its default filled in; a missing seed is drawn from OS entropy.
+
+    The caller records the returned seed with the job: it is what makes the job reproducible.
+    ``target_acceptance`` stays None when not given, meaning the method's own default (0.8 for
+    NUTS and HMC; 0.234, or 0.44 in one dimension, for Metropolis), which depends on the model's
+    dimension. ``initial_values`` stays None when not given.
+    """
+    given = dict(body_sampler or {})
+    resolved: dict[str, Any] = SamplerSettings().as_dict()
+    resolved.update({"chains": DEFAULT_CHAINS, "seed": None, "initial_values": None})
+    resolved.update(given)
+    if resolved["seed"] is None:
+        resolved["seed"] = secrets.randbits(63)
+    return resolved
+
+
+def chain_seeds(seed: int, chains: int) -> list[np.random.SeedSequence]:
+    """One independent seed sequence per chain: ``SeedSequence(seed).spawn(chains)``."""
+    return np.random.SeedSequence(seed).spawn(chains)
+
+
+def _chain_settings(resolved: dict) -> SamplerSettings:
+    return SamplerSettings(**{name: resolved[name] for name in CHAIN_SETTINGS})
+
+
+def _resolved_with_seed(body: dict) -> dict:
+    sampler = body.get("sampler") or {}
+    if sampler.get("seed") is None:
+        raise ValueError(
+            "the submission has no recorded seed; resolve it with resolve_sampler and store it "
+            "with the job before starting chains, so every chain and every resume agree"
+        )
+    return resolve_sampler(sampler)
+
+
+# ---- one chain -------------------------------------------------------------------------------
+
+
+@dataclass
+class ChainResult:
+    """One chain's reported draws and per-draw sampler statistics (sampling phase only).
+
+    ``values`` is (draws, quantities) float64 with columns ``names`` (unknowns, derived,
+    generated); ``stats`` as the sampler records them; ``adapted`` the final step size and metric
+    (or proposal); ``completed`` False when the chain was stopped early.
+    """
+
+    names: list[str]
+    values: np.ndarray
+    stats: dict[str, np.ndarray]
+    adapted: dict
+    completed: bool
+    warmup_stats: dict[str, np.ndarray] = field(default_factory=dict)
+
+
+class ChainRun:
+    """A compiled, initialised chain, ready to run (or to continue after a resume)."""
+
+    def __init__(self, model: Any, chain: Chain, seed: np.random.SeedSequence):
+        self.model = model
+        self.chain = chain
+        self.seed = seed
+
+    def run(
+        self,
+        progress: ProgressCallback | None = None,
+        should_stop: Callable[[], bool] | None = None,
+        checkpoint: Callable[[bytes], None] | None = None,
+        checkpoint_every: int = 100,
+    ) -> ChainResult:
+        """Run the chain to its end (or until ``should_stop()``), then report its draws."""
+        output = self.chain.run(
+            progress=progress,
+            should_stop=should_stop,
+            checkpoint=checkpoint,
+            checkpoint_every=checkpoint_every,
+        )
+        return ChainResult(
+            names=list(self.model.quantity_names),
+            values=self.report(output.draws),
+            stats=output.stats,
+            adapted=output.adapted,
+            completed=output.completed,
+            warmup_stats=output.warmup_stats,
+        )
+
+    def report(self, draws: np.ndarray) -> np.ndarray:
+        """Map unconstrained draws to reported rows, generated quantities from the chain's child 1.
+
+        A fresh generator from the same child for every call means the rows depend only on the
+        draws, never on whether the chain was interrupted and resumed on the way.
+        """
+        rng = np.random.default_rng(sampling_sequence(self.seed, GENERATED_CHILD))
+        width = len(self.model.quantity_names)
+        rows = np.empty((draws.shape[0], width), dtype=np.float64)
+        # the compiled model reports one draw at a time (generated quantities are random per draw)
+        for i, u in enumerate(draws):
+            rows[i] = self.model.report(u, rng)
+        return rows
+
+    def snapshot(self) -> bytes:
+        """The chain's complete state; ``resume_chain`` continues from it exactly."""
+        return self.chain.snapshot()
+
+
+def _compile(body: dict) -> Any:
+    from worker.modeling import compile_model
+
+    return compile_model(body["model"], body.get("data") or {})
+
+
+def start_chain(body: dict, chain_index: int) -> ChainRun:
+    """Compile the model and initialise chain ``chain_index`` (0-based) of a checked submission."""
+    resolved = _resolved_with_seed(body)
+    if not 0 <= chain_index < resolved["chains"]:
+        raise ValueError(f"chain index {chain_index} outside 0..{resolved['chains'] - 1}")
+    model = _compile(body)
+    seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
+    values = _initial_values_for(resolved, chain_index)
+    point = None if values is None else np.asarray(model.unconstrain(values), dtype=np.float64)
+    chain = Chain(model, _chain_settings(resolved), seed, initial_point=point)
+    return ChainRun(model, chain, seed)
+
+
+def resume_chain(body: dict, chain_index: int, blob: bytes) -> ChainRun:
+    """Continue chain ``chain_index`` from a snapshot taken by ``ChainRun.snapshot`` or a
+    checkpoint; refuses a snapshot made with other settings than the body's."""
+    resolved = _resolved_with_seed(body)
+    model = _compile(body)
+    seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
+    chain = Chain.restore(model, blob)
+    if chain.settings != _chain_settings(resolved):
+        raise ValueError("the snapshot was made with different sampler settings than this job's")
+    return ChainRun(model, chain, seed)
+
+
+# ---- the whole job ---------------------------------------------------------------------------
+
+
+def finish_job(body: dict, results: list[ChainResult]) -> dict:
+    """Summary, sampler report and verdict of a job's completed chains, all JSON-able.
+
+    Returns ``{"summary": [per-quantity records], "sampler": report, "verdict": verdict}``; the
+    sampler report adds each chain's adapted step size to ``sampler_checks``' counts.
+    """
+    if not results:
+        raise ValueError("a job needs at least one chain to finish")
+    if not all(r.completed for r in results):
+        raise ValueError("every chain must be complete before the job is summarised")
+    lengths = {np.asarray(r.values).shape for r in results}
+    if len(lengths) != 1:
+        raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
+    resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
+    draws = np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
+    summary = summarize(draws, list(results[0].names))
+    depth = resolved["max_tree_depth"] if resolved["method"] == "nuts" else None
+    report = sampler_checks([dict(r.stats) for r in results], depth)
+    report["step_size_per_chain"] = [
+        float(r.adapted["step_size"]) if "step_size" in r.adapted else None for r in results
+    ]
+    return {
+        "summary": summary,
+        "sampler": report,
+        "verdict": verdict(summary, report, body.get("checks")),
+    }
+
+
+def run_in_process(body: dict) -> dict:
+    """Check, then run every chain here one after another, then finish the job.
+
+    Returns ``finish_job``'s members plus ``settings`` (resolved, with the seed used), ``names``,
+    ``draws`` (chains, draws, quantities) float64, ``stats`` (one dict per chain) and ``adapted``.
+    Raises InvalidSubmission with every problem when the body is not valid.
+    """
+    problems = check_submission(body)
+    if problems:
+        raise InvalidSubmission(problems)
+    resolved = resolve_sampler(body.get("sampler"))
+    job = {**body, "sampler": {k: v for k, v in resolved.items() if v is not None}}
+    results = [start_chain(job, i).run() for i in range(resolved["chains"])]
+    outcome = finish_job(job, results)
+    return {
+        **outcome,
+        "settings": resolved,
+        "names": list(results[0].names),
+        "draws": np.stack([r.values for r in results]),
+        "stats": [r.stats for r in results],
+        "adapted": [r.adapted for r in results],
+    }
