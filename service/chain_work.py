@@ -1,0 +1,371 @@
+"""One chain's life inside a worker: lease, run through the engine, progress, results, hand-off.
+
+A chain row is run by whoever holds its lease. The lease is taken with a conditional UPDATE that
+only one process can win; its token fences every later write, so a redelivered duplicate of the
+chain task (the broker's visibility timeout, a lost acknowledgement) is detected and dropped, and a
+worker that lost its lease cannot overwrite the new holder's results. A background thread writes
+progress at a bounded rate, renews the lease, and reads the job's cancel flag, so the engine's
+callbacks never wait on the database.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import socket
+import threading
+import time
+import uuid
+from dataclasses import dataclass, field
+from datetime import timedelta
+from typing import Any
+
+import numpy as np
+from sqlalchemy import and_, delete, exists, func, or_, select, update
+
+from service import events
+from service.dispatch import send_finish_task
+from service.runtime import Runtime
+from service.store.arrays import ENCODING, encode_array
+from service.store.engine import transaction
+from service.store.models import TERMINAL_STATES, Chain, ChainArray, Job, utc_now
+from service.versions import software_versions
+
+log = logging.getLogger(__name__)
+
+
+@dataclass
+class Lease:
+    chain_id: int
+    job_id: str
+    chain_index: int
+    token: str
+    attempt: int
+    checkpoint: bytes | None
+    body: dict[str, Any]
+
+
+def take_lease(runtime: Runtime, job_id: str, chain_index: int) -> Lease | None:
+    """The chain's lease for this process, or None when another delivery holds or finished it."""
+    settings = runtime.settings
+    token = uuid.uuid4().hex
+    now = utc_now()
+    host, pid = socket.gethostname(), os.getpid()
+    with transaction(runtime.sessions) as session:
+        job = session.scalars(select(Job).where(Job.id == job_id)).one_or_none()
+        if job is None:
+            log.warning("chain task for unknown job %s dropped", job_id)
+            return None
+        if job.cancel_requested_at is not None:
+            _cancel_queued_chain(session, job_id, chain_index)
+            return None
+        takeable = or_(
+            Chain.state == "queued",
+            and_(Chain.state == "running", Chain.lease_expires_at < now),
+        )
+        taken = session.execute(
+            update(Chain)
+            .where(Chain.job_id == job_id, Chain.chain_index == chain_index, takeable)
+            .values(
+                state="running",
+                lease_token=token,
+                lease_expires_at=now + timedelta(seconds=settings.lease_seconds),
+                attempts=Chain.attempts + 1,
+                worker_host=host,
+                worker_pid=pid,
+                worker_software=software_versions(),
+                started_at=func.coalesce(Chain.started_at, now),
+                updated_at=now,
+            )
+            .execution_options(synchronize_session=False)
+        ).rowcount
+        chain = session.scalars(
+            select(Chain).where(Chain.job_id == job_id, Chain.chain_index == chain_index)
+        ).one()
+        if taken != 1:
+            if chain.attempts > 0:
+                session.execute(
+                    update(Chain)
+                    .where(Chain.id == chain.id)
+                    .values(duplicate_deliveries=Chain.duplicate_deliveries + 1)
+                    .execution_options(synchronize_session=False)
+                )
+                events.record(
+                    session, job_id, "duplicate_delivery_dropped", chain.state, chain_index,
+                    {"worker_host": host, "worker_pid": pid},
+                )
+            return None
+        detail = {"attempt": chain.attempts, "worker_host": host, "worker_pid": pid}
+        if chain.checkpoint is not None:
+            detail["resumed_from_iteration"] = chain.checkpoint_iteration
+        events.record(session, job_id, "chain_state", "running", chain_index, detail)
+        started = session.execute(
+            update(Job)
+            .where(Job.id == job_id, Job.state == "queued")
+            .values(state="running", started_at=now)
+            .execution_options(synchronize_session=False)
+        ).rowcount
+        if started == 1:
+            events.record(session, job_id, "job_state", "running")
+        return Lease(
+            chain.id, job_id, chain_index, token, chain.attempts, chain.checkpoint, job.body
+        )
+
+
+def _cancel_queued_chain(session: Any, job_id: str, chain_index: int) -> None:
+    done = session.execute(
+        update(Chain)
+        .where(
+            Chain.job_id == job_id, Chain.chain_index == chain_index, Chain.state == "queued"
+        )
+        .values(state="cancelled", finished_at=utc_now(), updated_at=utc_now())
+        .execution_options(synchronize_session=False)
+    ).rowcount
+    if done:
+        events.record(session, job_id, "chain_state", "cancelled", chain_index)
+
+
+@dataclass
+class ChainMonitor:
+    """Holds the latest progress from the engine and, on its own thread, writes it out."""
+
+    runtime: Runtime
+    lease: Lease
+    phase: str | None = None
+    iteration: int = 0
+    divergences: int = 0
+    stop_reason: str | None = None
+    _checkpoint: tuple[bytes, int] | None = None
+    _written_checkpoint_iteration: int = -1
+    _stop_flag: threading.Event = field(default_factory=threading.Event)
+    _closing: threading.Event = field(default_factory=threading.Event)
+    _thread: threading.Thread | None = None
+    _started: float = field(default_factory=time.monotonic)
+
+    # --- the engine's callbacks: cheap, no I/O -----------------------------------------------
+    def progress(self, phase: str, iteration: int, divergences: int) -> None:
+        self.phase, self.iteration, self.divergences = phase, int(iteration), int(divergences)
+
+    def should_stop(self) -> bool:
+        return self._stop_flag.is_set()
+
+    def checkpoint(self, blob: bytes) -> None:
+        self._checkpoint = (bytes(blob), self.iteration)
+
+    # --- the writer thread ---------------------------------------------------------------------
+    def start(self) -> ChainMonitor:
+        self._thread = threading.Thread(target=self._loop, name="chain-progress", daemon=True)
+        self._thread.start()
+        return self
+
+    def close(self) -> None:
+        self._closing.set()
+        if self._thread is not None:
+            self._thread.join(timeout=30)
+
+    def _stop(self, reason: str) -> None:
+        if self.stop_reason is None:
+            self.stop_reason = reason
+        self._stop_flag.set()
+
+    def _loop(self) -> None:
+        interval = self.runtime.settings.progress_interval
+        while not self._closing.wait(interval):
+            try:
+                self.flush()
+            except Exception:  # a database hiccup must not kill the chain; the lease has slack
+                log.exception("progress write for job %s failed", self.lease.job_id)
+
+    def flush(self) -> None:
+        settings = self.runtime.settings
+        now = utc_now()
+        values: dict[str, Any] = {
+            "phase": self.phase,
+            "iteration": self.iteration,
+            "divergences": self.divergences,
+            "updated_at": now,
+            "lease_expires_at": now + timedelta(seconds=settings.lease_seconds),
+        }
+        pending = self._checkpoint
+        if pending is not None and pending[1] != self._written_checkpoint_iteration:
+            values.update(checkpoint=pending[0], checkpoint_iteration=pending[1], checkpoint_at=now)
+        with transaction(self.runtime.sessions) as session:
+            held = session.execute(
+                update(Chain)
+                .where(Chain.id == self.lease.chain_id, Chain.lease_token == self.lease.token)
+                .values(**values)
+                .execution_options(synchronize_session=False)
+            ).rowcount
+            cancelled = session.scalar(
+                select(Job.cancel_requested_at).where(Job.id == self.lease.job_id)
+            )
+        if pending is not None and held:
+            self._written_checkpoint_iteration = pending[1]
+        if not held:
+            self._stop("lease_lost")
+        elif cancelled is not None:
+            self._stop("cancelled")
+        elif time.monotonic() - self._started > settings.chain_time_limit:
+            self._stop("time_limit")
+
+
+def run_chain(runtime: Runtime, job_id: str, chain_index: int) -> str:
+    """Run one chain of a job if this delivery wins its lease; returns what happened."""
+    from worker import runner
+
+    lease = take_lease(runtime, job_id, chain_index)
+    if lease is None:
+        _resend_finish_if_due(runtime, job_id)
+        return "dropped"
+    monitor = ChainMonitor(runtime, lease).start()
+    try:
+        if lease.checkpoint is not None:
+            chain_run = runner.resume_chain(lease.body, chain_index, lease.checkpoint)
+        else:
+            chain_run = runner.start_chain(lease.body, chain_index)
+        result = chain_run.run(
+            progress=monitor.progress,
+            should_stop=monitor.should_stop,
+            checkpoint=monitor.checkpoint,
+        )
+    except Exception as error:
+        monitor.close()
+        log.exception("chain %s of job %s failed", chain_index + 1, job_id)
+        outcome = "failed"
+        ended = end_chain(runtime, lease, "failed", f"{type(error).__name__}: {error}")
+    else:
+        monitor.close()
+        if result.completed:
+            outcome = "succeeded"
+            ended = store_result(runtime, lease, result)
+        elif monitor.stop_reason == "lease_lost":
+            return "lease_lost"
+        elif monitor.stop_reason == "cancelled":
+            outcome = "cancelled"
+            ended = end_chain(runtime, lease, "cancelled", None)
+        elif monitor.stop_reason == "time_limit":
+            outcome = "failed"
+            limit = runtime.settings.chain_time_limit
+            reason = f"the chain ran past its time limit of {limit} s"
+            ended = end_chain(runtime, lease, "failed", reason)
+        else:
+            outcome = "failed"
+            ended = end_chain(runtime, lease, "failed", "the sampler stopped before the last draw")
+    if ended and claim_finish(runtime, job_id):
+        send_finish_task(runtime.celery, runtime.settings.queue, job_id)
+    return outcome if ended else "lease_lost"
+
+
+def end_chain(runtime: Runtime, lease: Lease, state: str, error: str | None) -> bool:
+    """Record a chain's end without results; False when the lease was lost meanwhile."""
+    now = utc_now()
+    with transaction(runtime.sessions) as session:
+        done = session.execute(
+            update(Chain)
+            .where(
+                Chain.id == lease.chain_id,
+                Chain.lease_token == lease.token,
+                Chain.state == "running",
+            )
+            .values(state=state, error=error, finished_at=now, updated_at=now)
+            .execution_options(synchronize_session=False)
+        ).rowcount
+        if done:
+            detail = {"error": error} if error else None
+            events.record(session, lease.job_id, "chain_state", state, lease.chain_index, detail)
+    return bool(done)
+
+
+def store_result(runtime: Runtime, lease: Lease, result: Any) -> bool:
+    """Store a finished chain's draws and statistics, only while this delivery holds the lease."""
+    draws = encode_array(np.asarray(result.values, dtype=np.float64))
+    stats = {name: encode_array(np.asarray(v)) for name, v in dict(result.stats).items()}
+    now = utc_now()
+    with transaction(runtime.sessions) as session:
+        done = session.execute(
+            update(Chain)
+            .where(
+                Chain.id == lease.chain_id,
+                Chain.lease_token == lease.token,
+                Chain.state == "running",
+            )
+            .values(
+                state="succeeded",
+                finished_at=now,
+                updated_at=now,
+                iteration=Chain.iterations_total,
+                adapted=_json_ready(result.adapted),
+                checkpoint=None,
+            )
+            .execution_options(synchronize_session=False)
+        ).rowcount
+        if not done:
+            return False
+        session.execute(delete(ChainArray).where(ChainArray.chain_id == lease.chain_id))
+        rows = [("draws", "draws", draws, list(result.names))]
+        rows += [("stat", name, encoded, None) for name, encoded in stats.items()]
+        session.add_all(
+            ChainArray(
+                chain_id=lease.chain_id,
+                kind=kind,
+                name=name,
+                columns=columns,
+                encoding=ENCODING,
+                dtype=encoded.dtype,
+                shape=encoded.shape,
+                sha256=encoded.sha256,
+                data=encoded.data,
+            )
+            for kind, name, encoded, columns in rows
+        )
+        events.record(
+            session, lease.job_id, "chain_state", "succeeded", lease.chain_index,
+            {"draws_sha256": draws.sha256},
+        )
+    return True
+
+
+def _json_ready(value: Any) -> Any:
+    """Arrays and numpy scalars in the engine's adapted settings, as plain JSON values."""
+    if isinstance(value, dict):
+        return {str(k): _json_ready(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_json_ready(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+def claim_finish(runtime: Runtime, job_id: str) -> bool:
+    """True for exactly one caller once every chain of the job has ended (an atomic UPDATE)."""
+    unfinished = exists().where(Chain.job_id == job_id, Chain.state.not_in(TERMINAL_STATES))
+    with transaction(runtime.sessions) as session:
+        claimed = session.execute(
+            update(Job)
+            .where(Job.id == job_id, Job.finish_enqueued_at.is_(None), ~unfinished)
+            .values(finish_enqueued_at=utc_now())
+            .execution_options(synchronize_session=False)
+        ).rowcount
+    return claimed == 1
+
+
+def _resend_finish_if_due(runtime: Runtime, job_id: str) -> None:
+    """After a dropped duplicate: if every chain ended but the job did not, queue the finish again.
+
+    Covers a worker that died between ending the last chain and queueing the finishing task; the
+    finishing task is safe to run more than once.
+    """
+    if claim_finish(runtime, job_id):
+        send_finish_task(runtime.celery, runtime.settings.queue, job_id)
+        return
+    with runtime.sessions() as session:
+        job_state = session.scalar(select(Job.state).where(Job.id == job_id))
+        pending = session.scalar(
+            select(func.count())
+            .select_from(Chain)
+            .where(Chain.job_id == job_id, Chain.state.not_in(TERMINAL_STATES))
+        )
+    if job_state is not None and job_state not in TERMINAL_STATES and pending == 0:
+        send_finish_task(runtime.celery, runtime.settings.queue, job_id)

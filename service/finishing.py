@@ -1,0 +1,94 @@
+"""The finishing step of a job: every chain has ended; summarise, judge, and close the job."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+from sqlalchemy import select, update
+
+from service import events
+from service.runtime import Runtime
+from service.store.arrays import decode_array
+from service.store.engine import transaction
+from service.store.models import TERMINAL_STATES, Chain, ChainArray, Job, utc_now
+from service.versions import software_versions
+
+log = logging.getLogger(__name__)
+
+
+def load_chain_result(runtime: Runtime, chain_id: int, adapted: dict | None) -> Any:
+    """A stored chain as the engine's ChainResult (checksums verified on the way out)."""
+    from worker.runner import ChainResult
+
+    with runtime.sessions() as session:
+        rows = session.scalars(select(ChainArray).where(ChainArray.chain_id == chain_id)).all()
+    draws = next(row for row in rows if row.kind == "draws")
+    stats = {
+        row.name: decode_array(row.data, row.sha256) for row in rows if row.kind == "stat"
+    }
+    return ChainResult(
+        names=list(draws.columns or []),
+        values=decode_array(draws.data, draws.sha256),
+        stats=stats,
+        adapted=adapted or {},
+        completed=True,
+    )
+
+
+def _close(runtime: Runtime, job_id: str, state: str, **values: Any) -> bool:
+    with transaction(runtime.sessions) as session:
+        done = session.execute(
+            update(Job)
+            .where(Job.id == job_id, Job.state.not_in(TERMINAL_STATES))
+            .values(state=state, finished_at=utc_now(), finish_software=software_versions(),
+                    **values)
+            .execution_options(synchronize_session=False)
+        ).rowcount
+        if done:
+            detail = {"error": values["error"]} if values.get("error") else None
+            events.record(session, job_id, "job_state", state, detail=detail)
+    return bool(done)
+
+
+def finish(runtime: Runtime, job_id: str) -> str:
+    """Close the job once all its chains have ended; safe to run more than once."""
+    from worker import runner
+
+    with runtime.sessions() as session:
+        job = session.scalars(select(Job).where(Job.id == job_id)).one_or_none()
+        chains = session.scalars(
+            select(Chain).where(Chain.job_id == job_id).order_by(Chain.chain_index)
+        ).all()
+    if job is None or job.state in TERMINAL_STATES:
+        return "nothing to do"
+    if any(chain.state not in TERMINAL_STATES for chain in chains):
+        return "chains still running"
+    if job.cancel_requested_at is not None:
+        _close(runtime, job_id, "cancelled")
+        return "cancelled"
+    failed = [chain for chain in chains if chain.state != "succeeded"]
+    if failed:
+        reasons = "; ".join(
+            f"chain {c.chain_index + 1} {c.state}: {c.error or 'no reason recorded'}"
+            for c in failed
+        )
+        _close(runtime, job_id, "failed", error=reasons)
+        return "failed"
+    try:
+        results = [load_chain_result(runtime, c.id, c.adapted) for c in chains]
+        outcome = runner.finish_job(job.body, results)
+    except Exception as error:
+        log.exception("finishing job %s failed", job_id)
+        _close(runtime, job_id, "failed", error=f"{type(error).__name__}: {error}")
+        return "failed"
+    diagnostics = {key: value for key, value in outcome.items() if key != "summary"}
+    _close(
+        runtime,
+        job_id,
+        "succeeded",
+        summary=outcome.get("summary"),
+        diagnostics=diagnostics,
+        verdict=outcome.get("verdict"),
+    )
+    return "succeeded"

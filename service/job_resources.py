@@ -1,0 +1,58 @@
+"""The job resource the API returns: state, each chain's progress, timings, verdict, links."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+from service.store.models import Chain, Job
+from service.timestamps import rfc3339
+
+
+def chain_resource(chain: Chain) -> dict[str, Any]:
+    return {
+        "chain": chain.chain_index + 1,
+        "state": chain.state,
+        "phase": chain.phase,
+        "iteration": chain.iteration,
+        "iterations_total": chain.iterations_total,
+        "divergences": chain.divergences,
+        "attempts": chain.attempts,
+        "started_at": rfc3339(chain.started_at),
+        "finished_at": rfc3339(chain.finished_at),
+        "updated_at": rfc3339(chain.updated_at),
+        "error": chain.error,
+    }
+
+
+def job_links(job_id: str) -> dict[str, str]:
+    base = f"/v1/jobs/{job_id}"
+    return {
+        "self": base,
+        "cancel": base + "/cancel",
+        "summary": base + "/summary",
+        "draws": base + "/draws",
+        "sampler_stats": base + "/sampler-stats",
+        "diagnostics": base + "/diagnostics",
+        "audit": base + "/audit",
+    }
+
+
+def job_resource(job: Job, chains: Sequence[Chain]) -> dict[str, Any]:
+    elapsed = None
+    if job.started_at is not None and job.finished_at is not None:
+        elapsed = max(0.0, (job.finished_at - job.started_at).total_seconds())
+    return {
+        "id": job.id,
+        "state": job.state,
+        "created_at": rfc3339(job.created_at),
+        "started_at": rfc3339(job.started_at),
+        "finished_at": rfc3339(job.finished_at),
+        "elapsed_seconds": elapsed,
+        "labels": dict(job.labels),
+        "cancel_requested": job.cancel_requested_at is not None,
+        "chains": [chain_resource(c) for c in sorted(chains, key=lambda c: c.chain_index)],
+        "verdict": job.verdict,
+        "error": job.error,
+        "links": job_links(job.id),
+    }

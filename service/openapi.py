@@ -1,0 +1,187 @@
+"""The OpenAPI 3.1 document, built from the JSON Schemas in schemas/.
+
+Each schema file becomes ``components/schemas/<file stem>``; references between files
+(``common.json#/$defs/x``) are rewritten to point inside the document.
+"""
+
+from __future__ import annotations
+
+import copy
+from functools import cache
+from typing import Any
+
+from service.schemas import BASE_URI, load_schemas
+
+PROBLEM = "application/problem+json"
+
+# (method, path) -> {status: response schema stem}; the tests check every answer against it.
+RESPONSES: dict[tuple[str, str], dict[int, str]] = {
+    ("post", "/v1/jobs"): {
+        200: "job",
+        202: "job",
+        400: "problem",
+        409: "problem",
+        413: "problem",
+        415: "problem",
+        422: "problem",
+        503: "problem",
+    },
+    ("get", "/v1/jobs"): {200: "job_list", 400: "problem"},
+    ("get", "/v1/jobs/{job_id}"): {200: "job", 404: "problem"},
+    ("post", "/v1/jobs/{job_id}/cancel"): {200: "job", 404: "problem"},
+    ("get", "/v1/jobs/{job_id}/summary"): {200: "summary", 404: "problem", 409: "problem"},
+    ("get", "/v1/jobs/{job_id}/draws"): {
+        200: "draws",
+        400: "problem",
+        404: "problem",
+        406: "problem",
+        409: "problem",
+    },
+    ("get", "/v1/jobs/{job_id}/sampler-stats"): {
+        200: "sampler_stats",
+        400: "problem",
+        404: "problem",
+        406: "problem",
+        409: "problem",
+    },
+    ("get", "/v1/jobs/{job_id}/diagnostics"): {200: "diagnostics", 404: "problem", 409: "problem"},
+    ("get", "/v1/jobs/{job_id}/audit"): {200: "audit", 404: "problem"},
+    ("get", "/v1/health/live"): {200: "health"},
+    ("get", "/v1/health/ready"): {200: "health", 503: "health"},
+}
+
+SUMMARIES = {
+    ("post", "/v1/jobs"): "Submit a job (validated whole before anything is stored or queued)",
+    ("get", "/v1/jobs"): "List jobs, newest first, filtered by state and labels",
+    ("get", "/v1/jobs/{job_id}"): "A job's state, per-chain progress, timings and verdict",
+    ("post", "/v1/jobs/{job_id}/cancel"): "Cancel a job; running chains stop within seconds",
+    ("get", "/v1/jobs/{job_id}/summary"): "Posterior summary of every quantity",
+    ("get", "/v1/jobs/{job_id}/draws"): "Posterior draws, streamed as JSON or CSV",
+    ("get", "/v1/jobs/{job_id}/sampler-stats"): "Per-draw sampler statistics, JSON or CSV",
+    ("get", "/v1/jobs/{job_id}/diagnostics"): "R-hat, ESS, the sampler report and the verdict",
+    ("get", "/v1/jobs/{job_id}/audit"): "Who, when, hashes, seeds, settings and software",
+    ("get", "/v1/health/live"): "The API process is up",
+    ("get", "/v1/health/ready"): "The database and the broker are reachable",
+}
+
+QUERY_PARAMETERS = {
+    ("get", "/v1/jobs"): [
+        ("state", "Comma-separated states to include."),
+        ("label", "key:value; repeat for several (all must match)."),
+        ("limit", "Page size."),
+        ("cursor", "next_cursor of the previous page."),
+    ],
+    ("get", "/v1/jobs/{job_id}/draws"): [
+        ("quantities", "Comma-separated quantity names (default all)."),
+        ("chains", "Comma-separated chain numbers from 1 (default all)."),
+        ("thin", "Keep every k-th draw."),
+        ("format", "json or csv (or send Accept: text/csv)."),
+    ],
+    ("get", "/v1/jobs/{job_id}/sampler-stats"): [
+        ("statistics", "Comma-separated statistic names (default all)."),
+        ("chains", "Comma-separated chain numbers from 1 (default all)."),
+        ("thin", "Keep every k-th draw."),
+        ("format", "json or csv (or send Accept: text/csv)."),
+    ],
+}
+
+
+def _rewrite_refs(node: Any, stem: str) -> Any:
+    if isinstance(node, dict):
+        out = {}
+        for key, value in node.items():
+            if key in ("$id", "$schema"):
+                continue
+            if key == "$ref" and isinstance(value, str):
+                out[key] = _component_ref(value, stem)
+            else:
+                out[key] = _rewrite_refs(value, stem)
+        return out
+    if isinstance(node, list):
+        return [_rewrite_refs(item, stem) for item in node]
+    return node
+
+
+def _component_ref(ref: str, stem: str) -> str:
+    ref = ref.removeprefix(BASE_URI)
+    target, _, fragment = ref.partition("#")
+    target_stem = target.removesuffix(".json") if target else stem
+    return f"#/components/schemas/{target_stem}{fragment}"
+
+
+def component_schemas() -> dict[str, Any]:
+    return {stem: _rewrite_refs(copy.deepcopy(s), stem) for stem, s in load_schemas().items()}
+
+
+def _operation(method: str, path: str) -> dict[str, Any]:
+    responses = {}
+    for status, stem in RESPONSES[(method, path)].items():
+        media = PROBLEM if stem == "problem" else "application/json"
+        content: dict[str, Any] = {media: {"schema": {"$ref": f"#/components/schemas/{stem}"}}}
+        if stem in ("draws", "sampler_stats"):
+            content["text/csv"] = {"schema": {"type": "string"}}
+        responses[str(status)] = {"description": _status_text(status), "content": content}
+    operation: dict[str, Any] = {"summary": SUMMARIES[(method, path)], "responses": responses}
+    parameters = []
+    if "{job_id}" in path:
+        parameters.append(
+            {
+                "name": "job_id",
+                "in": "path",
+                "required": True,
+                "schema": {"$ref": "#/components/schemas/common/$defs/job_id"},
+            }
+        )
+    parameters += [
+        {
+            "name": name,
+            "in": "query",
+            "required": False,
+            "description": text,
+            "schema": {"type": "string"},
+        }
+        for name, text in QUERY_PARAMETERS.get((method, path), [])
+    ]
+    if (method, path) == ("post", "/v1/jobs"):
+        parameters.append(
+            {
+                "name": "Idempotency-Key",
+                "in": "header",
+                "required": False,
+                "description": "Same key and body: the same job; same key, other body: 409.",
+                "schema": {"type": "string", "maxLength": 255},
+            }
+        )
+        operation["requestBody"] = {
+            "required": True,
+            "content": {
+                "application/json": {"schema": {"$ref": "#/components/schemas/submission"}}
+            },
+        }
+    if parameters:
+        operation["parameters"] = parameters
+    return operation
+
+
+def _status_text(status: int) -> str:
+    from http import HTTPStatus
+
+    return HTTPStatus(status).phrase
+
+
+@cache
+def openapi_document() -> dict[str, Any]:
+    paths: dict[str, dict[str, Any]] = {}
+    for method, path in RESPONSES:
+        paths.setdefault(path, {})[method] = _operation(method, path)
+    return {
+        "openapi": "3.1.0",
+        "info": {
+            "title": "drawyard",
+            "version": "1",
+            "description": "Bayesian posterior sampling as queued jobs.",
+        },
+        "jsonSchemaDialect": "https://json-schema.org/draft/2020-12/schema",
+        "paths": paths,
+        "components": {"schemas": component_schemas()},
+    }

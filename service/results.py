@@ -1,0 +1,209 @@
+"""Reading a finished job's results from the store: summary, diagnostics, arrays, audit record."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+from sqlalchemy import select
+
+from service.draw_export import Selection
+from service.job_queries import bad_parameter, load_job
+from service.problem_details import ApiProblem
+from service.runtime import Runtime
+from service.store.arrays import decode_array
+from service.store.models import Chain, ChainArray, Event, Job
+from service.timestamps import rfc3339
+
+DIAGNOSTIC_FIELDS = ("name", "rhat", "bulk_ess", "tail_ess", "note")
+
+
+def finished_job(runtime: Runtime, job_id: str) -> tuple[Job, list[Chain]]:
+    """The job if its results are readable; 409 (with Retry-After while it runs) otherwise."""
+    with runtime.sessions() as session:
+        job, chains = load_job(session, job_id)
+    if job.state != "succeeded":
+        headers = {"Retry-After": "2"} if job.state in ("queued", "running") else {}
+        raise ApiProblem(
+            409,
+            "results-not-available",
+            "Results are not available",
+            f"Job {job_id} is {job.state}; results exist only once it has succeeded.",
+            headers=headers,
+        )
+    return job, chains
+
+
+def summary_document(job: Job) -> dict[str, Any]:
+    return {"job": job.id, "quantities": job.summary or [], "verdict": job.verdict}
+
+
+def diagnostics_document(job: Job) -> dict[str, Any]:
+    diagnostics = dict(job.diagnostics or {})
+    sampler = diagnostics.get("sampler_report") or diagnostics.get("sampler") or {}
+    quantities = [
+        {key: record.get(key) for key in DIAGNOSTIC_FIELDS} for record in (job.summary or [])
+    ]
+    return {"job": job.id, "quantities": quantities, "sampler": sampler, "verdict": job.verdict}
+
+
+def _parse_list(raw: str | None) -> list[str]:
+    return [part.strip() for part in raw.split(",") if part.strip()] if raw else []
+
+
+def _arrays(runtime: Runtime, chain_id: int, kind: str) -> list[ChainArray]:
+    with runtime.sessions() as session:
+        return list(
+            session.scalars(
+                select(ChainArray)
+                .where(ChainArray.chain_id == chain_id, ChainArray.kind == kind)
+                .order_by(ChainArray.name)
+            ).all()
+        )
+
+
+def select_columns(
+    available: list[str], chains: list[Chain], quantities: str | None, chain_list: str | None,
+    thin: str | None, parameter: str = "quantities",
+) -> Selection:
+    """Which chains, columns and thinning a request asked for (1-based chain numbers)."""
+    wanted = _parse_list(quantities)
+    position = {name: i for i, name in enumerate(available)}
+    unknown = [name for name in wanted if name not in position]
+    if unknown:
+        raise bad_parameter(parameter, f"No quantity named {unknown[0]!r} in this job.")
+    columns = [position[name] for name in wanted] if wanted else list(range(len(available)))
+    numbers = _parse_list(chain_list)
+    try:
+        chosen = [int(n) for n in numbers]
+    except ValueError as error:
+        raise bad_parameter("chains", "Chains are numbers from 1, separated by commas.") from error
+    count = len(chains)
+    if any(n < 1 or n > count for n in chosen):
+        raise bad_parameter("chains", f"This job has chains 1 to {count}.")
+    try:
+        step = int(thin) if thin else 1
+    except ValueError as error:
+        raise bad_parameter("thin", "Thinning is a whole number of at least 1.") from error
+    if step < 1:
+        raise bad_parameter("thin", "Thinning is a whole number of at least 1.")
+    indices = [n - 1 for n in chosen] if chosen else list(range(count))
+    return Selection(indices, columns, [available[i] for i in columns], step)
+
+
+def draw_loader(runtime: Runtime, chains: list[Chain]) -> Callable[[int], np.ndarray]:
+    """Loads and decompresses one chain's draws when asked, so only one is in memory."""
+    by_index = {chain.chain_index: chain for chain in chains}
+
+    def load(chain_index: int) -> np.ndarray:
+        rows = _arrays(runtime, by_index[chain_index].id, "draws")
+        return decode_array(rows[0].data, rows[0].sha256)
+
+    return load
+
+
+def draw_columns(runtime: Runtime, chains: list[Chain]) -> list[str]:
+    with runtime.sessions() as session:
+        columns = session.scalar(
+            select(ChainArray.columns).where(
+                ChainArray.chain_id == chains[0].id, ChainArray.kind == "draws"
+            )
+        )
+    return list(columns or [])
+
+
+def stat_names(runtime: Runtime, chains: list[Chain]) -> list[str]:
+    with runtime.sessions() as session:
+        names = session.scalars(
+            select(ChainArray.name)
+            .where(ChainArray.chain_id == chains[0].id, ChainArray.kind == "stat")
+            .order_by(ChainArray.name)
+        ).all()
+    return list(names)
+
+
+def stat_loader(runtime: Runtime, chains: list[Chain], names: list[str]) -> Callable:
+    """One chain's statistics as a float64 matrix (columns in ``names`` order; booleans 0/1)."""
+    by_index = {chain.chain_index: chain for chain in chains}
+
+    def load(chain_index: int) -> np.ndarray:
+        rows = {row.name: row for row in _arrays(runtime, by_index[chain_index].id, "stat")}
+        columns = [
+            np.asarray(decode_array(rows[n].data, rows[n].sha256), dtype=np.float64).reshape(-1)
+            for n in names
+        ]
+        return np.column_stack(columns) if columns else np.zeros((0, 0))
+
+    return load
+
+
+def _seed_records(seed: int, count: int) -> list[dict[str, Any]]:
+    from worker import runner
+
+    return [
+        {"chain": i + 1, "entropy": int(s.entropy), "spawn_key": [int(k) for k in s.spawn_key]}
+        for i, s in enumerate(runner.chain_seeds(seed, count))
+    ]
+
+
+def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
+    with runtime.sessions() as session:
+        job, chains = load_job(session, job_id)
+        log = session.scalars(select(Event).where(Event.job_id == job_id).order_by(Event.id)).all()
+        arrays = session.execute(
+            select(ChainArray.chain_id, ChainArray.kind, ChainArray.name, ChainArray.sha256,
+                   ChainArray.shape)
+            .where(ChainArray.chain_id.in_([c.id for c in chains]))
+        ).all()
+    draws = {row.chain_id: row for row in arrays if row.kind == "draws"}
+    stats: dict[int, dict[str, str]] = {}
+    for row in arrays:
+        if row.kind == "stat":
+            stats.setdefault(row.chain_id, {})[row.name] = row.sha256
+    thresholds = (job.verdict or {}).get("thresholds")
+    return {
+        "job": job.id,
+        "submitted_by": job.submitted_by,
+        "submitted_at": rfc3339(job.created_at),
+        "idempotency_key": job.idempotency_key,
+        "events": [
+            {
+                "at": rfc3339(event.at),
+                "kind": event.kind,
+                "chain": None if event.chain_index is None else event.chain_index + 1,
+                "state": event.state,
+                "detail": event.detail,
+            }
+            for event in log
+        ],
+        "hashes": {
+            "request": job.request_sha256,
+            "model": job.spec_sha256,
+            "data": job.data_sha256,
+        },
+        "seed": job.seed,
+        "chain_seeds": _seed_records(job.seed, job.chain_count),
+        "settings": job.settings,
+        "checks": thresholds if thresholds is not None else job.body.get("checks"),
+        "software": {"api": job.api_software, "finish": job.finish_software},
+        "chains": [
+            {
+                "chain": chain.chain_index + 1,
+                "state": chain.state,
+                "attempts": chain.attempts,
+                "duplicate_deliveries": chain.duplicate_deliveries,
+                "worker": {
+                    "host": chain.worker_host,
+                    "pid": chain.worker_pid,
+                    "software": chain.worker_software,
+                },
+                "started_at": rfc3339(chain.started_at),
+                "finished_at": rfc3339(chain.finished_at),
+                "draws_sha256": draws[chain.id].sha256 if chain.id in draws else None,
+                "draws_shape": draws[chain.id].shape if chain.id in draws else None,
+                "stats_sha256": stats.get(chain.id, {}),
+            }
+            for chain in chains
+        ],
+    }

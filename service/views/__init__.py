@@ -1,0 +1,1 @@
+"""One blueprint per resource: jobs, their results, and the service's health."""

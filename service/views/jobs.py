@@ -1,0 +1,78 @@
+"""Jobs: submit, read, list, cancel."""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+from flask import Blueprint, Response, jsonify, request
+
+from service.job_queries import JobFilter, bad_parameter, cancel_job, get_job, list_jobs
+from service.job_resources import job_resource
+from service.problem_details import ApiProblem
+from service.submissions import submit
+from service.views.context import runtime
+
+jobs = Blueprint("jobs", __name__, url_prefix="/v1/jobs")
+
+
+def _json_body() -> Any:
+    if request.mimetype != "application/json":
+        raise ApiProblem(
+            415,
+            "unsupported-media-type",
+            "Unsupported media type",
+            f"Send the submission as application/json, not {request.mimetype or 'nothing'}.",
+        )
+    data = request.get_data(cache=False)
+    try:
+        return json.loads(data)
+    except (ValueError, UnicodeDecodeError) as error:
+        raise ApiProblem(
+            400, "invalid-json", "The body is not JSON", f"The body could not be parsed: {error}."
+        ) from error
+
+
+@jobs.post("")
+def create() -> Response:
+    key = request.headers.get("Idempotency-Key")
+    if key is not None and not 1 <= len(key) <= 255:
+        raise bad_parameter("Idempotency-Key", "The key must be 1 to 255 characters.")
+    accepted = submit(runtime(), _json_body(), key)
+    job, chains = get_job(runtime(), accepted.job.id)
+    response = jsonify(job_resource(job, chains))
+    response.status_code = 202 if accepted.created else 200
+    response.headers["Location"] = f"/v1/jobs/{job.id}"
+    if job.state in ("queued", "running"):
+        response.headers["Retry-After"] = "2"
+    return response
+
+
+@jobs.get("")
+def index() -> Response:
+    settings = runtime().settings
+    raw_limit = request.args.get("limit")
+    try:
+        limit = settings.page_limit if raw_limit is None else int(raw_limit)
+    except ValueError as error:
+        raise bad_parameter("limit", "The limit is a whole number.") from error
+    if not 1 <= limit <= settings.max_page_limit:
+        raise bad_parameter("limit", f"The limit is between 1 and {settings.max_page_limit}.")
+    where = JobFilter.parse(request.args.getlist("state"), request.args.getlist("label"))
+    page, cursor = list_jobs(runtime(), where, limit, request.args.get("cursor"))
+    return jsonify({"jobs": [job_resource(j, c) for j, c in page], "next_cursor": cursor})
+
+
+@jobs.get("/<job_id>")
+def show(job_id: str) -> Response:
+    job, chains = get_job(runtime(), job_id)
+    response = jsonify(job_resource(job, chains))
+    if job.state in ("queued", "running"):
+        response.headers["Retry-After"] = "2"
+    return response
+
+
+@jobs.post("/<job_id>/cancel")
+def cancel(job_id: str) -> Response:
+    job, chains = cancel_job(runtime(), job_id)
+    return jsonify(job_resource(job, chains))

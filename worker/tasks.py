@@ -1,0 +1,33 @@
+"""Celery tasks: thin wrappers that pass ids to the service's chain and finishing steps."""
+
+from __future__ import annotations
+
+import os
+
+from celery import Task, shared_task
+
+from service.runtime import Runtime, build_runtime
+
+_runtimes: dict[tuple[int, int], Runtime] = {}
+
+
+def _runtime(task: Task) -> Runtime:
+    # One database engine per pool process: connections must not cross a fork.
+    key = (os.getpid(), id(task.app))
+    if key not in _runtimes:
+        _runtimes[key] = build_runtime(task.app.conf.drawyard_settings, task.app)
+    return _runtimes[key]
+
+
+@shared_task(bind=True, name="drawyard.run_chain", acks_late=True, reject_on_worker_lost=True)
+def run_chain(self: Task, job_id: str, chain_index: int) -> str:
+    from service.chain_work import run_chain as run
+
+    return run(_runtime(self), job_id, int(chain_index))
+
+
+@shared_task(bind=True, name="drawyard.finish_job", acks_late=True, reject_on_worker_lost=True)
+def finish_job(self: Task, job_id: str) -> str:
+    from service.finishing import finish
+
+    return finish(_runtime(self), job_id)
