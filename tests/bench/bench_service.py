@@ -1,0 +1,210 @@
+"""Service benchmark: what the queue, the store and HTTP add to sampling, and how workers scale.
+
+1. Overhead: end-to-end wall time of a job through the live service (submit -> summary and draws
+   read back over HTTP) over the in-process time of `worker.runner.run_in_process` for the same
+   body, for a small and a medium model, measured alternately in one run. One worker process runs
+   the chains one after another, as the in-process runner does. Target: <= 1.15 for the medium.
+2. Throughput: the same 50 small one-chain jobs with one worker process and with two. Target:
+   time(1 worker) / time(2 workers) >= 1.8 on two cores.
+
+Real parts throughout: a private redis-server, a SQLite store, gunicorn and Celery workers, started
+by the test harness. Run with `make bench` (or `python -m tests.bench service`).
+"""
+
+from __future__ import annotations
+
+import statistics
+import tempfile
+import time
+import uuid
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import requests
+
+from service.local_stack import RedisServer
+from tests.harness.live_service import LiveService, start_live_service
+
+REPEATS = 3
+THROUGHPUT_JOBS = 50
+POLL_SECONDS = 0.02
+TERMINAL = {"succeeded", "failed", "cancelled"}
+
+
+def small_job(seed: int = 1, chains: int = 2) -> dict[str, Any]:
+    """Normal data with unknown mean and scale: two unknowns, 40 observations."""
+    rng = np.random.default_rng(11)
+    return {
+        "model": {
+            "inputs": {"n": {"type": "integer"}, "y": {"type": "real", "shape": ["n"]}},
+            "unknowns": {"mu": {}, "sigma": {"lower": 0}},
+            "priors": [
+                {"on": "mu", "distribution": "normal", "arguments": {"location": 0, "scale": 10}},
+                {"on": "sigma", "distribution": "half_normal", "arguments": {"scale": 5}},
+            ],
+            "likelihood": [
+                {"name": "y_obs", "observed": "y", "distribution": "normal",
+                 "arguments": {"location": "mu", "scale": "sigma"}},
+            ],
+        },
+        "data": {"n": 40, "y": rng.normal(3.0, 2.0, size=40).round(4).tolist()},
+        "sampler": {"chains": chains, "seed": seed, "warmup_iterations": 300, "draws": 300},
+        "labels": {"bench": "small"},
+    }
+
+
+def medium_job(seed: int = 2) -> dict[str, Any]:
+    """A partially pooled Poisson regression: 30 groups x 40 rows, 33 unknowns."""
+    rng = np.random.default_rng(12)
+    groups, per_group = 30, 40
+    group = np.repeat(np.arange(1, groups + 1), per_group)
+    x = rng.normal(size=group.size)
+    log_rate = 2.0 + 0.4 * rng.normal(size=groups)[group - 1] + 0.3 * x
+    return {
+        "model": {
+            "inputs": {
+                "groups": {"type": "integer", "lower": 1},
+                "rows": {"type": "integer"},
+                "group": {"type": "integer", "shape": ["rows"], "lower": 1, "upper": "groups"},
+                "x": {"type": "real", "shape": ["rows"]},
+                "count": {"type": "integer", "shape": ["rows"], "lower": 0},
+            },
+            "unknowns": {
+                "intercept": {}, "slope": {}, "spread": {"lower": 0},
+                "offset": {"shape": ["groups"]},
+            },
+            "derived": {"group_level": "intercept + spread * offset"},
+            "priors": [
+                {"on": "intercept", "distribution": "normal",
+                 "arguments": {"location": 0, "scale": 5}},
+                {"on": "slope", "distribution": "normal", "arguments": {"location": 0, "scale": 1}},
+                {"on": "spread", "distribution": "half_normal", "arguments": {"scale": 1}},
+                {"on": "offset", "distribution": "normal",
+                 "arguments": {"location": 0, "scale": 1}},
+            ],
+            "likelihood": [
+                {"name": "counts", "observed": "count", "distribution": "poisson",
+                 "arguments": {"log_rate": "group_level[group] + slope * x"}},
+            ],
+        },
+        "data": {
+            "groups": groups, "rows": int(group.size), "group": group.tolist(),
+            "x": x.round(4).tolist(), "count": rng.poisson(np.exp(log_rate)).tolist(),
+        },
+        "sampler": {"chains": 2, "seed": seed, "warmup_iterations": 500, "draws": 500},
+        "labels": {"bench": "medium"},
+    }
+
+
+def submit(base_url: str, body: dict[str, Any]) -> str:
+    response = requests.post(f"{base_url}/v1/jobs", json=body, timeout=60)
+    if response.status_code != 202:
+        raise RuntimeError(f"submission refused ({response.status_code}): {response.text}")
+    return requests.compat.urljoin(base_url, response.headers["Location"])
+
+
+def wait_done(job_url: str, poll: float = POLL_SECONDS, timeout: float = 1800) -> dict[str, Any]:
+    deadline = time.monotonic() + timeout
+    while True:
+        job = requests.get(job_url, timeout=60).json()
+        if job["state"] in TERMINAL:
+            if job["state"] != "succeeded":
+                raise RuntimeError(f"{job_url} ended {job['state']}: {job.get('error')}")
+            return job
+        if time.monotonic() > deadline:
+            raise RuntimeError(f"{job_url} not finished after {timeout} s")
+        time.sleep(poll)
+
+
+def end_to_end_seconds(service: LiveService, body: dict[str, Any]) -> float:
+    """Submit, wait, then read the summary and every draw back: the client's whole round trip."""
+    started = time.perf_counter()
+    job_url = submit(service.base_url, body)
+    wait_done(job_url)
+    requests.get(f"{job_url}/summary", timeout=60).raise_for_status()
+    with requests.get(f"{job_url}/draws", timeout=300, stream=True) as draws:
+        draws.raise_for_status()
+        for _ in draws.iter_content(chunk_size=1 << 16):
+            pass
+    return time.perf_counter() - started
+
+
+def in_process_seconds(body: dict[str, Any]) -> float:
+    from worker.runner import run_in_process
+
+    started = time.perf_counter()
+    run_in_process(body)
+    return time.perf_counter() - started
+
+
+def measure_overhead(redis: RedisServer, workdir: Path) -> list[tuple[str, float, float]]:
+    redis.flush()
+    service = start_live_service(
+        f"sqlite:///{workdir / 'overhead.sqlite'}", redis.url, workers=1,
+        log_dir=workdir / "overhead-logs",
+    )
+    rows = []
+    try:
+        # The first job pays for imports in the worker's pool process; it is not counted.
+        end_to_end_seconds(service, small_job(seed=99))
+        for name, make in (("small", small_job), ("medium", medium_job)):
+            body = make()
+            served, local = [], []
+            for _ in range(REPEATS):
+                # Alternating keeps slow drifts of the machine out of the ratio.
+                local.append(in_process_seconds(body))
+                served.append(end_to_end_seconds(service, body))
+            rows.append((name, statistics.median(served), statistics.median(local)))
+    finally:
+        service.stop()
+    return rows
+
+
+def parse_time(text: str) -> float:
+    return datetime.fromisoformat(text.replace("Z", "+00:00")).timestamp()
+
+
+def throughput_seconds(redis: RedisServer, workdir: Path, workers: int) -> float:
+    """Wall time from the first submission until the last of the jobs is finished."""
+    redis.flush()
+    tag = uuid.uuid4().hex[:8]
+    service = start_live_service(
+        f"sqlite:///{workdir / f'throughput{workers}-{tag}.sqlite'}", redis.url, workers=workers,
+        log_dir=workdir / f"throughput{workers}-logs",
+    )
+    try:
+        end_to_end_seconds(service, small_job(seed=98, chains=workers))
+        started = time.time()
+        urls = [submit(service.base_url, small_job(seed=1000 + i, chains=1))
+                for i in range(THROUGHPUT_JOBS)]
+        # Watch only the last job closely; the others are read once it is done.
+        wait_done(urls[-1], poll=0.25)
+        finished = [parse_time(wait_done(url, poll=0.25)["finished_at"]) for url in urls]
+        return max(finished) - started
+    finally:
+        service.stop()
+
+
+def main() -> None:
+    workdir = Path(tempfile.mkdtemp(prefix="drawyard-bench-"))
+    redis = RedisServer(workdir / "redis").start()
+    try:
+        print("service overhead = end-to-end wall time / in-process time, same job, "
+              f"median of {REPEATS} (target <= 1.15 for medium)")
+        for name, served, local in measure_overhead(redis, workdir):
+            print(f"  {name:6s}  end-to-end {served:7.2f} s   in-process {local:7.2f} s   "
+                  f"ratio {served / local:5.3f}", flush=True)
+        one = throughput_seconds(redis, workdir, workers=1)
+        two = throughput_seconds(redis, workdir, workers=2)
+        print(f"throughput of {THROUGHPUT_JOBS} small one-chain jobs (target ratio >= 1.8)")
+        print(f"  1 worker {one:7.2f} s ({THROUGHPUT_JOBS / one:5.2f} jobs/s)   "
+              f"2 workers {two:7.2f} s ({THROUGHPUT_JOBS / two:5.2f} jobs/s)   "
+              f"ratio {one / two:5.3f}", flush=True)
+    finally:
+        redis.stop()
+
+
+if __name__ == "__main__":
+    main()
