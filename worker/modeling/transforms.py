@@ -193,3 +193,266 @@ def make_transform(
 
 
 STRUCTURES: dict[str, type[Transform]] = {}
+
+
+def _reverse_cumsum(v: Array) -> Array:
+    """Sums from each position to the end of the last axis."""
+    return np.cumsum(v[..., ::-1], axis=-1)[..., ::-1]
+
+
+class Simplex(Transform):
+    """Stick-breaking: K-1 free values; piece k takes the share logistic(u_k - log(K - k)) of what
+    is left, so u = 0 maps to the uniform simplex point. Applies along the last axis."""
+
+    structure = "simplex"
+
+    def __init__(self, shape: tuple[int, ...]) -> None:
+        if len(shape) < 1 or shape[-1] < 1:
+            raise ValueError("a simplex needs a shape whose last axis has at least one element")
+        super().__init__(shape)
+        k = self.shape[-1]
+        self._free_shape = self.shape[:-1] + (k - 1,)
+        self._offset = np.log(np.arange(k - 1, 0, -1, dtype=float))
+        # weight of each free value in the log-Jacobian's gradient: 1 + the pieces after it
+        self._after = np.arange(k - 2, -1, -1, dtype=float)
+
+    def size(self, shape):
+        return int(np.prod(shape[:-1], dtype=np.int64)) * (int(shape[-1]) - 1)
+
+    def _pieces(self, u_slice):
+        a = np.reshape(u_slice, self._free_shape) - self._offset
+        log_share = log_expit(a)
+        log_rest = log_expit(-a)
+        # log of the stick left before piece k: sum of log(1 - share) over earlier pieces
+        log_left = np.concatenate(
+            [np.zeros(self.shape[:-1] + (1,)), np.cumsum(log_rest, axis=-1)], axis=-1
+        )
+        x = np.exp(log_left)
+        x[..., :-1] *= np.exp(log_share)
+        return a, log_share, log_rest, log_left, x
+
+    def constrain(self, u_slice):
+        return self._pieces(u_slice)[4]
+
+    def unconstrain(self, x):
+        x = np.asarray(x, dtype=float).reshape(self.shape)
+        with np.errstate(all="ignore"):
+            left = _reverse_cumsum(x)[..., :-1]      # the stick left before each piece
+            share = x[..., :-1] / left
+            u = np.log(share) - np.log1p(-share) + self._offset
+        return u.reshape(-1)
+
+    def _log_jacobian(self, log_share, log_rest, log_left):
+        return float(np.sum(log_share + log_rest + log_left[..., :-1]))
+
+    def log_jacobian_and_gradient(self, u_slice):
+        a, log_share, log_rest, log_left, _ = self._pieces(u_slice)
+        share = np.exp(log_share)
+        grad = 1.0 - 2.0 * share - share * self._after
+        return self._log_jacobian(log_share, log_rest, log_left), grad.reshape(-1)
+
+    def constrain_vjp(self, u_slice, upstream):
+        a, log_share, _, _, x = self._pieces(u_slice)
+        return self._vjp(np.exp(log_share), x, upstream)
+
+    def _vjp(self, share, x, upstream):
+        g = np.reshape(upstream, self.shape) * x
+        later = _reverse_cumsum(g)[..., 1:]               # sum of g over pieces after k
+        return (g[..., :-1] * (1.0 - share) - share * later).reshape(-1)
+
+    def forward(self, u_slice):
+        a, log_share, log_rest, log_left, x = self._pieces(u_slice)
+        share = np.exp(log_share)
+        log_jac = self._log_jacobian(log_share, log_rest, log_left)
+        jac_grad = (1.0 - 2.0 * share - share * self._after).reshape(-1)
+
+        def backward(upstream: Array) -> Array:
+            return self._vjp(share, x, upstream) + jac_grad
+
+        return x, log_jac, backward
+
+
+class Ordered(Transform):
+    """x_1 = u_1, x_k = x_{k-1} + exp(u_k): strictly increasing along the last axis."""
+
+    structure = "ordered"
+
+    def __init__(self, shape: tuple[int, ...]) -> None:
+        if len(shape) < 1:
+            raise ValueError("an ordered vector needs at least one axis")
+        super().__init__(shape)
+        self._jac_grad = np.ones(self.shape)
+        self._jac_grad[..., 0] = 0.0
+        self._jac_grad = self._jac_grad.reshape(-1)
+
+    def _steps(self, u):
+        steps = np.exp(u)
+        steps[..., 0] = u[..., 0]
+        return steps
+
+    def constrain(self, u_slice):
+        return np.cumsum(self._steps(np.reshape(u_slice, self.shape)), axis=-1)
+
+    def unconstrain(self, x):
+        x = np.asarray(x, dtype=float).reshape(self.shape)
+        with np.errstate(all="ignore"):
+            u = np.concatenate([x[..., :1], np.log(np.diff(x, axis=-1))], axis=-1)
+        return u.reshape(-1)
+
+    def log_jacobian_and_gradient(self, u_slice):
+        u = np.reshape(u_slice, self.shape)
+        return float(np.sum(u[..., 1:])), self._jac_grad
+
+    def _vjp(self, steps, upstream):
+        later = _reverse_cumsum(np.reshape(upstream, self.shape))
+        d = later * steps
+        d[..., 0] = later[..., 0]
+        return d.reshape(-1)
+
+    def constrain_vjp(self, u_slice, upstream):
+        return self._vjp(self._steps(np.reshape(u_slice, self.shape)), upstream)
+
+    def forward(self, u_slice):
+        u = np.reshape(u_slice, self.shape)
+        steps = self._steps(u)
+        x = np.cumsum(steps, axis=-1)
+
+        def backward(upstream: Array) -> Array:
+            return self._vjp(steps, upstream) + self._jac_grad
+
+        return x, float(np.sum(u[..., 1:])), backward
+
+
+class PositiveOrdered(Transform):
+    """x_k = exp(u_1) + ... + exp(u_k): positive and strictly increasing along the last axis."""
+
+    structure = "positive_ordered"
+
+    def __init__(self, shape: tuple[int, ...]) -> None:
+        if len(shape) < 1:
+            raise ValueError("a positive ordered vector needs at least one axis")
+        super().__init__(shape)
+
+    def constrain(self, u_slice):
+        return np.cumsum(np.exp(np.reshape(u_slice, self.shape)), axis=-1)
+
+    def unconstrain(self, x):
+        x = np.asarray(x, dtype=float).reshape(self.shape)
+        with np.errstate(all="ignore"):
+            u = np.log(np.diff(x, axis=-1, prepend=0.0))
+        return u.reshape(-1)
+
+    def log_jacobian_and_gradient(self, u_slice):
+        return float(np.sum(u_slice)), np.ones(self.dimension)
+
+    def constrain_vjp(self, u_slice, upstream):
+        steps = np.exp(np.reshape(u_slice, self.shape))
+        return (_reverse_cumsum(np.reshape(upstream, self.shape)) * steps).reshape(-1)
+
+    def forward(self, u_slice):
+        steps = np.exp(np.reshape(u_slice, self.shape))
+        x = np.cumsum(steps, axis=-1)
+
+        def backward(upstream: Array) -> Array:
+            return (_reverse_cumsum(np.reshape(upstream, self.shape)) * steps).reshape(-1) + 1.0
+
+        return x, float(np.sum(u_slice)), backward
+
+
+def cholesky_from_partial_correlations(z: Array) -> tuple[Array, Array]:
+    """Cholesky factor of a correlation matrix from canonical partial correlations.
+
+    z (..., K, K) holds the partial correlations in its strictly lower triangle (other entries are
+    ignored). Row i: L_ij = z_ij * sqrt(1 - sum_{k<j} L_ik^2) and L_ii = sqrt(1 - sum_{k<i} L_ik^2)
+    (Lewandowski, Kurowicka & Joe 2009, section 2). Returns L and W, the remaining row lengths
+    W_ij = prod_{k<j} sqrt(1 - z_ik^2), with L = (z + I) * W on and below the diagonal.
+    """
+    k = z.shape[-1]
+    lower = np.tril(z, -1)
+    log_rest = np.log1p(-lower * lower)            # zero outside the strict lower triangle
+    log_w = 0.5 * (np.cumsum(log_rest, axis=-1) - log_rest)
+    w = np.exp(log_w)
+    # lower + I is zero above the diagonal, so the product is already lower triangular
+    return (lower + np.eye(k)) * w, w
+
+
+class CholeskyCorrelation(Transform):
+    """Cholesky factor of a K x K correlation matrix from K(K-1)/2 free values: tanh gives the
+    canonical partial correlations (row by row, strictly lower triangle), which build the factor."""
+
+    structure = "cholesky_correlation"
+
+    def __init__(self, shape: tuple[int, ...]) -> None:
+        if len(shape) != 2 or shape[0] != shape[1] or shape[0] < 1:
+            raise ValueError("a Cholesky factor of a correlation matrix needs a shape [K, K]")
+        super().__init__(shape)
+        k = self.shape[0]
+        self._rows, self._cols = np.tril_indices(k, -1)
+        # log|J| = sum over free entries of -(i - j + 1) log cosh(u_ij)  (0-based row i, column j);
+        # from log(1 - z^2) = -2 log cosh u and the remaining-length factors of later entries
+        self._weight = (self._rows - self._cols + 1).astype(float)
+
+    def size(self, shape):
+        k = int(shape[0])
+        return k * (k - 1) // 2
+
+    def _partial(self, u_slice):
+        z = np.zeros(self.shape)
+        z[self._rows, self._cols] = np.tanh(u_slice)
+        return z
+
+    def constrain(self, u_slice):
+        return cholesky_from_partial_correlations(self._partial(u_slice))[0]
+
+    def unconstrain(self, x):
+        x = np.asarray(x, dtype=float).reshape(self.shape)
+        with np.errstate(all="ignore"):
+            # the squared length left before column j equals the sum of squares from j onwards
+            left = np.sqrt(_reverse_cumsum(x * x))
+            z = x / left
+            return np.arctanh(z[self._rows, self._cols])
+
+    def _log_jacobian(self, u):
+        au = np.abs(u)
+        log_cosh = au + np.log1p(np.exp(-2.0 * au)) - np.log(2.0)
+        return -float(np.dot(self._weight, log_cosh))
+
+    def log_jacobian_and_gradient(self, u_slice):
+        u = np.asarray(u_slice, dtype=float)
+        return self._log_jacobian(u), -self._weight * np.tanh(u)
+
+    def _vjp(self, z, chol, w, upstream):
+        y = np.reshape(upstream, self.shape)
+        g = y * chol            # zero above the diagonal, where the factor is constant
+        # L_ij depends on log(1 - z_ik^2) for k < j <= i through W_ij = exp(half the sum)
+        d_log_rest = 0.5 * (_reverse_cumsum(g) - g)
+        zf = z[self._rows, self._cols]
+        direct = (y * w)[self._rows, self._cols] * (1.0 - zf * zf)
+        return direct - 2.0 * zf * d_log_rest[self._rows, self._cols]
+
+    def constrain_vjp(self, u_slice, upstream):
+        z = self._partial(u_slice)
+        chol, w = cholesky_from_partial_correlations(z)
+        return self._vjp(z, chol, w, upstream)
+
+    def forward(self, u_slice):
+        u = np.asarray(u_slice, dtype=float)
+        z = self._partial(u)
+        chol, w = cholesky_from_partial_correlations(z)
+        log_jac = self._log_jacobian(u)
+        jac_grad = -self._weight * z[self._rows, self._cols]
+
+        def backward(upstream: Array) -> Array:
+            return self._vjp(z, chol, w, upstream) + jac_grad
+
+        return chol, log_jac, backward
+
+
+STRUCTURES.update(
+    {
+        "simplex": Simplex,
+        "ordered": Ordered,
+        "positive_ordered": PositiveOrdered,
+        "cholesky_correlation": CholeskyCorrelation,
+    }
+)

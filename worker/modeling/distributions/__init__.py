@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 
-from . import continuous, discrete
+from . import continuous, discrete, multivariate
 from .base import (
     SUPPORT_PHRASES,
     VARIATE_PHRASES,
@@ -24,11 +24,33 @@ __all__ = [
 
 _CLASSES: list[type[Distribution]] = [
     continuous.Normal,
+    continuous.StudentT,
+    continuous.Cauchy,
+    continuous.Laplace,
+    continuous.Logistic,
+    continuous.Lognormal,
+    continuous.Exponential,
+    continuous.Gamma,
+    continuous.InverseGamma,
+    continuous.Weibull,
+    continuous.Beta,
+    continuous.Uniform,
     continuous.HalfNormal,
+    continuous.HalfCauchy,
+    continuous.HalfStudentT,
+    multivariate.Dirichlet,
+    multivariate.MultivariateNormal,
+    multivariate.LkjCorrelationFactor,
     discrete.BernoulliProbability,
     discrete.BernoulliLogOdds,
     discrete.PoissonRate,
     discrete.PoissonLogRate,
+    discrete.BinomialProbability,
+    discrete.BinomialLogOdds,
+    discrete.NegativeBinomialMean,
+    discrete.NegativeBinomialLogMean,
+    discrete.Categorical,
+    discrete.OrderedLogistic,
 ]
 
 # one shared instance per (name, argument set): instances hold no state

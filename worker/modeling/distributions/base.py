@@ -82,6 +82,16 @@ def sum_to_shape(g: Array, full: tuple[int, ...], target: tuple[int, ...]) -> Ar
     return np.asarray(g.sum(axis=axes)).reshape(target)
 
 
+class Summed:
+    """A gradient a distribution has already summed over the batch (e.g. by np.bincount), with any
+    out-of-support elements already excluded; it is passed through as it is."""
+
+    __slots__ = ("value",)
+
+    def __init__(self, value: Array) -> None:
+        self.value = value
+
+
 class Distribution:
     """One distribution under one parameterisation.
 
@@ -119,6 +129,9 @@ class Distribution:
         batch = val.shape
         grads: dict[str, Array] = {}
         for key, g in pointwise.items():
+            if isinstance(g, Summed):
+                grads[key] = g.value
+                continue
             if key == "x":
                 target = xa.shape
                 event = target[len(target) - self.event_ndim :] if self.event_ndim else ()

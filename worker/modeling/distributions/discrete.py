@@ -7,10 +7,10 @@ function, so large linear predictors neither overflow nor lose precision.
 from __future__ import annotations
 
 import numpy as np
-from scipy.special import gammaln, xlog1py, xlogy
+from scipy.special import digamma, gammaln, xlog1py, xlogy
 
 from ..special import expit, softplus
-from .base import Array, Distribution, mask_or_none
+from .base import Array, Distribution, Summed, mask_or_none
 
 Pointwise = tuple[Array, dict[str, Array], Array | None]
 
@@ -95,3 +95,245 @@ class PoissonLogRate(Distribution):
 
     def _sample(self, rng, shape, log_rate):
         return rng.poisson(np.broadcast_to(np.exp(log_rate), shape)).astype(np.int64)
+
+
+def _binomial_coefficient(x: Array, trials: Array) -> Array:
+    return gammaln(trials + 1.0) - gammaln(x + 1.0) - gammaln(trials - x + 1.0)
+
+
+def _not_count_up_to(x: Array, trials: Array) -> Array:
+    return ~((x >= 0) & (x <= trials) & (x == np.floor(x)) & (trials == np.floor(trials)))
+
+
+class BinomialProbability(Distribution):
+    name = "binomial"
+    arguments = ("trials", "probability")
+    variate_kind = "count_up_to_trials"
+    argument_support = {"trials": "nonnegative_integer", "probability": "unit"}
+    discrete = True
+
+    def _log_density_and_pointwise(self, x, trials, probability, wrt) -> Pointwise:
+        p = probability
+        failures = trials - x
+        val = _binomial_coefficient(x, trials) + xlogy(x, p) + xlog1py(failures, -p)
+        grads: dict[str, Array] = {}
+        if "probability" in wrt:
+            grads["probability"] = x / p - failures / (1.0 - p)
+        if "trials" in wrt:
+            grads["trials"] = np.zeros(np.shape(trials))
+        bad = _not_count_up_to(x, trials) | ~((p >= 0) & (p <= 1))
+        return val, grads, mask_or_none(bad)
+
+    def _sample(self, rng, shape, trials, probability):
+        return rng.binomial(np.broadcast_to(trials, shape).astype(np.int64), probability)
+
+
+class BinomialLogOdds(Distribution):
+    name = "binomial"
+    arguments = ("trials", "log_odds")
+    variate_kind = "count_up_to_trials"
+    argument_support = {"trials": "nonnegative_integer", "log_odds": "real"}
+    discrete = True
+
+    def _log_density_and_pointwise(self, x, trials, log_odds, wrt) -> Pointwise:
+        val = _binomial_coefficient(x, trials) + x * log_odds - trials * softplus(log_odds)
+        grads: dict[str, Array] = {}
+        if "log_odds" in wrt:
+            grads["log_odds"] = x - trials * expit(log_odds)
+        if "trials" in wrt:
+            grads["trials"] = np.zeros(np.shape(trials))
+        return val, grads, mask_or_none(_not_count_up_to(x, trials))
+
+    def _sample(self, rng, shape, trials, log_odds):
+        n = np.broadcast_to(trials, shape).astype(np.int64)
+        return rng.binomial(n, expit(log_odds))
+
+
+def _negative_binomial(x, dispersion, x_log_mean, log_total, mean, wrt, mean_key):
+    """Mass and pointwise gradients given x log(mean), log(mean + dispersion) and mean.
+
+    log p = lgamma(x + phi) - lgamma(phi) - lgamma(x + 1) + phi log(phi / (mu + phi))
+            + x log(mu / (mu + phi)),   variance mu + mu^2 / phi.
+    """
+    log_phi = np.log(dispersion)
+    log_share = log_phi - log_total            # log(phi / (mu + phi))
+    val = (
+        gammaln(x + dispersion) - gammaln(dispersion) - gammaln(x + 1.0)
+        + dispersion * log_share + x_log_mean - x * log_total
+    )
+    grads: dict[str, Array] = {}
+    if wrt:
+        share = np.exp(log_share)
+        weight = (dispersion + x) * share / dispersion     # (phi + x) / (mu + phi)
+        if mean_key in wrt:
+            if mean_key == "mean":
+                grads["mean"] = x / mean - weight
+            else:
+                grads["log_mean"] = x - weight * mean
+        if "dispersion" in wrt:
+            grads["dispersion"] = (
+                digamma(x + dispersion) - digamma(dispersion) + log_share + 1.0 - weight
+            )
+    return val, grads
+
+
+class NegativeBinomialMean(Distribution):
+    name = "negative_binomial"
+    arguments = ("mean", "dispersion")
+    variate_kind = "nonnegative_integer"
+    argument_support = {"mean": "positive", "dispersion": "positive"}
+    discrete = True
+
+    def _log_density_and_pointwise(self, x, mean, dispersion, wrt) -> Pointwise:
+        log_total = np.log(mean + dispersion)
+        val, grads = _negative_binomial(
+            x, dispersion, xlogy(x, mean), log_total, mean, wrt, "mean"
+        )
+        bad = _not_count(x) | ~(mean > 0) | ~(dispersion > 0)
+        return val, grads, mask_or_none(bad)
+
+    def _sample(self, rng, shape, mean, dispersion):
+        # gamma-Poisson mixture: the rate is Gamma(phi, phi / mu)
+        rate = rng.standard_gamma(np.broadcast_to(dispersion, shape)) * (mean / dispersion)
+        return rng.poisson(rate).astype(np.int64)
+
+
+class NegativeBinomialLogMean(Distribution):
+    name = "negative_binomial"
+    arguments = ("log_mean", "dispersion")
+    variate_kind = "nonnegative_integer"
+    argument_support = {"log_mean": "real", "dispersion": "positive"}
+    discrete = True
+
+    def _log_density_and_pointwise(self, x, log_mean, dispersion, wrt) -> Pointwise:
+        log_total = np.logaddexp(log_mean, np.log(dispersion))
+        mean = np.exp(log_mean)
+        val, grads = _negative_binomial(
+            x, dispersion, x * log_mean, log_total, mean, wrt, "log_mean"
+        )
+        return val, grads, mask_or_none(_not_count(x) | ~(dispersion > 0))
+
+    def _sample(self, rng, shape, log_mean, dispersion):
+        rate = rng.standard_gamma(np.broadcast_to(dispersion, shape)) * np.exp(
+            log_mean - np.log(dispersion)
+        )
+        return rng.poisson(rate).astype(np.int64)
+
+
+class Categorical(Distribution):
+    """Outcomes 1..K with probabilities softmax(log_weights) over the last axis."""
+
+    name = "categorical"
+    arguments = ("log_weights",)
+    variate_kind = "category"
+    argument_support = {"log_weights": "real"}
+    argument_event_ndim = {"log_weights": 1}
+    discrete = True
+
+    def category_count(self, args):
+        return int(np.shape(args["log_weights"])[-1])
+
+    def _log_density_and_pointwise(self, x, log_weights, wrt) -> Pointwise:
+        k = log_weights.shape[-1]
+        batch = np.broadcast_shapes(x.shape, log_weights.shape[:-1])
+        w = np.broadcast_to(log_weights, batch + (k,))
+        bad = ~((x >= 1) & (x <= k) & (x == np.floor(x)))
+        index = np.broadcast_to(np.where(bad, 1, x).astype(np.intp) - 1, batch)
+        top = np.max(w, axis=-1, keepdims=True)
+        shifted = np.exp(w - top)
+        total = np.sum(shifted, axis=-1)
+        picked = np.take_along_axis(w, index[..., None], axis=-1)[..., 0]
+        val = picked - top[..., 0] - np.log(total)
+        grads: dict[str, Array] = {}
+        if "log_weights" in wrt:
+            g = -shifted / total[..., None]
+            np.put_along_axis(
+                g, index[..., None], np.take_along_axis(g, index[..., None], -1) + 1.0, -1
+            )
+            grads["log_weights"] = g
+        return val, grads, mask_or_none(np.broadcast_to(bad, batch))
+
+    def _sample(self, rng, shape, log_weights):
+        k = log_weights.shape[-1]
+        # Gumbel-max: argmax of log weights plus standard Gumbel noise is a categorical draw
+        noisy = log_weights + rng.gumbel(size=tuple(shape) + (k,))
+        return np.argmax(noisy, axis=-1).astype(np.int64) + 1
+
+    def _default_shape(self, values):
+        return values[0].shape[:-1]
+
+
+class OrderedLogistic(Distribution):
+    """Outcomes 1..K+1: P(y = k) = logistic(eta - c[k-1]) - logistic(eta - c[k]), c[0] = -inf,
+    c[K+1] = +inf (McCullagh 1980, proportional odds)."""
+
+    name = "ordered_logistic"
+    arguments = ("predictor", "cutpoints")
+    variate_kind = "category"
+    argument_support = {"predictor": "real", "cutpoints": "ordered"}
+    argument_event_ndim = {"cutpoints": 1}
+    discrete = True
+
+    def category_count(self, args):
+        return int(np.shape(args["cutpoints"])[-1]) + 1
+
+    def _log_density_and_pointwise(self, x, predictor, cutpoints, wrt) -> Pointwise:
+        k = cutpoints.shape[-1]
+        batch = np.broadcast_shapes(x.shape, predictor.shape, cutpoints.shape[:-1])
+        bad = ~((x >= 1) & (x <= k + 1) & (x == np.floor(x)))
+        bad = bad | np.any(~(np.diff(cutpoints, axis=-1) > 0), axis=-1)
+        outcome = np.broadcast_to(np.where(bad, 1, x).astype(np.intp), batch)
+        pad_shape = cutpoints.shape[:-1] + (1,)
+        padded = np.concatenate(
+            [np.full(pad_shape, -np.inf), cutpoints, np.full(pad_shape, np.inf)], axis=-1
+        )
+        if padded.ndim == 1:
+            low_cut = padded[outcome - 1]
+            high_cut = padded[outcome]
+        else:
+            full = np.broadcast_to(padded, batch + (k + 2,))
+            low_cut = np.take_along_axis(full, (outcome - 1)[..., None], -1)[..., 0]
+            high_cut = np.take_along_axis(full, outcome[..., None], -1)[..., 0]
+        above = predictor - low_cut      # +inf for the lowest outcome
+        below = predictor - high_cut     # -inf for the highest outcome
+        gap = high_cut - low_cut
+        # p = logistic(above) (1 - logistic(below)) (1 - exp(-gap)), each factor in log space
+        val = -softplus(-above) - softplus(below) + np.log(-np.expm1(-gap))
+        grads: dict[str, Array] = {}
+        if "predictor" in wrt or "cutpoints" in wrt:
+            inv = 1.0 / np.expm1(gap)
+            d_above = expit(-above) + inv
+            d_below = -expit(below) - inv
+            if "predictor" in wrt:
+                grads["predictor"] = d_above + d_below
+            if "cutpoints" in wrt:
+                grads["cutpoints"] = self._scatter(
+                    outcome, -d_above, -d_below, k, batch, padded.ndim == 1, bad
+                )
+        return val, grads, mask_or_none(np.broadcast_to(bad, batch))
+
+    @staticmethod
+    def _scatter(outcome, d_low, d_high, k, batch, shared, bad):
+        """Cutpoint gradients: outcome y touches padded cutpoints y - 1 (low) and y (high)."""
+        d_low = np.broadcast_to(d_low, batch)
+        d_high = np.broadcast_to(d_high, batch)
+        if shared:
+            # one cutpoint vector for the whole batch: sum by index in a single pass
+            if bad.any():
+                d_low = np.where(bad, 0.0, d_low)
+                d_high = np.where(bad, 0.0, d_high)
+            total = np.bincount(outcome.ravel() - 1, d_low.ravel(), minlength=k + 2)
+            total += np.bincount(outcome.ravel(), d_high.ravel(), minlength=k + 2)
+            return Summed(total[1 : k + 1])
+        g = np.zeros(batch + (k + 2,))
+        np.put_along_axis(g, (outcome - 1)[..., None], d_low[..., None], -1)
+        np.put_along_axis(g, outcome[..., None], d_high[..., None], -1)
+        return g[..., 1 : k + 1]
+
+    def _sample(self, rng, shape, predictor, cutpoints):
+        # latent-variable form: y = 1 + #{k : eta + logistic noise > c_k}
+        latent = predictor + rng.logistic(size=shape)
+        return 1 + np.sum(latent[..., None] > cutpoints, axis=-1).astype(np.int64)
+
+    def _default_shape(self, values):
+        return np.broadcast_shapes(values[0].shape, values[1].shape[:-1])
