@@ -1,0 +1,518 @@
+"""From a schema-valid spec and its data to a typed graph with terms, recording every problem.
+
+Checking and building are one pass: the same code that would build a node is the code that finds
+what is wrong with it, so the checks cannot drift from what the compiled model really does. When a
+declaration is broken its name is marked, and expressions that use it are not reported again.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ..problems import Problem, pointer
+from . import expressions as ex
+from .data_checks import DimensionTable, InputValue, check_inputs, element_pointer, flat_label
+from .distributions import (
+    SUPPORT_PHRASES,
+    VARIATE_PHRASES,
+    Distribution,
+    distribution_names,
+    find_distribution,
+    support_holds,
+)
+from .graph import Graph, IndexRangeError
+from .shapes import ValueType, describe
+from .tape import Term, UnknownSlot
+from .transforms import make_transform
+
+SECTIONS = ("inputs", "unknowns", "derived")
+# Variate kinds a prior may put on a continuous unknown, and what the declaration must guarantee.
+POSITIVE_KINDS = {"positive", "nonnegative"}
+DISCRETE_KINDS = {"binary", "nonnegative_integer", "count_up_to_trials", "category"}
+
+
+@dataclass
+class DistributionTerm:
+    """A prior, likelihood term or prediction: a distribution and its argument nodes."""
+
+    label: str
+    distribution: Distribution
+    argument_names: tuple[str, ...]
+    argument_nodes: tuple[int, ...]
+    variate: int | None = None
+    observed: str | None = None
+    name: str | None = None
+    shape: tuple[int, ...] = ()
+    at: str = ""
+
+
+@dataclass
+class Assembly:
+    graph: Graph = field(default_factory=Graph)
+    inputs: dict[str, InputValue] = field(default_factory=dict)
+    slots: list[UnknownSlot] = field(default_factory=list)
+    dimension: int = 0
+    derived: dict[str, int] = field(default_factory=dict)
+    priors: list[DistributionTerm] = field(default_factory=list)
+    likelihood: list[DistributionTerm] = field(default_factory=list)
+    quantities: dict[str, int] = field(default_factory=dict)
+    predictions: list[DistributionTerm] = field(default_factory=list)
+    replicates: list[str] = field(default_factory=list)
+    pointwise: list[str] = field(default_factory=list)
+
+    def terms(self) -> list[Term]:
+        return [
+            Term(t.variate, t.distribution, t.argument_names, t.argument_nodes)
+            for t in (*self.priors, *self.likelihood)
+        ]
+
+
+class _Assembler:
+    def __init__(self, spec: dict, data: Any):
+        self.spec = spec
+        self.problems: list[Problem] = []
+        self.broken: set[str] = set()
+        self.out = Assembly()
+        self.declared_inputs: dict[str, dict] = spec.get("inputs", {})
+        self.declared_unknowns: dict[str, dict] = spec["unknowns"]
+        self.declared_derived: dict[str, str] = spec.get("derived", {})
+        self.data = data
+
+    def problem(self, at: str, message: str) -> None:
+        self.problems.append(Problem(at, message))
+
+    # ---- top level
+    def run(self) -> Assembly:
+        data_problems, values, dims = check_inputs(self.declared_inputs, self.data)
+        self.problems.extend(data_problems)
+        self.check_names()
+        graph = self.out.graph
+        for name in self.declared_inputs:
+            if name in values:
+                graph.names[name] = graph.constant(values[name].value, values[name].kind)
+                graph.input_names.add(name)
+                self.out.inputs[name] = values[name]
+            else:
+                self.broken.add(name)
+        self.unknowns(dims)
+        self.derived()
+        covered = self.priors()
+        self.likelihood()
+        self.generated()
+        for name, declared in self.declared_unknowns.items():
+            if name not in covered and not declared.get("flat_prior", False):
+                self.problem(pointer("model", "unknowns", name),
+                             f"unknown '{name}' has no prior; add a prior term on it (or on a "
+                             "derived quantity that uses it) or declare it with flat_prior: true")
+        return self.out
+
+    def check_names(self) -> None:
+        seen: dict[str, str] = {}
+        section_words = {"inputs": "an input", "unknowns": "an unknown",
+                         "derived": "a derived quantity", "quantities": "a generated quantity",
+                         "predictions": "a prediction"}
+        generated = self.spec.get("generated", {})
+        entries: list[tuple[str, str, str]] = []
+        for section in SECTIONS:
+            for name in self.spec.get(section, {}):
+                entries.append((section, name, pointer("model", section, name)))
+        for name in generated.get("quantities", {}):
+            entries.append(("quantities", name, pointer("model", "generated", "quantities", name)))
+        for k, item in enumerate(generated.get("predictions", [])):
+            entries.append(("predictions", item["name"],
+                            pointer("model", "generated", "predictions", k, "name")))
+        for section, name, at in entries:
+            if name in ex.FUNCTIONS:
+                self.problem(at, f"'{name}' is the name of a function and cannot name "
+                                 f"{section_words[section]}")
+                self.broken.add(name)
+            elif name in seen:
+                self.problem(at, f"'{name}' is declared as {seen[name]} and again as "
+                                 f"{section_words[section]}; names must be unique")
+                self.broken.add(name)
+            else:
+                seen[name] = section_words[section]
+
+    # ---- expressions and arguments
+    def expression(self, text: str, at: str, context: str) -> int | None:
+        try:
+            tree = ex.parse(text)
+        except ex.ExpressionError as error:
+            self.problem(at, f"{context}: {error.message} (at character {error.position + 1})")
+            return None
+        if ex.names_in(tree) & self.broken:
+            return None
+        try:
+            return self.out.graph.add_expression(tree)
+        except IndexRangeError as error:
+            if error.data_name is not None:
+                shape = self.out.inputs[error.data_name].shape
+                self.problem(element_pointer(("data", error.data_name), error.first_bad, shape),
+                             f"{context}: {error.message}")
+            else:
+                self.problem(at, f"{context}: {error.message} (at character {error.position + 1})")
+        except ex.ExpressionError as error:
+            self.problem(at, f"{context}: {error.message} (at character {error.position + 1})")
+        return None
+
+    def argument(self, raw: Any, at: str, context: str) -> int | None:
+        if isinstance(raw, str):
+            return self.expression(raw, at, context)
+        try:
+            value = np.array(raw, dtype=float)
+        except (ValueError, TypeError):
+            self.problem(at, f"{context}: an array argument must be rectangular")
+            return None
+        if not np.all(np.isfinite(value)):
+            self.problem(at, f"{context}: constant arguments must be finite numbers")
+            return None
+        kind = "integer" if np.all(value == np.round(value)) else "real"
+        return self.out.graph.constant(value, kind)
+
+    def distribution(self, item: dict, at: tuple, context: str) -> Distribution | None:
+        name = item["distribution"]
+        try:
+            return find_distribution(name, set(item["arguments"]))
+        except LookupError as error:
+            field_name = "distribution" if name not in distribution_names() else "arguments"
+            self.problem(pointer(*at, field_name), f"{context}: {error.args[0]}")
+            return None
+
+    def arguments(self, item: dict, at: tuple, context: str,
+                  distribution: Distribution) -> tuple[tuple[str, ...], tuple[int, ...]] | None:
+        names: list[str] = []
+        nodes: list[int] = []
+        ok = True
+        graph = self.out.graph
+        for arg in distribution.arguments:
+            here = pointer(*at, "arguments", arg)
+            node = self.argument(item["arguments"][arg], here, f"{context}, argument '{arg}'")
+            if node is None:
+                ok = False
+                continue
+            t = graph.type_of(node)
+            if t.kind == "boolean":
+                self.problem(here, f"{context}: argument '{arg}' is a comparison, not a number")
+                ok = False
+                continue
+            support = distribution.argument_support.get(arg, "real")
+            value = graph.nodes[node].value
+            if value is not None and not support_holds(support, value):
+                shown = f"{float(value):g}" if value.ndim == 0 else "an array with values outside"
+                self.problem(here, f"{context}: argument '{arg}' must be "
+                                   f"{SUPPORT_PHRASES.get(support, support)}, got {shown}")
+                ok = False
+                continue
+            names.append(arg)
+            nodes.append(node)
+        return (tuple(names), tuple(nodes)) if ok else None
+
+    def elementwise_shapes(self, context: str, at: tuple, distribution: Distribution,
+                           names: tuple[str, ...], nodes: tuple[int, ...],
+                           variate_shape: tuple[int, ...], variate_words: str) -> bool:
+        """Scalar distributions: every argument a scalar or exactly the variate's shape."""
+        if distribution.event_ndim or any(distribution.argument_event_ndim.values()):
+            return True
+        ok = True
+        for arg, node in zip(names, nodes, strict=True):
+            shape = self.out.graph.type_of(node).shape
+            if shape and shape != variate_shape:
+                self.problem(pointer(*at, "arguments", arg),
+                             f"{context}: argument '{arg}' has shape {describe(shape)} but "
+                             f"{variate_words} has shape {describe(variate_shape)}")
+                ok = False
+        return ok
+
+    # ---- unknowns
+    def unknowns(self, dims: DimensionTable) -> None:
+        offset = 0
+        graph = self.out.graph
+        for name, declared in self.declared_unknowns.items():
+            at = ("model", "unknowns", name)
+            shape = dims.resolve(declared.get("shape", []), (*at, "shape"), self.problems,
+                                 f"unknown '{name}'")
+            if shape is None or name in self.broken:
+                self.broken.add(name)
+                continue
+            lower, upper = declared.get("lower"), declared.get("upper")
+            if lower is not None and upper is not None and not lower < upper:
+                self.problem(pointer(*at), f"unknown '{name}': the lower bound {lower:g} must be "
+                                           f"below the upper bound {upper:g}")
+                self.broken.add(name)
+                continue
+            try:
+                transform = make_transform(shape, lower, upper, declared.get("structure"))
+            except (ValueError, TypeError) as error:
+                self.problem(pointer(*at), f"unknown '{name}': {error}")
+                self.broken.add(name)
+                continue
+            size = transform.dimension
+            unbounded = transform.structure == "unbounded"
+            node = graph.leaf(ValueType("real", shape))
+            graph.names[name] = node
+            self.out.slots.append(UnknownSlot(name, node, offset, offset + size, shape,
+                                              None if unbounded else transform))
+            offset += size
+        self.out.dimension = offset
+
+    # ---- derived quantities
+    def derived(self) -> None:
+        trees: dict[str, ex.Node] = {}
+        for name, text in self.declared_derived.items():
+            if name in self.broken:
+                continue
+            try:
+                trees[name] = ex.parse(text)
+            except ex.ExpressionError as error:
+                self.problem(pointer("model", "derived", name),
+                             f"derived quantity '{name}': {error.message} "
+                             f"(at character {error.position + 1})")
+                self.broken.add(name)
+        depends = {name: sorted(ex.names_in(tree) & set(self.declared_derived))
+                   for name, tree in trees.items()}
+        order = self.topological_order(depends)
+        for name in order:
+            if set(depends[name]) & self.broken:
+                self.broken.add(name)
+                continue
+            node = self.expression(self.declared_derived[name], pointer("model", "derived", name),
+                                   f"derived quantity '{name}'")
+            if node is None:
+                self.broken.add(name)
+                continue
+            self.out.graph.names[name] = node
+            self.out.derived[name] = node
+
+    def topological_order(self, depends: dict[str, list[str]]) -> list[str]:
+        """Depth-first order without recursion; every cycle is reported once and marked broken."""
+        state: dict[str, int] = {}  # 1 on the current path, 2 finished
+        order: list[str] = []
+        for root in depends:
+            if root in state:
+                continue
+            path: list[str] = []
+            stack: list[tuple[str, int]] = [(root, 0)]
+            while stack:
+                name, k = stack.pop()
+                if k == 0:
+                    state[name] = 1
+                    path.append(name)
+                deps = [d for d in depends.get(name, []) if d in depends]
+                if k < len(deps):
+                    stack.append((name, k + 1))
+                    d = deps[k]
+                    if state.get(d) == 1:
+                        cycle = path[path.index(d):] + [d]
+                        self.problem(pointer("model", "derived", d),
+                                     "derived quantities form a cycle: " + " -> ".join(cycle))
+                        self.broken.update(cycle)
+                    elif d not in state:
+                        stack.append((d, 0))
+                    continue
+                state[name] = 2
+                path.pop()
+                order.append(name)
+        return order
+
+    # ---- priors
+    def priors(self) -> set[str]:
+        covered: set[str] = set()
+        graph = self.out.graph
+        derived_names = set(self.declared_derived)
+        for i, item in enumerate(self.spec.get("priors", [])):
+            at = ("model", "priors", i)
+            target = item["on"]
+            context = f"prior term {i + 1} (on '{target}')"
+            if target in self.declared_inputs:
+                self.problem(pointer(*at, "on"), f"{context}: '{target}' is an input; priors "
+                                                 "belong on unknowns or derived quantities")
+                continue
+            if target not in self.declared_unknowns and target not in derived_names:
+                self.problem(pointer(*at, "on"), f"{context}: '{target}' is not a declared "
+                                                 "unknown or derived quantity")
+                continue
+            if target in self.declared_unknowns:
+                covered.add(target)
+            else:
+                covered.update(self.unknowns_behind(target))
+            distribution = self.distribution(item, at, context)
+            if distribution is None:
+                continue
+            if target in self.declared_unknowns:
+                self.prior_support(target, distribution, pointer(*at, "distribution"), context)
+            args = self.arguments(item, at, context, distribution)
+            if args is None or target in self.broken:
+                continue
+            variate = graph.names[target]
+            shape = graph.type_of(variate).shape
+            if not self.elementwise_shapes(context, at, distribution, *args, shape,
+                                           f"'{target}'"):
+                continue
+            self.out.priors.append(DistributionTerm(context, distribution, *args,
+                                                    variate=variate, at=pointer(*at)))
+        return covered
+
+    def unknowns_behind(self, derived_name: str) -> set[str]:
+        found: set[str] = set()
+        stack, seen = [derived_name], set()
+        while stack:
+            name = stack.pop()
+            if name in seen or name not in self.declared_derived:
+                continue
+            seen.add(name)
+            try:
+                names = ex.names_in(ex.parse(self.declared_derived[name]))
+            except ex.ExpressionError:
+                continue
+            found.update(names & set(self.declared_unknowns))
+            stack.extend(names & set(self.declared_derived))
+        return found
+
+    def prior_support(self, target: str, distribution: Distribution, at: str,
+                      context: str) -> None:
+        declared = self.declared_unknowns[target]
+        kind = distribution.variate_kind
+        structure = declared.get("structure")
+        lower, upper = declared.get("lower"), declared.get("upper")
+        words = VARIATE_PHRASES.get(kind, kind)
+        if kind in DISCRETE_KINDS:
+            self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, but "
+                             "unknowns are continuous")
+        elif kind in POSITIVE_KINDS and not (
+                (lower is not None and lower >= 0) or structure == "positive_ordered"):
+            self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
+                             f"declare '{target}' with lower: 0")
+        elif kind == "unit" and not (lower is not None and lower >= 0 and upper is not None
+                                     and upper <= 1):
+            self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
+                             f"declare '{target}' with lower: 0 and upper: 1")
+        elif kind in ("simplex", "cholesky_correlation") and structure != kind:
+            self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
+                             f"declare '{target}' with structure: {kind}")
+
+    # ---- likelihood
+    def likelihood(self) -> None:
+        names_seen: set[str] = set()
+        graph = self.out.graph
+        for i, item in enumerate(self.spec.get("likelihood", [])):
+            at = ("model", "likelihood", i)
+            context = f"likelihood term {i + 1}"
+            term_name, observed = item["name"], item["observed"]
+            if term_name in names_seen:
+                self.problem(pointer(*at, "name"), f"{context}: the name '{term_name}' is used by "
+                                                   "an earlier likelihood term")
+            names_seen.add(term_name)
+            if observed not in self.declared_inputs:
+                what = ("an unknown" if observed in self.declared_unknowns else
+                        "a derived quantity" if observed in self.declared_derived else
+                        "not declared")
+                self.problem(pointer(*at, "observed"),
+                             f"{context}: the observed '{observed}' must be an input, but it is "
+                             f"{what}")
+                continue
+            distribution = self.distribution(item, at, context)
+            if distribution is None:
+                continue
+            declared = self.declared_inputs[observed]
+            if distribution.discrete and declared["type"] != "integer":
+                self.problem(pointer(*at, "observed"),
+                             f"{context}: {distribution.name} is a distribution of integer data, "
+                             f"but input '{observed}' is declared real")
+                continue
+            args = self.arguments(item, at, context, distribution)
+            if args is None or observed in self.broken:
+                continue
+            variate = graph.names[observed]
+            value = self.out.inputs[observed]
+            if not self.elementwise_shapes(context, at, distribution, *args, value.shape,
+                                           f"the observed input '{observed}'"):
+                continue
+            if not self.observed_in_support(context, distribution, args, value):
+                continue
+            self.out.likelihood.append(DistributionTerm(
+                context, distribution, *args, variate=variate, observed=observed,
+                name=term_name, shape=value.shape, at=pointer(*at)))
+
+    def observed_in_support(self, context: str, distribution: Distribution,
+                            args: tuple[tuple[str, ...], tuple[int, ...]],
+                            value: InputValue) -> bool:
+        graph = self.out.graph
+        constants = {n: graph.nodes[k].value for n, k in zip(*args, strict=True)
+                     if graph.nodes[k].constant}
+        needs = {"interval": ("lower", "upper"), "count_up_to_trials": ("trials",),
+                 "category": distribution.arguments}.get(distribution.variate_kind, ())
+        if any(n not in constants for n in needs):
+            return True  # the bound depends on unknowns; the density itself will say -inf
+        try:
+            valid = np.broadcast_to(distribution.variate_valid(value.value, constants),
+                                    value.value.shape[:value.value.ndim - distribution.event_ndim])
+        except (TypeError, ValueError, KeyError):
+            return True
+        if np.all(valid):
+            return True
+        first = int(np.flatnonzero(~valid.ravel())[0])
+        batch_shape = valid.shape
+        words = VARIATE_PHRASES.get(distribution.variate_kind, distribution.variate_kind)
+        self.problem(element_pointer(("data", value.name), first, batch_shape),
+                     f"{context}: {distribution.name} needs {words}, but "
+                     f"{int((~valid).sum())} value(s) of '{value.name}' are not, the first "
+                     f"{flat_label(value.name, first, batch_shape)}")
+        return False
+
+    # ---- generated quantities
+    def generated(self) -> None:
+        generated = self.spec.get("generated", {})
+        term_names = [item["name"] for item in self.spec.get("likelihood", [])]
+        built = {t.name for t in self.out.likelihood}
+        for field_name, target in (("replicates", self.out.replicates),
+                                   ("pointwise_log_likelihood", self.out.pointwise)):
+            for k, name in enumerate(generated.get(field_name, [])):
+                if name not in term_names:
+                    self.problem(pointer("model", "generated", field_name, k),
+                                 f"generated {field_name}: '{name}' is not the name of a "
+                                 "likelihood term")
+                elif name in built:
+                    target.append(name)
+        for name, text in generated.get("quantities", {}).items():
+            if name in self.broken:
+                continue
+            node = self.expression(text, pointer("model", "generated", "quantities", name),
+                                   f"generated quantity '{name}'")
+            if node is not None:
+                if self.out.graph.type_of(node).kind == "boolean":
+                    self.problem(pointer("model", "generated", "quantities", name),
+                                 f"generated quantity '{name}' is a comparison; wrap it in "
+                                 "select(condition, 1, 0)")
+                    continue
+                self.out.quantities[name] = node
+        for k, item in enumerate(generated.get("predictions", [])):
+            at = ("model", "generated", "predictions", k)
+            context = f"prediction '{item['name']}'"
+            distribution = self.distribution(item, at, context)
+            if distribution is None or item["name"] in self.broken:
+                continue
+            args = self.arguments(item, at, context, distribution)
+            if args is None:
+                continue
+            if not distribution.event_ndim:
+                shapes = [self.out.graph.type_of(n).shape for n in args[1]]
+                try:
+                    np.broadcast_shapes(*shapes)
+                except ValueError:
+                    self.problem(pointer(*at, "arguments"),
+                                 f"{context}: the arguments' shapes "
+                                 f"{', '.join(describe(s) for s in shapes)} do not fit together")
+                    continue
+            # the draw's shape is settled by a trial draw when the model is compiled
+            self.out.predictions.append(DistributionTerm(context, distribution, *args,
+                                                         name=item["name"], at=pointer(*at)))
+
+
+def assemble(spec: dict, data: Any) -> tuple[list[Problem], Assembly]:
+    """Build the graph and terms of a schema-valid spec; problems empty means it is usable."""
+    assembler = _Assembler(spec, data)
+    assembly = assembler.run()
+    return assembler.problems, assembly

@@ -1,0 +1,164 @@
+"""The compiled model: log density and gradient on the unconstrained space, and per-draw reports."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from ..problems import InvalidSubmission, Problem, pointer
+from .assembly import Assembly, DistributionTerm
+from .tape import Plan
+
+# Failures a bad point can provoke inside numpy/scipy; the contract turns them into -inf.
+_POINT_FAILURES = (ValueError, FloatingPointError, ZeroDivisionError, OverflowError)
+
+
+def flat_names(name: str, shape: tuple[int, ...]) -> list[str]:
+    """theta -> theta; theta[3]; L[2,1]: 1-based, row-major."""
+    if not shape:
+        return [name]
+    return [f"{name}[{','.join(str(i + 1) for i in index)}]" for index in np.ndindex(*shape)]
+
+
+class CompiledModel:
+    """A spec and its data, compiled: see DEVELOPERS.md, "Compiled model"."""
+
+    def __init__(self, assembly: Assembly):
+        self._assembly = assembly
+        graph = assembly.graph
+        self.dimension = assembly.dimension
+        self._slots = assembly.slots
+        self._density = Plan(graph, assembly.slots, assembly.terms(), assembly.dimension)
+        report_nodes = (
+            [s.node for s in assembly.slots]
+            + list(assembly.derived.values())
+            + list(assembly.quantities.values())
+            + [n for t in (*assembly.likelihood, *assembly.predictions) for n in t.argument_nodes]
+        )
+        self._report = Plan(graph, assembly.slots, [], assembly.dimension,
+                            extra_outputs=tuple(report_nodes))
+        self._likelihood = {t.name: t for t in assembly.likelihood}
+        self.unknown_names = [n for s in assembly.slots for n in flat_names(s.name, s.shape)]
+        self._prediction_shapes = self._trial()
+        names = list(self.unknown_names)
+        for name, node in assembly.derived.items():
+            names += flat_names(name, graph.type_of(node).shape)
+        for name, node in assembly.quantities.items():
+            names += flat_names(name, graph.type_of(node).shape)
+        for term, shape in zip(assembly.predictions, self._prediction_shapes, strict=True):
+            names += flat_names(term.name, shape)
+        for name in assembly.replicates:
+            names += flat_names(f"replicate.{name}", self._likelihood[name].shape)
+        for name in assembly.pointwise:
+            term = self._likelihood[name]
+            batch = term.shape[:len(term.shape) - term.distribution.event_ndim]
+            names += flat_names(f"log_likelihood.{name}", batch)
+        self.quantity_names = names
+
+    def _trial(self) -> list[tuple[int, ...]]:
+        """Evaluate every term once at u = 0 so that misfitting arguments surface as problems."""
+        problems: list[Problem] = []
+        u = np.zeros(self.dimension)
+        values = self._report.values_at(u)
+        for term in (*self._assembly.priors, *self._assembly.likelihood):
+            try:
+                with np.errstate(all="ignore"):
+                    term.distribution.log_density_and_gradients(
+                        values[term.variate], self._args(term, values),
+                        frozenset(term.argument_names) | {"x"})
+            except (ValueError, IndexError, TypeError) as error:
+                problems.append(Problem(term.at + "/arguments",
+                                        f"{term.label}: the arguments do not fit the "
+                                        f"distribution {term.distribution.name} ({error})"))
+        shapes: list[tuple[int, ...]] = []
+        rng = np.random.default_rng(0)
+        for term in self._assembly.predictions:
+            try:
+                with np.errstate(all="ignore"):
+                    draw = term.distribution.sample(self._args(term, values), rng, None)
+                shapes.append(tuple(np.shape(draw)))
+            except (ValueError, IndexError, TypeError) as error:
+                problems.append(Problem(term.at + "/arguments",
+                                        f"{term.label}: the arguments do not fit the "
+                                        f"distribution {term.distribution.name} ({error})"))
+        if problems:
+            raise InvalidSubmission(problems)
+        return shapes
+
+    @staticmethod
+    def _args(term: DistributionTerm, values: list[Any]) -> dict[str, np.ndarray]:
+        return {n: values[k] for n, k in zip(term.argument_names, term.argument_nodes,
+                                             strict=True)}
+
+    # ---- the sampler's interface
+    def log_density(self, u: np.ndarray) -> float:
+        try:
+            return self._density.log_density(u)
+        except _POINT_FAILURES:
+            return -np.inf
+
+    def log_density_and_gradient(self, u: np.ndarray) -> tuple[float, np.ndarray]:
+        try:
+            return self._density.log_density_and_gradient(u)
+        except _POINT_FAILURES:
+            return -np.inf, np.zeros(self.dimension)
+
+    def unconstrain(self, values: dict) -> np.ndarray:
+        """Initial values by unknown name (constrained scale) -> u; raises InvalidSubmission.
+
+        Pointers are relative to the mapping of values ("/mu"); the caller roots them.
+        """
+        problems: list[Problem] = []
+        u = np.zeros(self.dimension)
+        for slot in self._slots:
+            at = pointer(slot.name)
+            if slot.name not in values:
+                problems.append(Problem(at, f"no initial value given for unknown '{slot.name}'"))
+                continue
+            try:
+                x = np.array(values[slot.name], dtype=float)
+            except (ValueError, TypeError):
+                problems.append(Problem(at, f"the initial value of '{slot.name}' must be a number "
+                                            "or a rectangular array of numbers"))
+                continue
+            if x.shape != slot.shape:
+                problems.append(Problem(at, f"the initial value of '{slot.name}' has shape "
+                                            f"{list(x.shape)} but the unknown has shape "
+                                            f"{list(slot.shape)}"))
+                continue
+            with np.errstate(all="ignore"):
+                piece = x.ravel() if slot.transform is None else slot.transform.unconstrain(x)
+            if not np.all(np.isfinite(piece)):
+                problems.append(Problem(at, f"the initial value of '{slot.name}' lies outside "
+                                            "the unknown's declared support"))
+                continue
+            u[slot.start:slot.stop] = piece
+        if problems:
+            raise InvalidSubmission(problems)
+        return u
+
+    def report(self, u: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+        """One row of quantity_names at u; draws come from rng in a fixed order."""
+        a = self._assembly
+        values = self._report.values_at(u)
+        pieces: list[np.ndarray] = [np.ravel(values[s.node]) for s in a.slots]
+        pieces += [np.ravel(values[n]) for n in a.derived.values()]
+        pieces += [np.ravel(values[n]) for n in a.quantities.values()]
+        with np.errstate(all="ignore"):
+            for term, shape in zip(a.predictions, self._prediction_shapes, strict=True):
+                pieces.append(np.ravel(term.distribution.sample(self._args(term, values), rng,
+                                                                shape)))
+            for name in a.replicates:
+                term = self._likelihood[name]
+                pieces.append(np.ravel(term.distribution.sample(self._args(term, values), rng,
+                                                                term.shape)))
+            for name in a.pointwise:
+                term = self._likelihood[name]
+                pointwise = term.distribution.log_density(values[term.variate],
+                                                          self._args(term, values))
+                batch = term.shape[:len(term.shape) - term.distribution.event_ndim]
+                pieces.append(np.ravel(np.broadcast_to(pointwise, batch)))
+        if not pieces:
+            return np.zeros(0)
+        return np.concatenate([np.asarray(p, dtype=float) for p in pieces])
