@@ -227,6 +227,7 @@ def run_chain(runtime: Runtime, job_id: str, chain_index: int) -> str:
             progress=monitor.progress,
             should_stop=monitor.should_stop,
             checkpoint=monitor.checkpoint,
+            checkpoint_every=runtime.settings.checkpoint_every,
         )
     except Exception as error:
         monitor.close()
@@ -237,7 +238,7 @@ def run_chain(runtime: Runtime, job_id: str, chain_index: int) -> str:
         monitor.close()
         if result.completed:
             outcome = "succeeded"
-            ended = store_result(runtime, lease, result)
+            ended = store_result(runtime, lease, result, monitor)
         elif monitor.stop_reason == "lease_lost":
             return "lease_lost"
         elif monitor.stop_reason == "cancelled":
@@ -276,7 +277,7 @@ def end_chain(runtime: Runtime, lease: Lease, state: str, error: str | None) -> 
     return bool(done)
 
 
-def store_result(runtime: Runtime, lease: Lease, result: Any) -> bool:
+def store_result(runtime: Runtime, lease: Lease, result: Any, monitor: ChainMonitor) -> bool:
     """Store a finished chain's draws and statistics, only while this delivery holds the lease."""
     draws = encode_array(np.asarray(result.values, dtype=np.float64))
     stats = {name: encode_array(np.asarray(v)) for name, v in dict(result.stats).items()}
@@ -294,6 +295,8 @@ def store_result(runtime: Runtime, lease: Lease, result: Any) -> bool:
                 finished_at=now,
                 updated_at=now,
                 iteration=Chain.iterations_total,
+                phase=monitor.phase,
+                divergences=monitor.divergences,
                 adapted=_json_ready(result.adapted),
                 checkpoint=None,
             )

@@ -24,6 +24,8 @@ class Settings:
     # Folder of the serverless broker used when broker_url is "filesystem://" (one machine only).
     broker_folder: str = "var/broker"
     queue: str = "drawyard"
+    # A JSON object of extra broker transport options, merged over the ones derived here.
+    broker_transport_options: str = ""
     # Seconds; 0 means "derive from chain_time_limit" so a running chain is never redelivered.
     visibility_timeout: int = 0
     chain_time_limit: int = 3600

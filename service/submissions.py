@@ -22,9 +22,6 @@ from service.store.models import Chain, Job, JobLabel, utc_now
 from service.versions import software_versions
 from worker.problems import Problem
 
-DEFAULT_CHAINS = 4
-MAX_SEED = 2**63 - 1
-
 
 @dataclass(frozen=True)
 class Accepted:
@@ -56,7 +53,7 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
     problems = schema_problems("submission", body)
     if problems:
         raise invalid(problems)
-    problems = list(runner.check_submission(body))
+    problems = list(runner.check_submission(body, settings.max_chains, settings.max_draws))
     if problems:
         raise invalid(problems)
     stored = dict(body)
@@ -64,8 +61,6 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
     sampler.setdefault("seed", fresh_seed())
     stored["sampler"] = sampler
     resolved = dict(runner.resolve_sampler(sampler))
-    resolved.setdefault("seed", sampler["seed"])
-    resolved.setdefault("chains", sampler.get("chains", DEFAULT_CHAINS))
     problems = _limit_problems(resolved, settings)
     if problems:
         raise invalid(problems)
@@ -73,15 +68,8 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
 
 
 def _limit_problems(resolved: dict[str, Any], settings: Settings) -> list[Problem]:
+    # The engine bounds warm-up and draws one by one; this service bounds their sum as well.
     problems = []
-    if resolved["chains"] > settings.max_chains:
-        problems.append(
-            Problem(
-                "/sampler/chains",
-                f"This service runs at most {settings.max_chains} chains per job; "
-                f"{resolved['chains']} were asked for.",
-            )
-        )
     iterations = int(resolved.get("warmup_iterations", 0)) + int(resolved.get("draws", 0))
     if iterations > settings.max_draws:
         problems.append(

@@ -6,6 +6,7 @@ The database is the source of truth for job and chain state; no result backend i
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 from celery import Celery
@@ -15,6 +16,16 @@ from service.config import Settings, load_settings
 
 def broker_options(settings: Settings) -> tuple[str, dict]:
     """The broker URL and its transport options for ``settings``."""
+    url, options = _derived_broker_options(settings)
+    if settings.broker_transport_options.strip():
+        extra = json.loads(settings.broker_transport_options)
+        if not isinstance(extra, dict):
+            raise ValueError("DRAWYARD_BROKER_TRANSPORT_OPTIONS must be a JSON object")
+        options.update(extra)
+    return url, options
+
+
+def _derived_broker_options(settings: Settings) -> tuple[str, dict]:
     if settings.broker_url.startswith("filesystem://"):
         folder = Path(settings.broker_folder).resolve()
         for sub in ("queue", "processed", "control"):
