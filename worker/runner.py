@@ -162,6 +162,11 @@ def _initial_values_shape_problems(sampler: dict) -> list[Problem]:
     ]
 
 
+def _sentence(text: str) -> str:
+    text = text.strip()
+    return text[:1].upper() + text[1:] + ("" if text.endswith(".") else ".")
+
+
 def _initial_values_for(sampler: dict, chain_index: int) -> dict | None:
     values = sampler.get("initial_values")
     if values is None:
@@ -179,15 +184,21 @@ def _initial_value_problems(body: dict) -> list[Problem]:
         return []
     model = compile_model(body["model"], body.get("data") or {})
     sets = values if isinstance(values, list) else [values]
+    known = set(body["model"].get("unknowns") or {})
     problems = []
     for i, item in enumerate(sets):
         where = "/sampler/initial_values" + (f"/{i}" if isinstance(values, list) else "")
+        problems.extend(
+            Problem(f"{where}/{_escape(name)}", f"'{name}' is not an unknown of the model.")
+            for name in item
+            if name not in known
+        )
         try:
             point = np.asarray(model.unconstrain(item), dtype=np.float64)
         except InvalidSubmission as error:
+            # the model reports pointers relative to the mapping of values; root them here
             problems.extend(
-                Problem(where, f"{p.message} (at {p.pointer})" if p.pointer else p.message)
-                for p in error.problems
+                Problem(where + p.pointer, _sentence(p.message)) for p in error.problems
             )
             continue
         except (ValueError, KeyError, TypeError, IndexError) as error:
