@@ -1,0 +1,75 @@
+"""Helpers shared by the validation tests: sampler budgets, runs through the runner, and the
+"within k Monte Carlo standard errors" comparison against reference values."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+import numpy as np
+
+from worker import runner
+from worker.diagnostics import summarize
+
+METHODS = ("nuts", "hmc", "metropolis")
+TOLERANCE_MCSE = 4.0
+PROBABILITIES = {"5%": 0.05, "50%": 0.5, "95%": 0.95}
+
+# Modest budgets so the directory runs in a few minutes; random-walk Metropolis needs more draws
+# for the same effective sample size (Roberts, Gelman & Gilks 1997: its efficiency falls as 1/d).
+BUDGETS = {
+    "nuts": {"chains": 4, "warmup_iterations": 500, "draws": 1000},
+    "hmc": {"chains": 4, "warmup_iterations": 500, "draws": 1000},
+    "metropolis": {"chains": 4, "warmup_iterations": 1000, "draws": 4000},
+}
+
+
+def run(spec: dict, data: dict, method: str, seed: int, **sampler) -> dict:
+    """Run a spec through ``runner.run_in_process`` with the method's budget."""
+    settings = {"method": method, "seed": seed, **BUDGETS[method], **sampler}
+    return runner.run_in_process({"model": spec, "data": data, "sampler": settings})
+
+
+def record_of(outcome: dict, name: str) -> dict:
+    return next(r for r in outcome["summary"] if r["name"] == name)
+
+
+def column(outcome: dict, name: str) -> np.ndarray:
+    """One quantity's draws, (chains, draws)."""
+    return outcome["draws"][:, :, outcome["names"].index(name)]
+
+
+def summary_of(draws: np.ndarray, name: str = "quantity") -> dict:
+    """The summary record of a (chains, draws) array computed in the test (e.g. a transform)."""
+    return summarize(draws[:, :, None], [name])[0]
+
+
+def mismatches(record: dict, truth: Mapping[str, float], k: float = TOLERANCE_MCSE) -> list[str]:
+    """Every statistic of ``record`` further than k of its MCSE from ``truth``.
+
+    ``truth`` holds any of "mean", "sd" and quantile labels ("5%", "50%", "95%").
+    """
+    found = []
+    pairs = []
+    if "mean" in truth:
+        pairs.append(("mean", record["mean"], record["mcse_mean"], truth["mean"]))
+    if "sd" in truth:
+        pairs.append(("sd", record["sd"], record["mcse_sd"], truth["sd"]))
+    for label in PROBABILITIES:
+        if label in truth:
+            pairs.append(
+                (label, record["quantiles"][label], record["mcse_quantiles"][label], truth[label])
+            )
+    for what, estimate, mcse, expected in pairs:
+        if estimate is None or mcse is None or not abs(estimate - expected) <= k * mcse:
+            found.append(
+                f"{record['name']} {what}: estimate {estimate} vs reference {expected:.6g} "
+                f"(MCSE {mcse})"
+            )
+    return found
+
+
+def from_scipy(distribution) -> dict[str, float]:
+    """Mean, sd and the 5/50/95% quantiles of a frozen scipy.stats distribution."""
+    truth = {"mean": float(distribution.mean()), "sd": float(distribution.std())}
+    truth.update({label: float(distribution.ppf(p)) for label, p in PROBABILITIES.items()})
+    return truth
