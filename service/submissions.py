@@ -51,9 +51,13 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
     from worker import runner
 
     problems = schema_problems("submission", body)
-    if problems:
-        raise invalid(problems)
-    problems = list(runner.check_submission(body, settings.max_chains, settings.max_draws))
+    if isinstance(body, dict):
+        # The engine checks the model against its schema and then semantically, reporting every
+        # problem; ours would stop at the first layer, so the model part is left to it.
+        problems = [p for p in problems if not _under(p.pointer, "/model")]
+        problems = _merged(
+            problems, runner.check_submission(body, settings.max_chains, settings.max_draws)
+        )
     if problems:
         raise invalid(problems)
     stored = dict(body)
@@ -65,6 +69,16 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
     if problems:
         raise invalid(problems)
     return stored, resolved
+
+
+def _under(where: str, root: str) -> bool:
+    return where == root or where.startswith(root + "/")
+
+
+def _merged(first: list[Problem], second: list[Problem]) -> list[Problem]:
+    """Both lists, without a second report of a place already reported."""
+    seen = {p.pointer for p in first}
+    return first + [p for p in second if p.pointer not in seen]
 
 
 def _limit_problems(resolved: dict[str, Any], settings: Settings) -> list[Problem]:

@@ -1,0 +1,260 @@
+"""The API's views with Flask's test client, on a real SQLite store and a real Redis broker.
+
+Standards checked: RFC 9457 (problem documents: type, title, status, detail; media type
+application/problem+json), RFC 9110 (202 Accepted with Location, 413, 415, 409, 404), the IETF
+Idempotency-Key header draft (same key and body: same resource; same key, other body: 409),
+RFC 6901 (JSON pointers in the problem entries), OpenAPI 3.1 and JSON Schema 2020-12 (the served
+document). No worker runs here, so every job stays queued unless it is cancelled.
+"""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+from jsonschema import Draft202012Validator
+
+from tests.service.bodies import normal_mean, variant
+from tests.service.response_contract import check_flask
+from tests.service.store_probe import row_counts
+
+
+def post(client, body, headers=None, **kwargs):
+    response = client.post("/v1/jobs", json=body, headers=headers or {}, **kwargs)
+    return response, check_flask("POST", "/v1/jobs", response)
+
+
+def get(client, path):
+    response = client.get(path)
+    return response, check_flask("GET", path, response)
+
+
+def test_submit_stores_the_job_and_queues_one_task_per_chain(app, queue) -> None:
+    client = app.test_client()
+    response, job = post(client, normal_mean(chains=3))
+    assert response.status_code == 202
+    assert response.headers["Location"] == f"/v1/jobs/{job['id']}"
+    assert job["state"] == "queued" and [c["chain"] for c in job["chains"]] == [1, 2, 3]
+    assert all(c["iterations_total"] == 500 for c in job["chains"])
+    assert queue.length() == 3
+    assert row_counts(app)["jobs"] == 1 and row_counts(app)["chains"] == 3
+    shown, again = get(client, response.headers["Location"])
+    assert shown.status_code == 200 and again["id"] == job["id"]
+
+
+def test_a_missing_seed_is_fixed_at_submission_and_recorded(app, queue) -> None:
+    client = app.test_client()
+    body = normal_mean()
+    del body["sampler"]["seed"]
+    _, job = post(client, body)
+    _, audit = get(client, f"/v1/jobs/{job['id']}/audit")
+    assert isinstance(audit["seed"], int) and audit["settings"]["seed"] == audit["seed"]
+    # SeedSequence(seed).spawn(k): child i has the root's entropy and spawn key (i,) (numpy docs,
+    # numpy.random.SeedSequence.spawn).
+    assert [s["spawn_key"] for s in audit["chain_seeds"]] == [[0], [1]]
+    assert {s["entropy"] for s in audit["chain_seeds"]} == {audit["seed"]}
+
+
+INVALID = [
+    ("unknown top-level member", lambda b: {**b, "extra": 1}, ["/extra"]),
+    ("missing model", lambda b: {k: v for k, v in b.items() if k != "model"}, ["", "/model"]),
+    (
+        "unknown distribution",
+        lambda b: _with(b, ("model", "priors", 0, "distribution"), "nromal"),
+        ["/model/priors/0/distribution"],
+    ),
+    ("data of the wrong kind", lambda b: _with(b, ("data", "y", 2), "x"), ["/data/y"]),
+    ("too many chains", lambda b: _with(b, ("sampler", "chains"), 9), ["/sampler/chains"]),
+    (
+        "warm-up plus draws over the limit",
+        lambda b: _with(_with(b, ("sampler", "draws"), 3000), ("sampler", "warmup_iterations"),
+                        3000),
+        ["/sampler/draws"],
+    ),
+    ("label that is not a string", lambda b: _with(b, ("labels", "team"), 3), ["/labels/team"]),
+    ("unknown threshold", lambda b: {**b, "checks": {"max_rhatt": 1.1}}, ["/checks/max_rhatt"]),
+    ("seed out of range", lambda b: _with(b, ("sampler", "seed"), -1), ["/sampler/seed"]),
+]
+
+
+def _with(body, path, value):
+    out = json.loads(json.dumps(body))
+    node = out
+    for key in path[:-1]:
+        node = node[key]
+    node[path[-1]] = value
+    return out
+
+
+@pytest.mark.parametrize("case, change, pointers", INVALID, ids=[c[0] for c in INVALID])
+def test_invalid_submissions_get_pointers_and_nothing_is_stored_or_queued(
+    app, queue, case, change, pointers
+) -> None:
+    client = app.test_client()
+    response, problem = post(client, change(normal_mean()))
+    assert response.status_code == 422, problem
+    assert response.mimetype == "application/problem+json"
+    assert problem["status"] == 422
+    found = {entry["pointer"] for entry in problem["errors"]}
+    assert found & set(pointers), f"{case}: pointers {found}, expected one of {pointers}"
+    assert all(entry["message"] for entry in problem["errors"])
+    assert row_counts(app) == {"jobs": 0, "chains": 0, "events": 0}
+    assert queue.length() == 0
+
+
+def test_every_problem_is_reported_at_once(app, queue) -> None:
+    body = _with(_with(normal_mean(), ("sampler", "chains"), 99), ("labels", "team"), 1)
+    body["model"]["priors"][0]["distribution"] = "nromal"
+    response, problem = post(app.test_client(), body)
+    pointers = {e["pointer"] for e in problem["errors"]}
+    assert {"/sampler/chains", "/labels/team", "/model/priors/0/distribution"} <= pointers
+    assert queue.length() == 0
+
+
+def test_wrong_content_type_bad_json_and_oversized_bodies(app, queue) -> None:
+    client = app.test_client()
+    cases = [
+        (client.post("/v1/jobs", data="{}", content_type="text/plain"), 415),
+        (client.post("/v1/jobs", data="{not json", content_type="application/json"), 400),
+        (client.post("/v1/jobs", data=b"\xff\xfe", content_type="application/json"), 400),
+        (client.post("/v1/jobs", data="[" + "1," * 20_000 + "1]",
+                     content_type="application/json"), 413),
+    ]
+    for response, status in cases:
+        assert response.status_code == status
+        problem = check_flask("POST", "/v1/jobs", response)
+        assert problem["status"] == status and problem["type"] and problem["title"]
+    assert row_counts(app)["jobs"] == 0 and queue.length() == 0
+
+
+def test_idempotency_key_replays_the_same_job_and_refuses_another_body(app, queue) -> None:
+    client = app.test_client()
+    body = normal_mean()
+    first, job = post(client, body, {"Idempotency-Key": "nightly-2026-12-01"})
+    again, replay = post(client, body, {"Idempotency-Key": "nightly-2026-12-01"})
+    assert first.status_code == 202 and again.status_code == 200
+    assert replay["id"] == job["id"] and again.headers["Location"] == first.headers["Location"]
+    assert row_counts(app)["jobs"] == 1 and queue.length() == 2
+    other, problem = post(client, variant(body, labels={"suite": "other"}),
+                          {"Idempotency-Key": "nightly-2026-12-01"})
+    assert other.status_code == 409 and job["id"] in problem["detail"]
+    assert row_counts(app)["jobs"] == 1 and queue.length() == 2
+    # Key order and whitespace do not make a different request: the hash is of canonical JSON.
+    reordered = json.dumps(dict(reversed(list(body.items()))), indent=2)
+    same = client.post("/v1/jobs", data=reordered, content_type="application/json",
+                       headers={"Idempotency-Key": "nightly-2026-12-01"})
+    assert check_flask("POST", "/v1/jobs", same)["id"] == job["id"]
+
+
+def test_list_filters_by_state_and_label_and_pages_with_a_cursor(app, queue) -> None:
+    client = app.test_client()
+    ids = []
+    for i in range(7):
+        body = variant(normal_mean(), labels={"team": "a" if i % 2 else "b", "n": str(i)})
+        ids.append(post(client, body)[1]["id"])
+    cancelled = ids[3]
+    client.post(f"/v1/jobs/{cancelled}/cancel")
+    seen, cursor = [], None
+    while True:
+        path = "/v1/jobs" + (f"?cursor={cursor}" if cursor else "")
+        _, page = get(client, path)
+        assert len(page["jobs"]) <= 3  # page_limit of the fixture
+        seen += [j["id"] for j in page["jobs"]]
+        cursor = page["next_cursor"]
+        if cursor is None:
+            break
+    assert seen == ids[::-1]  # newest first, each job once
+    _, team_a = get(client, "/v1/jobs?label=team:a&limit=50")
+    assert [j["id"] for j in team_a["jobs"]] == [ids[5], ids[3], ids[1]]
+    _, both = get(client, "/v1/jobs?label=team:a&label=n:5&limit=50")
+    assert [j["id"] for j in both["jobs"]] == [ids[5]]
+    _, done = get(client, "/v1/jobs?state=cancelled&limit=50")
+    assert [j["id"] for j in done["jobs"]] == [cancelled]
+    _, either = get(client, "/v1/jobs?state=cancelled,queued&limit=50")
+    assert len(either["jobs"]) == 7
+    for bad in ("/v1/jobs?state=finished", "/v1/jobs?cursor=zzz", "/v1/jobs?label=nocolon",
+                "/v1/jobs?limit=0", "/v1/jobs?limit=x"):
+        response, problem = get(client, bad)
+        assert response.status_code == 400 and problem["errors"][0]["parameter"]
+
+
+def test_cancel_of_a_queued_job_ends_it_and_its_chains(app, queue) -> None:
+    client = app.test_client()
+    _, job = post(client, normal_mean(chains=2))
+    response = client.post(f"/v1/jobs/{job['id']}/cancel")
+    cancelled = check_flask("POST", f"/v1/jobs/{job['id']}/cancel", response)
+    assert cancelled["state"] == "cancelled" and cancelled["cancel_requested"] is True
+    assert [c["state"] for c in cancelled["chains"]] == ["cancelled", "cancelled"]
+    _, audit = get(client, f"/v1/jobs/{job['id']}/audit")
+    kinds = [(e["kind"], e["state"]) for e in audit["events"]]
+    assert kinds[0] == ("job_state", "queued") and kinds[-1] == ("job_state", "cancelled")
+    assert ("cancel_requested", None) in kinds
+    # Cancelling again changes nothing and records nothing more.
+    again = check_flask("POST", f"/v1/jobs/{job['id']}/cancel",
+                        client.post(f"/v1/jobs/{job['id']}/cancel"))
+    assert again["state"] == "cancelled"
+    assert len(get(client, f"/v1/jobs/{job['id']}/audit")[1]["events"]) == len(kinds)
+
+
+def test_results_of_an_unfinished_job_are_refused_and_unknown_jobs_are_404(app, queue) -> None:
+    client = app.test_client()
+    _, job = post(client, normal_mean())
+    for part in ("summary", "draws", "sampler-stats", "diagnostics"):
+        response, problem = get(client, f"/v1/jobs/{job['id']}/{part}")
+        assert response.status_code == 409 and response.headers["Retry-After"]
+    for part in ("", "/summary", "/audit"):
+        response, problem = get(client, f"/v1/jobs/{'0' * 32}{part}")
+        assert response.status_code == 404 and problem["status"] == 404
+    response = client.get("/v1/no-such-thing")
+    assert response.status_code == 404 and response.mimetype == "application/problem+json"
+
+
+def test_openapi_document_is_served_and_self_consistent(app) -> None:
+    """OpenAPI 3.1 (section 4.8.24: Schema Objects are JSON Schema 2020-12) and RFC 6901."""
+    client = app.test_client()
+    document = client.get("/v1/openapi.json").get_json()
+    assert document["openapi"].startswith("3.1")
+    for name, schema in document["components"]["schemas"].items():
+        Draft202012Validator.check_schema(schema)
+        assert "$id" not in schema, name
+
+    def resolve(ref: str):
+        node = document
+        for token in ref.removeprefix("#/").split("/"):
+            node = node[token.replace("~1", "/").replace("~0", "~")]
+        return node
+
+    def walk(node):
+        if isinstance(node, dict):
+            for key, value in node.items():
+                if key == "$ref":
+                    assert value.startswith("#/") and resolve(value) is not None, value
+                else:
+                    walk(value)
+        elif isinstance(node, list):
+            for item in node:
+                walk(item)
+
+    walk(document)
+    routes = {
+        (method.lower(), rule.rule.replace("<job_id>", "{job_id}"))
+        for rule in app.url_map.iter_rules()
+        if rule.rule.startswith("/v1/") and rule.rule != "/v1/openapi.json"
+        for method in rule.methods - {"HEAD", "OPTIONS"}
+    }
+    documented = {(m, p) for p, ops in document["paths"].items() for m in ops}
+    assert routes == documented
+
+
+def test_readiness_reflects_the_broker(app, sqlite_store) -> None:
+    client = app.test_client()
+    response, health = get(client, "/v1/health/ready")
+    assert response.status_code == 200 and health["checks"]["broker"]["ok"]
+    assert get(client, "/v1/health/live")[0].status_code == 200
+    from service.app import create_app
+
+    # A port nothing listens on: 1 is reserved (tcpmux) and closed on this machine.
+    unreachable = create_app({"database_url": sqlite_store, "broker_url": "redis://127.0.0.1:1/0"})
+    response, health = get(unreachable.test_client(), "/v1/health/ready")
+    assert response.status_code == 503 and health["status"] == "unavailable"
+    assert health["checks"]["database"]["ok"] and not health["checks"]["broker"]["ok"]
