@@ -47,6 +47,7 @@ class DistributionTerm:
     name: str | None = None
     shape: tuple[int, ...] = ()
     at: str = ""
+    sign_guaranteed: bool = False
 
 
 @dataclass
@@ -65,7 +66,8 @@ class Assembly:
 
     def terms(self) -> list[Term]:
         return [
-            Term(t.variate, t.distribution, t.argument_names, t.argument_nodes)
+            Term(t.variate, t.distribution, t.argument_names, t.argument_nodes,
+                 t.sign_guaranteed)
             for t in (*self.priors, *self.likelihood)
         ]
 
@@ -351,8 +353,12 @@ class _Assembler:
             if not self.elementwise_shapes(context, at, distribution, *args, shape,
                                            f"'{target}'"):
                 continue
+            declared = self.declared_unknowns.get(target, {})
+            guaranteed = (declared.get("lower") is not None and declared["lower"] >= 0) or \
+                declared.get("structure") in ("positive_ordered", "simplex")
             self.out.priors.append(DistributionTerm(context, distribution, *args,
-                                                    variate=variate, at=pointer(*at)))
+                                                    variate=variate, at=pointer(*at),
+                                                    sign_guaranteed=guaranteed))
         return covered
 
     def unknowns_behind(self, derived_name: str) -> set[str]:

@@ -20,7 +20,7 @@ def _reduce_to(grad: Array, shape: tuple[int, ...]) -> Array:
     """Undo scalar broadcasting: the only broadcasting the language allows."""
     if grad.shape == shape:
         return grad
-    return np.asarray(np.sum(grad))
+    return grad.sum()
 
 
 class Operation:
@@ -70,8 +70,17 @@ class Multiply(Operation):
 
     def backward(self, g, inputs, out, needs):
         a, b = inputs
-        return [_reduce_to(g * b, a.shape) if needs[0] else None,
-                _reduce_to(g * a, b.shape) if needs[1] else None]
+        return [_product_gradient(g, b, a.shape) if needs[0] else None,
+                _product_gradient(g, a, b.shape) if needs[1] else None]
+
+
+def _product_gradient(g: Array, other: Array, shape: tuple[int, ...]) -> Array:
+    """Reduced g * other: for a scalar times a vector, one dot product instead of two passes."""
+    if shape == g.shape:
+        return g * other
+    if other.shape == g.shape:
+        return np.vdot(g, other)
+    return (g * other).sum()
 
 
 class Divide(Operation):

@@ -8,12 +8,14 @@ products over one list of value slots; it builds no dictionaries of names and in
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from .graph import Graph
+from .term_kernels import term_kernel
 
 
 @dataclass(frozen=True)
@@ -36,6 +38,7 @@ class Term:
     distribution: Any
     argument_names: tuple[str, ...]
     argument_nodes: tuple[int, ...]
+    sign_guaranteed: bool = False  # the variate cannot be negative (a lower bound of 0 or more)
 
 
 class Plan:
@@ -53,7 +56,10 @@ class Plan:
         wanted.update(extra_outputs)
         needed = _ancestors(graph, wanted)
         self.size = len(nodes)
-        self._template: list[Any] = [n.value for n in nodes]
+        # Scalars travel as numpy scalars, not 0-d arrays: their arithmetic costs far less.
+        self._template: list[Any] = [
+            n.value[()] if n.value is not None and n.value.ndim == 0 else n.value for n in nodes
+        ]
         self._values: list[Any] = list(self._template)
         # Steps: (output node, operation, input nodes, which inputs need a gradient).
         self.steps = [
@@ -62,22 +68,30 @@ class Plan:
             for i in sorted(needed)
             if nodes[i].operation is not None and not nodes[i].constant
         ]
-        self.backward_steps = list(reversed(self.steps))
-        self.terms = [
-            (
-                term.variate,
-                term.distribution,
-                term.argument_names,
-                term.argument_nodes,
-                frozenset(
-                    [name for name, node in zip(term.argument_names, term.argument_nodes,
-                                                strict=True)
-                     if not nodes[node].constant]
-                    + (["x"] if not nodes[term.variate].constant else [])
-                ),
-            )
-            for term in terms
+        self._backward_plan = [
+            (out, operation, inputs, needs,
+             tuple((k, i) for k, (i, need) in enumerate(zip(inputs, needs, strict=True)) if need))
+            for out, operation, inputs, needs in reversed(self.steps)
         ]
+        self._slot_plan = [
+            (s.node, s.start, s.stop, s.shape, None if s.transform is None else s.transform.forward)
+            for s in slots
+        ]
+
+        # Terms that involve no unknown add the same number at every point: settle it now.
+        self.constant_total = 0.0
+        self.terms = []
+        for term in terms:
+            if nodes[term.variate].constant and all(nodes[k].constant
+                                                    for k in term.argument_nodes):
+                args = dict(zip(term.argument_names, (nodes[k].value for k in term.argument_nodes),
+                                strict=True))
+                with np.errstate(all="ignore"):
+                    self.constant_total += float(np.sum(
+                        term.distribution.log_density(nodes[term.variate].value, args)))
+                continue
+            self.terms.append(term_kernel(term.variate, term.distribution, term.argument_names,
+                                          term.argument_nodes, graph, term.sign_guaranteed))
 
     # ---- forward
     def _forward(self, u: np.ndarray) -> list[Any]:
@@ -101,73 +115,62 @@ class Plan:
         u = np.asarray(u, dtype=float)
         with np.errstate(all="ignore"):
             v = self._values
-            total = 0.0
-            for slot in self.slots:
-                piece = u[slot.start:slot.stop]
-                if slot.transform is None:
-                    v[slot.node] = piece.reshape(slot.shape)
+            total = self.constant_total
+            for node, start, stop, shape, forward in self._slot_plan:
+                if forward is None:
+                    v[node] = u[start] if not shape else u[start:stop].reshape(shape)
                 else:
-                    v[slot.node], log_jacobian, _ = slot.transform.forward(piece)
+                    x, log_jacobian, _ = forward(u[start:stop])
+                    v[node] = x if shape else x[()]
                     total += log_jacobian
             for out, operation, inputs, _ in self.steps:
                 v[out] = operation.forward(*[v[i] for i in inputs])
-            for variate, distribution, names, nodes, _ in self.terms:
-                args = {name: v[node] for name, node in zip(names, nodes, strict=True)}
-                total += float(np.sum(distribution.log_density(v[variate], args)))
-        return float(total) if np.isfinite(total) else -np.inf
+            for term in self.terms:
+                total += term.value(v)
+        return float(total) if math.isfinite(total) else -math.inf
 
     def log_density_and_gradient(self, u: np.ndarray) -> tuple[float, np.ndarray]:
         u = np.asarray(u, dtype=float)
         with np.errstate(all="ignore"):
             v = self._values
-            total = 0.0
+            total = self.constant_total
             pullbacks = []
-            for slot in self.slots:
-                piece = u[slot.start:slot.stop]
-                if slot.transform is None:
-                    v[slot.node] = piece.reshape(slot.shape)
-                    pullbacks.append(None)
+            for node, start, stop, shape, forward in self._slot_plan:
+                if forward is None:
+                    v[node] = u[start] if not shape else u[start:stop].reshape(shape)
                 else:
-                    v[slot.node], log_jacobian, pullback = slot.transform.forward(piece)
+                    x, log_jacobian, pullback = forward(u[start:stop])
+                    v[node] = x if shape else x[()]
                     total += log_jacobian
                     pullbacks.append(pullback)
             for out, operation, inputs, _ in self.steps:
                 v[out] = operation.forward(*[v[i] for i in inputs])
             adjoint: list[Any] = [None] * self.size
-            for variate, distribution, names, nodes, wrt in self.terms:
-                args = {name: v[node] for name, node in zip(names, nodes, strict=True)}
-                if not wrt:
-                    total += float(np.sum(distribution.log_density(v[variate], args)))
-                    continue
-                pointwise, grads = distribution.log_density_and_gradients(v[variate], args, wrt)
-                total += float(np.sum(pointwise))
-                for name, node in zip(names, nodes, strict=True):
-                    if name in wrt:
-                        g = grads[name]
-                        adjoint[node] = g if adjoint[node] is None else adjoint[node] + g
-                if "x" in wrt:
-                    g = grads["x"]
-                    adjoint[variate] = g if adjoint[variate] is None else adjoint[variate] + g
-            for out, operation, inputs, needs in self.backward_steps:
+            for term in self.terms:
+                total += term.run(v, adjoint)
+            for out, operation, inputs, needs, targets in self._backward_plan:
                 g = adjoint[out]
                 if g is None:
                     continue
                 grads_in = operation.backward(g, [v[i] for i in inputs], v[out], needs)
-                for i, gi, need in zip(inputs, grads_in, needs, strict=True):
-                    if need:
-                        adjoint[i] = gi if adjoint[i] is None else adjoint[i] + gi
-            gradient = np.zeros(self.dimension)
-            for slot, pullback in zip(self.slots, pullbacks, strict=True):
-                g = adjoint[slot.node]
-                if pullback is None:
-                    if g is not None:
-                        gradient[slot.start:slot.stop] = np.ravel(g)
+                for k, i in targets:
+                    previous = adjoint[i]
+                    adjoint[i] = grads_in[k] if previous is None else previous + grads_in[k]
+            gradient = np.empty(self.dimension)
+            k = 0
+            for node, start, stop, shape, forward in self._slot_plan:
+                g = adjoint[node]
+                if forward is None:
+                    if not shape:
+                        gradient[start] = 0.0 if g is None else g
+                    else:
+                        gradient[start:stop] = 0.0 if g is None else g.reshape(-1)
                 else:
-                    gradient[slot.start:slot.stop] = pullback(
-                        np.zeros(slot.shape) if g is None else g
-                    )
-            if not (np.isfinite(total) and np.all(np.isfinite(gradient))):
-                return -np.inf, np.zeros(self.dimension)
+                    gradient[start:stop] = pullbacks[k](np.zeros(shape) if g is None else g)
+                    k += 1
+            # one sum catches NaN or infinity anywhere in the value or the gradient
+            if not math.isfinite(total + float(gradient.sum())):
+                return -math.inf, np.zeros(self.dimension)
         return float(total), gradient
 
 
