@@ -6,6 +6,7 @@ import argparse
 import os
 import signal
 import sys
+import textwrap
 import time
 from collections.abc import Sequence
 from pathlib import Path
@@ -16,10 +17,12 @@ from service.local_stack import CELERY_APP, LocalStack, StartupError
 BANNER_WIDTH = 78
 
 
-def loud(lines: Sequence[str]) -> str:
+def loud(paragraphs: Sequence[str]) -> str:
     """A framed block that stands out in a terminal full of log lines."""
     bar = "!" * BANNER_WIDTH
-    return "\n".join([bar, *(f"!! {line}" for line in lines), bar])
+    body = [f"!! {line}" for text in paragraphs
+            for line in textwrap.wrap(text, width=BANNER_WIDTH - 3)]
+    return "\n".join([bar, *body, bar])
 
 
 def _add_serve(commands: argparse._SubParsersAction) -> None:
@@ -131,12 +134,12 @@ def run_serve(args: argparse.Namespace) -> int:
         stack.stop()
         print(f"drawyard serve: could not start: {error}", file=sys.stderr)
         return 1
-    if stack.broker_url == "filesystem://":
-        print(loud([stack.broker_note]), flush=True)
+    if stack.broker_warning:
+        print(loud([stack.broker_warning]), flush=True)
     print(
         f"drawyard is serving at {stack.base_url}\n"
         f"  store:   {stack.database_url}\n"
-        f"  broker:  {stack.broker_note if stack.redis else stack.broker_url}\n"
+        f"  broker:  {stack.broker_note}\n"
         f"  workers: {args.workers}\n"
         f"  logs:    {stack.var_dir / 'logs'}\n"
         f"  try:     curl {stack.base_url}/v1/health/ready\n"

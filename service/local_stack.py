@@ -67,6 +67,11 @@ class ChildProcess:
     def alive(self) -> bool:
         return self.popen.poll() is None
 
+    def signal_leader(self, signum: int) -> None:
+        """Signal only the launched process, which then shuts down what it forked its own way."""
+        with contextlib.suppress(ProcessLookupError, PermissionError):
+            os.kill(self.popen.pid, signum)
+
     def signal_group(self, signum: int) -> None:
         """Send a signal to the child and everything it forked."""
         with contextlib.suppress(ProcessLookupError, PermissionError):
@@ -82,7 +87,9 @@ class ChildProcess:
     def stop(self) -> None:
         """Ask politely with the stop signal, then SIGKILL the group after the grace period."""
         if self.alive():
-            self.signal_group(self.stop_signal)
+            # Only the leader: Celery's main process warm-stops its pool, gunicorn's arbiter its
+            # workers, the postmaster its backends; signalling them all at once breaks that order.
+            self.signal_leader(self.stop_signal)
             try:
                 self.popen.wait(timeout=self.grace_seconds)
             except subprocess.TimeoutExpired:
@@ -323,6 +330,7 @@ class LocalStack:
     worker_processes: list[ChildProcess] = field(default_factory=list)
     broker_url: str = ""
     broker_note: str = ""
+    broker_warning: str = ""
 
     @property
     def base_url(self) -> str:
@@ -341,7 +349,8 @@ class LocalStack:
             folder.mkdir(parents=True, exist_ok=True)
             self.broker_url = "filesystem://"
             env["DRAWYARD_BROKER_FOLDER"] = str(folder)
-            self.broker_note = (
+            self.broker_note = f"filesystem broker in {folder} (single machine only)"
+            self.broker_warning = (
                 f"SERVERLESS FILESYSTEM BROKER in {folder}: SINGLE MACHINE ONLY. Workers on other "
                 "machines cannot see these queues; install redis-server or set a redis:// broker "
                 "for anything beyond one machine."
@@ -387,7 +396,7 @@ class LocalStack:
     def stop(self) -> None:
         """Workers first (so no chain is left holding the broker), then the API, then the broker."""
         for worker in self.worker_processes:
-            worker.signal_group(worker.stop_signal)
+            worker.signal_leader(worker.stop_signal)
         for worker in self.worker_processes:
             worker.stop()
         if self.api is not None:

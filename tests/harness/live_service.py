@@ -54,7 +54,7 @@ class LiveService:
 
     def stop(self) -> None:
         for worker in self.workers:
-            worker.signal_group(worker.stop_signal)
+            worker.signal_leader(worker.stop_signal)
         for worker in self.workers:
             worker.stop()
         self.api.stop()
