@@ -233,7 +233,10 @@ class Chain:
                 )
                 self.scale_updates = 0
         warmup = self.settings.warmup_iterations
-        average_from = self.schedule.final_start if self._windows else warmup // 2
+        # Polyak-Ruppert average over the second half of the stretch with the final proposal
+        # shape, leaving out the restart's first, large-gain iterations.
+        settled = self.schedule.final_start if self._windows else 0
+        average_from = (settled + warmup) // 2
         if i >= average_from:
             self.average_sum += self.proposal.log_scale
             self.average_count += 1
