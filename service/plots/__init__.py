@@ -1,0 +1,1 @@
+"""Server-side plots of a finished job: traces, rank histograms, densities, pair scatter (SVG)."""

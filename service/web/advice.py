@@ -1,0 +1,79 @@
+"""Plain-words explanations and the usual remedies for each check of the quality verdict.
+
+The thresholds and their meaning follow Vehtari, Gelman, Simpson, Carpenter & Buerkner (2021),
+"Rank-normalization, folding, and localization", sec. 4-5 (R-hat below 1.01, ESS above about 400),
+and Betancourt (2016), arXiv:1604.00695 (E-BFMI); the remedies are common practice.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+
+@dataclass(frozen=True)
+class Advice:
+    title: str
+    meaning: str
+    remedy: str
+
+
+ADVICE: dict[str, Advice] = {
+    "max_rhat": Advice(
+        "The chains disagree (R-hat too high)",
+        "Chains started in different places should end up describing the same distribution. "
+        "Here they do not, so the draws are not yet a sample from the posterior.",
+        "Look at the trace plot of each quantity named below: a chain stuck apart from the "
+        "others, or chains drifting, shows where. Run a longer warm-up, give better initial "
+        "values, or reparameterise the model; a posterior with several separate modes needs a "
+        "different model or method.",
+    ),
+    "min_bulk_ess": Advice(
+        "Too few effective draws for the centre (bulk ESS too low)",
+        "Successive draws are strongly correlated, so the draws carry less information than "
+        "their number suggests and means and medians are uncertain.",
+        "Run longer (more draws), or reparameterise so the sampler moves more freely (for "
+        "example the non-centred form of a hierarchical model).",
+    ),
+    "min_tail_ess": Advice(
+        "Too few effective draws in the tails (tail ESS too low)",
+        "The tails of the distribution are explored slowly, so the 5% and 95% quantiles and "
+        "other tail summaries are uncertain.",
+        "Run longer (more draws), or reparameterise; heavy tails often respond to a different "
+        "scale for the quantity.",
+    ),
+    "max_divergences": Advice(
+        "Divergent transitions",
+        "The sampler's simulated trajectories broke down in some region of the posterior, "
+        "usually where its curvature changes sharply; that region is under-explored, so the "
+        "draws may be biased.",
+        "Reparameterise (for a hierarchical model, the non-centred form), or raise the target "
+        "acceptance (for example to 0.95) so the sampler takes smaller steps. The scatter plot "
+        "marks the divergent draws: where they cluster is where the geometry is hard.",
+    ),
+    "min_ebfmi": Advice(
+        "Low energy fraction of missing information (E-BFMI)",
+        "Between trajectories the sampler's energy changes too little compared with its spread, "
+        "so the chain moves slowly through the range of the posterior, especially its tails.",
+        "Reparameterise, often the scale parameters of a hierarchical model; a longer warm-up "
+        "seldom helps.",
+    ),
+}
+
+FALLBACK = Advice(
+    "A check outside its threshold",
+    "This check of the verdict was not met.",
+    "Read the message below and the diagnostics before using these draws.",
+)
+
+
+def grouped_failures(verdict: dict[str, Any] | None) -> list[dict[str, Any]]:
+    """Failed checks grouped by kind, in the order they first appear, with advice for each."""
+    groups: dict[str, dict[str, Any]] = {}
+    for failure in (verdict or {}).get("failed_checks", []):
+        check = failure.get("check", "")
+        group = groups.setdefault(
+            check, {"check": check, "advice": ADVICE.get(check, FALLBACK), "failures": []}
+        )
+        group["failures"].append(failure)
+    return list(groups.values())

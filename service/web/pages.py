@@ -1,0 +1,154 @@
+"""The pages: jobs list, submit form, job page (progress, verdict, summary, plots, downloads)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from flask import redirect, render_template, request, url_for
+from werkzeug.wrappers import Response
+
+from service.demo import demo_submission
+from service.job_queries import JobFilter, cancel_job, get_job, list_jobs
+from service.job_resources import job_resource
+from service.plots.job_arrays import quantity_names
+from service.problem_details import ApiProblem
+from service.store.models import JOB_STATES, TERMINAL_STATES, Chain, Job
+from service.submissions import submit
+from service.views.context import runtime
+from service.web.advice import grouped_failures
+from service.web.blueprint import web
+from service.web.submission_form import (
+    METHODS,
+    FormState,
+    build_body,
+    excerpt,
+    from_submission,
+    place_problems,
+    problem_summary,
+    read_form,
+)
+
+PAGE_SIZE = 25
+# Small settings for the demo button: the page is for trying the service, and a run this size
+# finishes in well under a minute on two cores; the analyst can raise them before submitting.
+DEMO_SETTINGS = {"chains": 4, "warmup": 300, "draws": 300}
+DOWNLOADS = (
+    ("Draws (CSV)", "draws", "csv"),
+    ("Draws (JSON)", "draws", "json"),
+    ("Sampler statistics (CSV)", "sampler-stats", "csv"),
+    ("Sampler statistics (JSON)", "sampler-stats", "json"),
+    ("Summary (JSON)", "summary", None),
+    ("Diagnostics (JSON)", "diagnostics", None),
+    ("Audit record (JSON)", "audit", None),
+)
+
+
+def _job_row(job: Job, chains: list[Chain]) -> dict[str, Any]:
+    row = job_resource(job, chains)
+    row["chains_done"] = sum(1 for c in chains if c.state in TERMINAL_STATES)
+    return row
+
+
+@web.get("/")
+def home() -> Response:
+    return redirect(url_for("web.jobs_page"))
+
+
+@web.get("/jobs")
+def jobs_page() -> str:
+    state = request.args.get("state", "")
+    label = request.args.get("label", "").strip()
+    cursor = request.args.get("cursor") or None
+    filter_problems: dict[str, str] = {}
+    rows: list[dict[str, Any]] = []
+    next_cursor = None
+    try:
+        where = JobFilter.parse([state] if state else [], [label] if label else [])
+        page, next_cursor = list_jobs(runtime(), where, PAGE_SIZE, cursor)
+        rows = [_job_row(job, chains) for job, chains in page]
+    except ApiProblem as problem:
+        if problem.status != 400:
+            raise
+        for error in problem.errors:
+            filter_problems[error.get("parameter", "")] = error.get("message", problem.detail)
+    return render_template(
+        "jobs.html", rows=rows, states=JOB_STATES, state=state, label=label,
+        next_cursor=next_cursor, filter_problems=filter_problems, filtered=bool(state or label),
+    )
+
+
+def _pick(names: list[str], wanted: str | None, fallback: str) -> str:
+    return wanted if wanted in names else fallback
+
+
+@web.get("/jobs/<job_id>")
+def job_page(job_id: str) -> str:
+    job, chains = get_job(runtime(), job_id)
+    context: dict[str, Any] = {
+        "job": job_resource(job, chains),
+        "terminal": job.state in TERMINAL_STATES,
+    }
+    if job.state == "succeeded":
+        names = quantity_names(runtime(), chains)
+        summary = job.summary or []
+        failed = {f.get("quantity") for f in (job.verdict or {}).get("failed_checks", [])}
+        first = names[0] if names else ""
+        second = names[1] if len(names) > 1 else first
+        context.update(
+            summary=summary,
+            quantile_keys=list(summary[0]["quantiles"]) if summary else [],
+            failed_quantities=failed,
+            verdict=job.verdict or {"passed": False, "failed_checks": []},
+            groups=grouped_failures(job.verdict),
+            names=names,
+            quantity=_pick(names, request.args.get("quantity"), first),
+            x_name=_pick(names, request.args.get("x"), first),
+            y_name=_pick(names, request.args.get("y"), second),
+            downloads=DOWNLOADS,
+        )
+    return render_template("job.html", **context)
+
+
+@web.post("/jobs/<job_id>/cancel")
+def cancel_page(job_id: str) -> Response:
+    cancel_job(runtime(), job_id)
+    return redirect(url_for("web.job_page", job_id=job_id), 303)
+
+
+def _form_page(state: FormState, status: int = 200) -> tuple[str, int]:
+    excerpts = {
+        name: excerpt(text, state.problems.get(name, []))
+        for name, text in (("model", state.model_text), ("data", state.data_text))
+    }
+    page = render_template("submit.html", form=state, methods=METHODS, excerpts=excerpts,
+                           demo=DEMO_SETTINGS, summary=problem_summary(state))
+    return page, status
+
+
+@web.get("/submit")
+def submit_page() -> tuple[str, int]:
+    if request.args.get("demo") == "bakery":
+        body = demo_submission(
+            DEMO_SETTINGS["chains"], DEMO_SETTINGS["warmup"], DEMO_SETTINGS["draws"]
+        )
+        return _form_page(from_submission(body))
+    return _form_page(FormState())
+
+
+@web.post("/submit")
+def submit_form() -> tuple[str, int] | Response:
+    state = read_form(request.form, request.files)
+    body = build_body(state)
+    if body is None:
+        return _form_page(state, 422)
+    try:
+        # The form's token is the idempotency key: submitting the same form twice (a double
+        # click, a reload) makes one job.
+        accepted = submit(runtime(), body, state.token)
+    except ApiProblem as problem:
+        if problem.status == 422:
+            place_problems(state, body, problem.errors)
+        else:
+            state.general.append(problem.detail)
+        return _form_page(state, problem.status)
+    return redirect(url_for("web.job_page", job_id=accepted.job.id), 303)
