@@ -18,6 +18,7 @@ venv: $(STAMP)
 # then pytest starts private instances on free ports and stops them at the end.
 test: $(STAMP)
 	bash tests/harness/install_services.sh
+	bash tests/harness/install_browser.sh
 	$(PY) -m pytest -q -ra --durations=15 -p no:cacheprovider tests
 
 lint: $(STAMP)

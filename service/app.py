@@ -14,6 +14,7 @@ from service.runtime import build_runtime
 from service.views.health import health
 from service.views.jobs import jobs
 from service.views.results import results
+from service.web import web
 
 
 def create_app(config: Mapping[str, Any] | None = None) -> Flask:
@@ -24,7 +25,7 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app.json.sort_keys = False
     runtime = build_runtime(settings)
     app.extensions["drawyard"] = runtime
-    for blueprint in (jobs, results, health):
+    for blueprint in (jobs, results, health, web):
         app.register_blueprint(blueprint)
 
     @app.errorhandler(ApiProblem)
