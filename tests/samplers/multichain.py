@@ -13,7 +13,6 @@ def run_chains(
 ) -> tuple[np.ndarray, list[ChainOutput]]:
     """Draws as (chains, draws, dimension) and each chain's output."""
     outputs = [
-        Chain(target, settings, child).run()
-        for child in np.random.SeedSequence(seed).spawn(chains)
+        Chain(target, settings, child).run() for child in np.random.SeedSequence(seed).spawn(chains)
     ]
     return np.stack([out.draws for out in outputs]), outputs

@@ -44,7 +44,8 @@ def test_dense_metric_recovers_covariance_and_saves_gradients() -> None:
     diagonal, diagonal_cost = run("diagonal")
     print(
         f"gradient evaluations per effective draw (minimum bulk-ESS over 100 coordinates): "
-        f"diagonal {diagonal_cost:.1f}, dense {dense_cost:.1f}, ratio {diagonal_cost / dense_cost:.1f}"
+        f"diagonal {diagonal_cost:.1f}, dense {dense_cost:.1f}, "
+        f"ratio {diagonal_cost / dense_cost:.1f}"
     )
     estimate = np.array(dense.adapted["inverse_metric"])
     window = 400

@@ -40,7 +40,6 @@ STAT_TYPES: dict[str, dict[str, type]] = {
 }  # fmt: skip
 
 PROGRESS_CALLS = 100  # progress is reported about every 1% of iterations, and at the end
-LOG_STEP_LIMIT = 700.0  # keeps exp(log step) a positive finite float whatever adaptation does
 LOG_SCALE_LIMIT = 50.0
 
 ProgressCallback = Callable[[str, int, int], None]
@@ -197,9 +196,7 @@ class Chain:
             column[row] = stats[name]
 
     def _adapt_hamiltonian(self, i: int, acceptance: float) -> None:
-        self.dual.update(acceptance)
-        self.dual.log_step = min(max(self.dual.log_step, -LOG_STEP_LIMIT), LOG_STEP_LIMIT)
-        self.step_size = math.exp(self.dual.log_step)
+        self.step_size = self.dual.update(acceptance)
         if self._windows and self.schedule.in_window(i):
             self.estimator.add(self.state.position)
         if i + 1 in self._windows:

@@ -23,6 +23,15 @@ from worker.samplers.target import Target
 GAMMA = 0.05
 T0 = 10.0
 KAPPA = 0.75
+# Step sizes are kept within [1e-8, 1e8] (in units of the metric). Below the floor a step no
+# longer moves a position of order one in double precision, so a target on which every step
+# fails would otherwise shrink the step until trajectories stand still and never turn.
+MIN_LOG_STEP = math.log(1e-8)
+MAX_LOG_STEP = math.log(1e8)
+
+
+def clamp_log_step(log_step: float) -> float:
+    return min(max(log_step, MIN_LOG_STEP), MAX_LOG_STEP)
 
 
 @dataclass
@@ -46,7 +55,7 @@ class DualAveraging:
         t = self.iteration
         weight = 1.0 / (t + T0)
         self.mean_error = (1.0 - weight) * self.mean_error + weight * (self.target - acceptance)
-        self.log_step = self.mu - math.sqrt(t) / GAMMA * self.mean_error
+        self.log_step = clamp_log_step(self.mu - math.sqrt(t) / GAMMA * self.mean_error)
         eta = t**-KAPPA
         self.log_step_average = eta * self.log_step + (1.0 - eta) * self.log_step_average
         return math.exp(self.log_step)
@@ -92,5 +101,8 @@ def initial_step_size(
     for _ in range(MAX_HEURISTIC_ROUNDS):
         if direction * log_acceptance(eps) <= -direction * math.log(2.0):
             break
-        eps *= 2.0**direction
+        next_eps = math.exp(clamp_log_step(math.log(eps) + direction * math.log(2.0)))
+        if next_eps == eps:
+            break
+        eps = next_eps
     return eps

@@ -1,0 +1,83 @@
+"""Snapshot and restore: a chain resumed from any iteration makes exactly the uninterrupted draws.
+
+The requirement is exact (bitwise) equality, so the comparison is array_equal, not a tolerance.
+Stopping points cover warm-up start, the initial fast stretch, both sides of every window boundary
+of a 200-iteration warm-up (windows [30, 40), [40, 60), [60, 100), [100, 180)), the end of warm-up,
+and sampling.
+"""
+
+from __future__ import annotations
+
+import io
+
+import numpy as np
+import pytest
+
+from tests.samplers.targets import Gaussian
+from worker.samplers import Chain, SamplerSettings, SnapshotError
+from worker.samplers.metric_adaptation import warmup_schedule
+
+STOPS = [0, 1, 17, 29, 30, 31, 39, 40, 41, 99, 100, 101, 179, 180, 181, 199, 200, 201, 263]
+
+
+def target() -> Gaussian:
+    covariance = np.array([[1.0, 0.6, 0.0], [0.6, 2.0, -0.3], [0.0, -0.3, 0.5]])
+    return Gaussian(np.array([0.5, -1.0, 2.0]), covariance)
+
+
+def same_output(a, b) -> bool:
+    return (
+        np.array_equal(a.draws, b.draws)
+        and all(np.array_equal(a.stats[k], b.stats[k]) for k in a.stats)
+        and all(np.array_equal(a.warmup_stats[k], b.warmup_stats[k]) for k in a.warmup_stats)
+        and a.adapted == b.adapted
+        and a.completed == b.completed
+    )
+
+
+def test_schedule_has_the_boundaries_the_stops_straddle() -> None:
+    assert warmup_schedule(200).windows == ((30, 40), (40, 60), (60, 100), (100, 180))
+
+
+@pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
+@pytest.mark.parametrize("metric", ["diagonal", "dense", "unit"])
+def test_resume_anywhere_gives_identical_draws(method: str, metric: str) -> None:
+    settings = SamplerSettings(method=method, metric=metric, warmup_iterations=200, draws=100)
+    seed = np.random.SeedSequence(77)
+    reference = Chain(target(), settings, seed).run()
+    for stop in STOPS:
+        first = Chain(target(), settings, seed)
+        partial = first.run(should_stop=lambda c=first, s=stop: c.iteration >= s)
+        assert partial.completed is False
+        resumed = Chain.restore(target(), first.snapshot()).run()
+        assert same_output(resumed, reference), f"{method}/{metric}: differs after stop {stop}"
+
+
+def test_checkpoint_blobs_resume_exactly_and_a_snapshot_can_be_resumed_twice() -> None:
+    settings = SamplerSettings(warmup_iterations=150, draws=100)
+    seed = np.random.SeedSequence(78)
+    blobs: list[bytes] = []
+    reference = Chain(target(), settings, seed).run(checkpoint=blobs.append, checkpoint_every=40)
+    assert len(blobs) == 6  # after iterations 40, 80, ..., 240; none at the end (250)
+    for blob in blobs:
+        for _ in range(2):
+            assert same_output(Chain.restore(target(), blob).run(), reference)
+
+
+def test_snapshot_is_an_npz_without_pickled_objects() -> None:
+    """DEVELOPERS.md: snapshots are .npz archives readable with allow_pickle=False plus JSON."""
+    chain = Chain(
+        target(), SamplerSettings(warmup_iterations=20, draws=10), np.random.SeedSequence(1)
+    )
+    chain.run()
+    with np.load(io.BytesIO(chain.snapshot()), allow_pickle=False) as archive:
+        assert "header_json" in archive.files
+        assert all(archive[name].dtype != object for name in archive.files)
+
+
+def test_restore_rejects_foreign_bytes_and_wrong_dimension() -> None:
+    with pytest.raises(SnapshotError):
+        Chain.restore(target(), b"not a snapshot")
+    blob = Chain(target(), SamplerSettings(), np.random.SeedSequence(2)).snapshot()
+    with pytest.raises(SnapshotError, match="dimension"):
+        Chain.restore(Gaussian(np.zeros(2), np.eye(2)), blob)
