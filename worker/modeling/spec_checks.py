@@ -63,6 +63,9 @@ def _sentence(error: ValidationError) -> tuple[str, str]:
         return at, f"expected {_TYPE_WORDS.get(str(schema['type']), schema['type'])}, " \
                    f"got {_json_type(value)}"
     if v == "pattern":
+        if "propertyNames" in error.absolute_schema_path:
+            return pointer("model", *error.absolute_path, value), \
+                f"{value!r} is not a valid name: {_NAME_RULE}"
         if schema is defs["distribution"]:
             return at, f"{value!r} is not a valid distribution name"
         return at, f"{value!r} is not a valid name: {_NAME_RULE}"
@@ -70,19 +73,24 @@ def _sentence(error: ValidationError) -> tuple[str, str]:
         for key, words in _ALTERNATIVES.items():
             if schema is defs[key]:
                 return at, f"expected {words}, got {_json_type(value)} {json.dumps(value)[:60]}"
-    if v == "propertyNames":
-        bad = [k for k in value if not _validator().is_valid(k, defs["name"])] \
-            if isinstance(value, dict) else []
-        shown = bad[0] if bad else "?"
-        return pointer("model", *error.absolute_path, shown), \
-            f"{shown!r} is not a valid name: {_NAME_RULE}"
-    if v == "not" and schema is defs["unknown"]["not"]:
+    if v == "not" and schema is defs["unknown"]:
         return at, "an unknown takes either a structure or lower/upper bounds, not both"
     if v == "minProperties":
         return at, "at least one entry is needed here"
-    if v in ("maxLength", "minLength", "maxItems", "minItems", "minimum", "uniqueItems"):
-        return at, error.message
-    return at, error.message
+    if v == "maxLength" and isinstance(value, str):
+        return at, f"the text is {len(value)} characters long; the limit is {schema['maxLength']}"
+    if v == "minLength":
+        return at, "an empty string is not allowed here"
+    if v in ("maxItems", "minItems", "minimum", "uniqueItems"):
+        shown = json.dumps(value)
+        shown = shown if len(shown) <= 60 else shown[:57] + "..."
+        words = {"maxItems": f"at most {schema.get('maxItems')} entries are allowed",
+                 "minItems": f"at least {schema.get('minItems')} entries are needed",
+                 "minimum": f"the value must be at least {schema.get('minimum')}",
+                 "uniqueItems": "entries must not repeat"}[v]
+        return at, f"{words}, got {shown}"
+    message = error.message if len(error.message) <= 200 else error.message[:197] + "..."
+    return at, message
 
 
 def schema_problems(spec: Any) -> list[Problem]:
