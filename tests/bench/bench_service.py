@@ -13,6 +13,8 @@ by the test harness. Run with `make bench` (or `python -m tests.bench service`).
 
 from __future__ import annotations
 
+import os
+import shutil
 import statistics
 import tempfile
 import time
@@ -139,10 +141,18 @@ def in_process_seconds(body: dict[str, Any]) -> float:
     return time.perf_counter() - started
 
 
+def fresh_store(path: Path) -> str:
+    from service.store import migrate
+
+    url = f"sqlite:///{path}"
+    migrate(url)
+    return url
+
+
 def measure_overhead(redis: RedisServer, workdir: Path) -> list[tuple[str, float, float]]:
     redis.flush()
     service = start_live_service(
-        f"sqlite:///{workdir / 'overhead.sqlite'}", redis.url, workers=1,
+        fresh_store(workdir / "overhead.sqlite"), redis.url, workers=1,
         log_dir=workdir / "overhead-logs",
     )
     rows = []
@@ -171,7 +181,7 @@ def throughput_seconds(redis: RedisServer, workdir: Path, workers: int) -> float
     redis.flush()
     tag = uuid.uuid4().hex[:8]
     service = start_live_service(
-        f"sqlite:///{workdir / f'throughput{workers}-{tag}.sqlite'}", redis.url, workers=workers,
+        fresh_store(workdir / f"throughput{workers}-{tag}.sqlite"), redis.url, workers=workers,
         log_dir=workdir / f"throughput{workers}-logs",
     )
     try:
@@ -187,9 +197,16 @@ def throughput_seconds(redis: RedisServer, workdir: Path, workers: int) -> float
         service.stop()
 
 
+def load_note() -> str:
+    # Other processes on the machine take cores from the workers and skew the throughput ratio.
+    one, five, _ = os.getloadavg()
+    return f"load average {one:.2f} (1 min), {five:.2f} (5 min) on {os.cpu_count()} CPUs"
+
+
 def main() -> None:
     workdir = Path(tempfile.mkdtemp(prefix="drawyard-bench-"))
     redis = RedisServer(workdir / "redis").start()
+    print(f"before: {load_note()}")
     try:
         print("service overhead = end-to-end wall time / in-process time, same job, "
               f"median of {REPEATS} (target <= 1.15 for medium)")
@@ -202,8 +219,10 @@ def main() -> None:
         print(f"  1 worker {one:7.2f} s ({THROUGHPUT_JOBS / one:5.2f} jobs/s)   "
               f"2 workers {two:7.2f} s ({THROUGHPUT_JOBS / two:5.2f} jobs/s)   "
               f"ratio {one / two:5.3f}", flush=True)
+        print(f"after: {load_note()}")
     finally:
         redis.stop()
+    shutil.rmtree(workdir, ignore_errors=True)
 
 
 if __name__ == "__main__":
