@@ -45,8 +45,13 @@ class Lease:
     body: dict[str, Any]
 
 
-def take_lease(runtime: Runtime, job_id: str, chain_index: int) -> Lease | None:
-    """The chain's lease for this process, or None when another delivery holds or finished it."""
+def take_lease(
+    runtime: Runtime, job_id: str, chain_index: int, count_duplicate: bool = True
+) -> Lease | None:
+    """The chain's lease for this process, or None when another delivery holds or finished it.
+
+    ``count_duplicate`` is False for a delivery that only re-checks a lease it already found held.
+    """
     settings = runtime.settings
     token = uuid.uuid4().hex
     now = utc_now()
@@ -83,7 +88,7 @@ def take_lease(runtime: Runtime, job_id: str, chain_index: int) -> Lease | None:
             select(Chain).where(Chain.job_id == job_id, Chain.chain_index == chain_index)
         ).one()
         if taken != 1:
-            if chain.attempts > 0:
+            if chain.attempts > 0 and count_duplicate:
                 session.execute(
                     update(Chain)
                     .where(Chain.id == chain.id)
@@ -91,7 +96,11 @@ def take_lease(runtime: Runtime, job_id: str, chain_index: int) -> Lease | None:
                     .execution_options(synchronize_session=False)
                 )
                 events.record(
-                    session, job_id, "duplicate_delivery_dropped", chain.state, chain_index,
+                    session,
+                    job_id,
+                    "duplicate_delivery_dropped",
+                    chain.state,
+                    chain_index,
                     {"worker_host": host, "worker_pid": pid},
                 )
             return None
@@ -115,9 +124,7 @@ def take_lease(runtime: Runtime, job_id: str, chain_index: int) -> Lease | None:
 def _cancel_queued_chain(session: Any, job_id: str, chain_index: int) -> None:
     done = session.execute(
         update(Chain)
-        .where(
-            Chain.job_id == job_id, Chain.chain_index == chain_index, Chain.state == "queued"
-        )
+        .where(Chain.job_id == job_id, Chain.chain_index == chain_index, Chain.state == "queued")
         .values(state="cancelled", finished_at=utc_now(), updated_at=utc_now())
         .execution_options(synchronize_session=False)
     ).rowcount
@@ -209,14 +216,45 @@ class ChainMonitor:
             self._stop("time_limit")
 
 
-def run_chain(runtime: Runtime, job_id: str, chain_index: int) -> str:
-    """Run one chain of a job if this delivery wins its lease; returns what happened."""
+@dataclass(frozen=True)
+class ChainOutcome:
+    """What a delivery of a chain task did; ``recheck_after`` asks for a later look (seconds)."""
+
+    status: str
+    recheck_after: float | None = None
+
+
+def lease_recheck_seconds(runtime: Runtime, job_id: str, chain_index: int) -> float | None:
+    """Seconds until a running chain's lease runs out, or None when the chain has ended.
+
+    A delivery that finds the chain held elsewhere looks again after this long: if the holder died
+    (a worker killed after its message was requeued or redelivered), the lease lapses and the
+    chain is taken over from its checkpoint instead of being left without any message.
+    """
+    with runtime.sessions() as session:
+        row = session.execute(
+            select(Chain.state, Chain.lease_expires_at).where(
+                Chain.job_id == job_id, Chain.chain_index == chain_index
+            )
+        ).one_or_none()
+    if row is None or row.state != "running" or row.lease_expires_at is None:
+        return None
+    return max(0.0, (row.lease_expires_at - utc_now()).total_seconds()) + 1.0
+
+
+def run_chain(
+    runtime: Runtime, job_id: str, chain_index: int, recheck: bool = False
+) -> ChainOutcome:
+    """Run one chain of a job if this delivery wins its lease; says what happened."""
     from worker import runner
 
-    lease = take_lease(runtime, job_id, chain_index)
+    lease = take_lease(runtime, job_id, chain_index, count_duplicate=not recheck)
     if lease is None:
+        wait = lease_recheck_seconds(runtime, job_id, chain_index)
+        if wait is not None:
+            return ChainOutcome("held elsewhere", wait)
         _resend_finish_if_due(runtime, job_id)
-        return "dropped"
+        return ChainOutcome("dropped")
     monitor = ChainMonitor(runtime, lease).start()
     try:
         if lease.checkpoint is not None:
@@ -240,7 +278,7 @@ def run_chain(runtime: Runtime, job_id: str, chain_index: int) -> str:
             outcome = "succeeded"
             ended = store_result(runtime, lease, result, monitor)
         elif monitor.stop_reason == "lease_lost":
-            return "lease_lost"
+            return ChainOutcome("lease lost")
         elif monitor.stop_reason == "cancelled":
             outcome = "cancelled"
             ended = end_chain(runtime, lease, "cancelled", None)
@@ -254,7 +292,7 @@ def run_chain(runtime: Runtime, job_id: str, chain_index: int) -> str:
             ended = end_chain(runtime, lease, "failed", "the sampler stopped before the last draw")
     if ended and claim_finish(runtime, job_id):
         send_finish_task(runtime.celery, runtime.settings.queue, job_id)
-    return outcome if ended else "lease_lost"
+    return ChainOutcome(outcome if ended else "lease lost")
 
 
 def end_chain(runtime: Runtime, lease: Lease, state: str, error: str | None) -> bool:
@@ -322,7 +360,11 @@ def store_result(runtime: Runtime, lease: Lease, result: Any, monitor: ChainMoni
             for kind, name, encoded, columns in rows
         )
         events.record(
-            session, lease.job_id, "chain_state", "succeeded", lease.chain_index,
+            session,
+            lease.job_id,
+            "chain_state",
+            "succeeded",
+            lease.chain_index,
             {"draws_sha256": draws.sha256},
         )
     return True

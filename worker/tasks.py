@@ -19,11 +19,21 @@ def _runtime(task: Task) -> Runtime:
     return _runtimes[key]
 
 
-@shared_task(bind=True, name="drawyard.run_chain", acks_late=True, reject_on_worker_lost=True)
+@shared_task(
+    bind=True,
+    name="drawyard.run_chain",
+    acks_late=True,
+    reject_on_worker_lost=True,
+    max_retries=None,
+)
 def run_chain(self: Task, job_id: str, chain_index: int) -> str:
     from service.chain_work import run_chain as run
 
-    return run(_runtime(self), job_id, int(chain_index))
+    outcome = run(_runtime(self), job_id, int(chain_index), recheck=self.request.retries > 0)
+    if outcome.recheck_after is not None:
+        # Held by another delivery: look again when its lease would lapse (the holder may be dead).
+        raise self.retry(countdown=outcome.recheck_after)
+    return outcome.status
 
 
 @shared_task(bind=True, name="drawyard.finish_job", acks_late=True, reject_on_worker_lost=True)

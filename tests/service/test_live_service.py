@@ -1,7 +1,8 @@
 """End to end with real parts: gunicorn serving the app, real Celery worker processes, a real Redis
 broker, and a real store (SQLite and PostgreSQL), all started by the harness's fixtures.
 
-External references: the engine's own in-process run (worker.runner.run_in_process) for bitwise
+External references: the engine's own in-process run (worker.runner.run_in_process, in a fresh
+process) for bitwise
 equality of draws; SHA-256 as specified in FIPS 180-4 (Python's hashlib) for the audit hashes;
 17 significant digits round-trip an IEEE 754 double exactly (common practice; IEEE 754-2008
 section 5.12.2) so text read back must equal the stored bits; the closed-form posterior of a normal
@@ -13,7 +14,12 @@ from __future__ import annotations
 import hashlib
 import io
 import json
+import os
+import signal
+import subprocess
+import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -24,9 +30,41 @@ from sqlalchemy.orm import Session
 from service.store.models import Chain, Event
 from tests.service.bodies import normal_mean, posterior_mean_sd
 from tests.service.response_contract import check_requests
-from worker.runner import run_in_process
 
 TERMINAL = ("succeeded", "failed", "cancelled")
+REPO_ROOT = Path(__file__).resolve().parents[2]
+
+
+def in_process(body: dict) -> dict:
+    """worker.runner.run_in_process(body), run in a fresh Python process.
+
+    A fresh process puts the reference run in the same starting state as a worker's pool process,
+    so what is compared is the service's path, not whatever this test process ran before.
+    """
+    script = (
+        "import io, json, sys\n"
+        "import numpy as np\n"
+        "from worker.runner import run_in_process\n"
+        "out = run_in_process(json.load(sys.stdin))\n"
+        "buffer = io.BytesIO()\n"
+        "np.savez(buffer, draws=out['draws'], **{f'stat_{c}_{k}': v for c, s in "
+        "enumerate(out['stats']) for k, v in s.items()})\n"
+        "meta = {'names': out['names'], 'summary': out['summary'], 'verdict': out['verdict']}\n"
+        "sys.stdout.buffer.write(json.dumps(meta).encode() + b'\\n' + buffer.getvalue())\n"
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", script], input=json.dumps(body).encode(), capture_output=True,
+        check=True, timeout=600, cwd=REPO_ROOT,
+    )
+    head, _, archive = done.stdout.partition(b"\n")
+    meta = json.loads(head)
+    with np.load(io.BytesIO(archive), allow_pickle=False) as arrays:
+        stats: list[dict] = [{} for _ in range(arrays["draws"].shape[0])]
+        for key in arrays.files:
+            if key.startswith("stat_"):
+                _, chain, name = key.split("_", 2)
+                stats[int(chain)][name] = arrays[key]
+        return {**meta, "draws": arrays["draws"], "stats": stats}
 
 
 def call(method: str, url: str, **kwargs) -> tuple[requests.Response, object]:
@@ -100,7 +138,7 @@ def test_draws_over_http_are_bitwise_the_in_process_draws(
     body = normal_mean(chains=2, warmup=300, draws=4000, seed=77)
     job_url = submit(service.base_url, body)
     job = finished(job_url, service)
-    expected = run_in_process(body)
+    expected = in_process(body)
 
     _, draws = call("GET", job_url + "/draws")
     got = json_draws(draws)
@@ -214,3 +252,64 @@ def test_a_chain_outliving_the_visibility_timeout_is_not_run_twice(
     assert audit["chains"][0]["duplicate_deliveries"] == row.duplicate_deliveries
     _, draws = call("GET", job_url + "/draws")
     assert json_draws(draws).shape == (1, 40_000, 1)
+
+
+@pytest.mark.slow
+def test_a_chain_whose_worker_dies_resumes_from_its_checkpoint(
+    sqlite_store: str, redis_url: str, live_service
+) -> None:
+    """SIGKILL the pool process running the only chain. Its worker rejects the message back to the
+    queue (reject on worker lost); the next delivery finds the lease still held, looks again once
+    it lapses, takes the chain over and resumes from the last checkpoint. The draws are bit for
+    bit those of an uninterrupted in-process run."""
+    service = live_service(
+        sqlite_store,
+        redis_url,
+        workers=2,
+        env={
+            "DRAWYARD_LEASE_SECONDS": "3",
+            "DRAWYARD_PROGRESS_INTERVAL": "0.25",
+            "DRAWYARD_CHECKPOINT_EVERY": "2000",
+        },
+    )
+    body = normal_mean(chains=1, warmup=500, draws=40_000, seed=31)
+    job_url = submit(service.base_url, body)
+    job_id = job_url.rsplit("/", 1)[1]
+    deadline = time.monotonic() + 120
+    while True:
+        (row,) = chains_in_store(sqlite_store, job_id)
+        if row.checkpoint_iteration is not None and row.checkpoint_iteration >= 4000:
+            break
+        assert row.state in ("queued", "running"), f"chain ended before the kill: {row.state}"
+        assert time.monotonic() < deadline, service.logs()
+        time.sleep(0.2)
+    os.kill(row.worker_pid, signal.SIGKILL)
+    job = finished(job_url, service, timeout=300)
+    (after,) = chains_in_store(sqlite_store, job_id)
+    assert after.attempts == 2, service.logs()
+    resumed = [
+        e.detail["resumed_from_iteration"]
+        for e in events_in_store(sqlite_store, job_id)
+        if e.kind == "chain_state" and e.state == "running" and e.detail
+        and "resumed_from_iteration" in e.detail
+    ]
+    assert len(resumed) == 1 and resumed[0] >= 4000
+    assert job["chains"][0]["attempts"] == 2
+    expected = in_process(body)
+    _, draws = call("GET", job_url + "/draws")
+    assert np.array_equal(bits(json_draws(draws)), bits(expected["draws"]))
+
+
+def test_the_serverless_filesystem_broker_runs_a_job(sqlite_store: str, live_service, tmp_path):
+    """The embedded default for a machine without Redis: kombu's filesystem transport."""
+    folder = tmp_path / "broker"
+    service = live_service(
+        sqlite_store, "filesystem://", workers=1, env={"DRAWYARD_BROKER_FOLDER": str(folder)}
+    )
+    _, ready = call("GET", service.base_url + "/v1/health/ready")
+    assert ready["checks"]["broker"]["ok"] and "one machine" in ready["checks"]["broker"]["detail"]
+    body = normal_mean(chains=2, warmup=100, draws=200, seed=3)
+    job_url = submit(service.base_url, body)
+    finished(job_url, service)
+    _, draws = call("GET", job_url + "/draws")
+    assert np.array_equal(bits(json_draws(draws)), bits(in_process(body)["draws"]))
