@@ -13,7 +13,9 @@ def test_tree_sizes_and_maximum_depth() -> None:
     the maximum tree depth; an ill-conditioned target with a unit metric hits the cap."""
     lags = np.abs(np.subtract.outer(np.arange(20), np.arange(20)))
     target = Gaussian(np.zeros(20), 0.95**lags)
-    settings = SamplerSettings(metric="unit", max_tree_depth=3, warmup_iterations=200, draws=200)
+    settings = SamplerSettings(
+        metric="unit", maximum_tree_depth=3, warmup_iterations=200, draws=200
+    )
     out = Chain(target, settings, np.random.SeedSequence(4)).run()
     depth, steps = out.stats["tree_depth"], out.stats["leapfrog_steps"]
     assert np.all((depth >= 1) & (depth <= 3))

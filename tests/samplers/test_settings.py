@@ -24,7 +24,7 @@ def test_default_target_acceptance_by_method_and_dimension() -> None:
         ({"metric": "full"}, "metric must be one of"),
         ({"draws": -1}, "draws must be a non-negative integer"),
         ({"warmup_iterations": 1.5}, "warmup_iterations must be a non-negative integer"),
-        ({"max_tree_depth": 0}, "max_tree_depth must be between 1 and 30"),
+        ({"maximum_tree_depth": 0}, "maximum_tree_depth must be between 1 and 30"),
         ({"target_acceptance": 1.0}, "strictly between 0 and 1"),
         ({"integration_time": 0.0}, "integration_time must be a positive finite number"),
         ({"divergence_threshold": float("inf")}, "divergence_threshold must be"),

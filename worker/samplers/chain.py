@@ -182,12 +182,16 @@ class Chain:
         s = self.settings
         if s.method == "nuts":
             return NutsTransition(
-                self.target, self.metric, self.step_size, s.max_tree_depth, s.divergence_threshold
+                self.target,
+                self.metric,
+                self.step_size,
+                s.maximum_tree_depth,
+                s.divergence_threshold,
             )
         if s.method == "hmc":
             return StaticHmcTransition(
                 self.target, self.metric, self.step_size, s.integration_time, s.jitter,
-                2**s.max_tree_depth, s.divergence_threshold,
+                2**s.maximum_tree_depth, s.divergence_threshold,
             )  # fmt: skip
         return MetropolisTransition(self.target, self.proposal)
 

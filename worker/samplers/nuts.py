@@ -92,13 +92,13 @@ class NutsTransition:
         target: Target,
         metric: Metric,
         step_size: float,
-        max_tree_depth: int,
+        maximum_tree_depth: int,
         divergence_threshold: float,
     ):
         self.target = target
         self.metric = metric
         self.step_size = step_size
-        self.max_tree_depth = max_tree_depth
+        self.maximum_tree_depth = maximum_tree_depth
         self.divergence_threshold = divergence_threshold
 
     def __call__(self, state: State, rng: np.random.Generator) -> tuple[State, dict[str, float]]:
@@ -110,7 +110,7 @@ class NutsTransition:
         steps = 0
         depth = 0
         divergent = False
-        while depth < self.max_tree_depth:
+        while depth < self.maximum_tree_depth:
             forward = rng.random() < 0.5
             if forward:
                 new = self._build(tree.q_plus, tree.p_plus, tree.g_plus, 1.0, depth, h0, rng)

@@ -20,7 +20,7 @@ class SamplerSettings:
     warmup_iterations: int = 1000
     draws: int = 1000
     target_acceptance: float | None = None
-    max_tree_depth: int = 10
+    maximum_tree_depth: int = 10
     metric: str = "diagonal"
     integration_time: float = 1.0
     jitter: bool = True
@@ -69,12 +69,14 @@ def settings_problems(s: SamplerSettings) -> list[str]:
         problems.append(
             f"initialisation must be one of {', '.join(INITIALISATIONS)}, got {s.initialisation!r}"
         )
-    for name in ("warmup_iterations", "draws", "max_tree_depth"):
+    for name in ("warmup_iterations", "draws", "maximum_tree_depth"):
         value = getattr(s, name)
         if isinstance(value, bool) or not isinstance(value, int) or value < 0:
             problems.append(f"{name} must be a non-negative integer, got {value!r}")
-    if isinstance(s.max_tree_depth, int) and not 1 <= s.max_tree_depth <= 30:
-        problems.append(f"max_tree_depth must be between 1 and 30, got {s.max_tree_depth!r}")
+    if isinstance(s.maximum_tree_depth, int) and not 1 <= s.maximum_tree_depth <= 30:
+        problems.append(
+            f"maximum_tree_depth must be between 1 and 30, got {s.maximum_tree_depth!r}"
+        )
     if s.target_acceptance is not None and not (
         _is_number(s.target_acceptance) and 0.0 < s.target_acceptance < 1.0
     ):

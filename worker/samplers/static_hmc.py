@@ -20,7 +20,7 @@ JITTER = 0.1  # step size drawn uniformly from [0.9, 1.1] x the adapted one when
 class StaticHmcTransition:
     """Draw the next state with ceil(integration_time / step) leapfrog steps.
 
-    The number of steps is capped at ``max_steps`` (2 ** max_tree_depth, the same budget NUTS has)
+    The number of steps is capped at ``max_steps`` (2 ** maximum_tree_depth, the budget NUTS has),
     so a tiny adapted step size cannot make one iteration run for ever.
     """
 
