@@ -19,9 +19,9 @@ ROWS_PER_BLOCK = 2000
 
 @dataclass(frozen=True)
 class Selection:
-    chains: list[int]            # 0-based chain indices, in the order asked
-    columns: list[int]           # indices into the stored columns
-    names: list[str]             # names of the chosen columns
+    chains: list[int]  # 0-based chain indices, in the order asked
+    columns: list[int]  # indices into the stored columns
+    names: list[str]  # names of the chosen columns
     thin: int
 
 

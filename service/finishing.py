@@ -24,9 +24,7 @@ def load_chain_result(runtime: Runtime, chain_id: int, adapted: dict | None) -> 
     with runtime.sessions() as session:
         rows = session.scalars(select(ChainArray).where(ChainArray.chain_id == chain_id)).all()
     draws = next(row for row in rows if row.kind == "draws")
-    stats = {
-        row.name: decode_array(row.data, row.sha256) for row in rows if row.kind == "stat"
-    }
+    stats = {row.name: decode_array(row.data, row.sha256) for row in rows if row.kind == "stat"}
     return ChainResult(
         names=list(draws.columns or []),
         values=decode_array(draws.data, draws.sha256),
@@ -41,8 +39,9 @@ def _close(runtime: Runtime, job_id: str, state: str, **values: Any) -> bool:
         done = session.execute(
             update(Job)
             .where(Job.id == job_id, Job.state.not_in(TERMINAL_STATES))
-            .values(state=state, finished_at=utc_now(), finish_software=software_versions(),
-                    **values)
+            .values(
+                state=state, finished_at=utc_now(), finish_software=software_versions(), **values
+            )
             .execution_options(synchronize_session=False)
         ).rowcount
         if done:

@@ -64,8 +64,12 @@ def _arrays(runtime: Runtime, chain_id: int, kind: str) -> list[ChainArray]:
 
 
 def select_columns(
-    available: list[str], chains: list[Chain], quantities: str | None, chain_list: str | None,
-    thin: str | None, parameter: str = "quantities",
+    available: list[str],
+    chains: list[Chain],
+    quantities: str | None,
+    chain_list: str | None,
+    thin: str | None,
+    parameter: str = "quantities",
 ) -> Selection:
     """Which chains, columns and thinning a request asked for (1-based chain numbers)."""
     wanted = _parse_list(quantities)
@@ -152,9 +156,13 @@ def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
         job, chains = load_job(session, job_id)
         log = session.scalars(select(Event).where(Event.job_id == job_id).order_by(Event.id)).all()
         arrays = session.execute(
-            select(ChainArray.chain_id, ChainArray.kind, ChainArray.name, ChainArray.sha256,
-                   ChainArray.shape)
-            .where(ChainArray.chain_id.in_([c.id for c in chains]))
+            select(
+                ChainArray.chain_id,
+                ChainArray.kind,
+                ChainArray.name,
+                ChainArray.sha256,
+                ChainArray.shape,
+            ).where(ChainArray.chain_id.in_([c.id for c in chains]))
         ).all()
     draws = {row.chain_id: row for row in arrays if row.kind == "draws"}
     stats: dict[int, dict[str, str]] = {}

@@ -113,9 +113,7 @@ def existing_for_key(runtime: Runtime, key: str, request_sha256: str) -> Job | N
     return job
 
 
-def submit(
-    runtime: Runtime, body: Any, idempotency_key: str | None
-) -> Accepted:
+def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted:
     """Validate, store and queue a submission (or return the job its idempotency key made)."""
     request_sha256 = sha256_of_json(body)
     if idempotency_key is not None:

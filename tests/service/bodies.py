@@ -42,7 +42,11 @@ def normal_mean(
         },
         "data": {"n": len(Y), "y": list(Y)},
         "sampler": {
-            "chains": chains, "warmup_iterations": warmup, "draws": draws, "seed": seed, **sampler
+            "chains": chains,
+            "warmup_iterations": warmup,
+            "draws": draws,
+            "seed": seed,
+            **sampler,
         },
         "labels": {"suite": "service"},
     }

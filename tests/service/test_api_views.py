@@ -67,8 +67,9 @@ INVALID = [
     ("too many chains", lambda b: _with(b, ("sampler", "chains"), 9), ["/sampler/chains"]),
     (
         "warm-up plus draws over the limit",
-        lambda b: _with(_with(b, ("sampler", "draws"), 3000), ("sampler", "warmup_iterations"),
-                        3000),
+        lambda b: _with(
+            _with(b, ("sampler", "draws"), 3000), ("sampler", "warmup_iterations"), 3000
+        ),
         ["/sampler/draws"],
     ),
     ("label that is not a string", lambda b: _with(b, ("labels", "team"), 3), ["/labels/team"]),
@@ -117,8 +118,12 @@ def test_wrong_content_type_bad_json_and_oversized_bodies(app, queue) -> None:
         (client.post("/v1/jobs", data="{}", content_type="text/plain"), 415),
         (client.post("/v1/jobs", data="{not json", content_type="application/json"), 400),
         (client.post("/v1/jobs", data=b"\xff\xfe", content_type="application/json"), 400),
-        (client.post("/v1/jobs", data="[" + "1," * 20_000 + "1]",
-                     content_type="application/json"), 413),
+        (
+            client.post(
+                "/v1/jobs", data="[" + "1," * 20_000 + "1]", content_type="application/json"
+            ),
+            413,
+        ),
     ]
     for response, status in cases:
         assert response.status_code == status
@@ -135,14 +140,19 @@ def test_idempotency_key_replays_the_same_job_and_refuses_another_body(app, queu
     assert first.status_code == 202 and again.status_code == 200
     assert replay["id"] == job["id"] and again.headers["Location"] == first.headers["Location"]
     assert row_counts(app)["jobs"] == 1 and queue.length() == 2
-    other, problem = post(client, variant(body, labels={"suite": "other"}),
-                          {"Idempotency-Key": "nightly-2026-12-01"})
+    other, problem = post(
+        client, variant(body, labels={"suite": "other"}), {"Idempotency-Key": "nightly-2026-12-01"}
+    )
     assert other.status_code == 409 and job["id"] in problem["detail"]
     assert row_counts(app)["jobs"] == 1 and queue.length() == 2
     # Key order and whitespace do not make a different request: the hash is of canonical JSON.
     reordered = json.dumps(dict(reversed(list(body.items()))), indent=2)
-    same = client.post("/v1/jobs", data=reordered, content_type="application/json",
-                       headers={"Idempotency-Key": "nightly-2026-12-01"})
+    same = client.post(
+        "/v1/jobs",
+        data=reordered,
+        content_type="application/json",
+        headers={"Idempotency-Key": "nightly-2026-12-01"},
+    )
     assert check_flask("POST", "/v1/jobs", same)["id"] == job["id"]
 
 
@@ -172,8 +182,13 @@ def test_list_filters_by_state_and_label_and_pages_with_a_cursor(app, queue) -> 
     assert [j["id"] for j in done["jobs"]] == [cancelled]
     _, either = get(client, "/v1/jobs?state=cancelled,queued&limit=50")
     assert len(either["jobs"]) == 7
-    for bad in ("/v1/jobs?state=finished", "/v1/jobs?cursor=zzz", "/v1/jobs?label=nocolon",
-                "/v1/jobs?limit=0", "/v1/jobs?limit=x"):
+    for bad in (
+        "/v1/jobs?state=finished",
+        "/v1/jobs?cursor=zzz",
+        "/v1/jobs?label=nocolon",
+        "/v1/jobs?limit=0",
+        "/v1/jobs?limit=x",
+    ):
         response, problem = get(client, bad)
         assert response.status_code == 400 and problem["errors"][0]["parameter"]
 
@@ -190,8 +205,9 @@ def test_cancel_of_a_queued_job_ends_it_and_its_chains(app, queue) -> None:
     assert kinds[0] == ("job_state", "queued") and kinds[-1] == ("job_state", "cancelled")
     assert ("cancel_requested", None) in kinds
     # Cancelling again changes nothing and records nothing more.
-    again = check_flask("POST", f"/v1/jobs/{job['id']}/cancel",
-                        client.post(f"/v1/jobs/{job['id']}/cancel"))
+    again = check_flask(
+        "POST", f"/v1/jobs/{job['id']}/cancel", client.post(f"/v1/jobs/{job['id']}/cancel")
+    )
     assert again["state"] == "cancelled"
     assert len(get(client, f"/v1/jobs/{job['id']}/audit")[1]["events"]) == len(kinds)
 

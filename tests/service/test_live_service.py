@@ -53,8 +53,12 @@ def in_process(body: dict) -> dict:
         "sys.stdout.buffer.write(json.dumps(meta).encode() + b'\\n' + buffer.getvalue())\n"
     )
     done = subprocess.run(
-        [sys.executable, "-c", script], input=json.dumps(body).encode(), capture_output=True,
-        check=True, timeout=600, cwd=REPO_ROOT,
+        [sys.executable, "-c", script],
+        input=json.dumps(body).encode(),
+        capture_output=True,
+        check=True,
+        timeout=600,
+        cwd=REPO_ROOT,
     )
     head, _, archive = done.stdout.partition(b"\n")
     meta = json.loads(head)
@@ -97,8 +101,13 @@ def finished(job_url: str, service, timeout: float = 180.0) -> dict:
 def json_draws(payload: dict) -> np.ndarray:
     special = {"NaN": np.nan, "Infinity": np.inf, "-Infinity": -np.inf}
     return np.array(
-        [[[special.get(v, v) if isinstance(v, str) else v for v in row] for row in chain["draws"]]
-         for chain in payload["chains"]],
+        [
+            [
+                [special.get(v, v) if isinstance(v, str) else v for v in row]
+                for row in chain["draws"]
+            ]
+            for chain in payload["chains"]
+        ],
         dtype=np.float64,
     )
 
@@ -111,9 +120,11 @@ def chains_in_store(database_url: str, job_id: str) -> list[Chain]:
     engine = create_engine(database_url)
     try:
         with Session(engine) as session:
-            return list(session.scalars(
-                select(Chain).where(Chain.job_id == job_id).order_by(Chain.chain_index)
-            ).all())
+            return list(
+                session.scalars(
+                    select(Chain).where(Chain.job_id == job_id).order_by(Chain.chain_index)
+                ).all()
+            )
     finally:
         engine.dispose()
 
@@ -122,9 +133,11 @@ def events_in_store(database_url: str, job_id: str) -> list[Event]:
     engine = create_engine(database_url)
     try:
         with Session(engine) as session:
-            return list(session.scalars(
-                select(Event).where(Event.job_id == job_id).order_by(Event.id)
-            ).all())
+            return list(
+                session.scalars(
+                    select(Event).where(Event.job_id == job_id).order_by(Event.id)
+                ).all()
+            )
     finally:
         engine.dispose()
 
@@ -244,8 +257,11 @@ def test_a_chain_outliving_the_visibility_timeout_is_not_run_twice(
     assert (row.finished_at - row.started_at).total_seconds() > 4, "chain too short to test"
     assert row.duplicate_deliveries >= 1, "the broker never redelivered: test proves nothing"
     assert row.attempts == 1
-    runs = [e for e in events_in_store(sqlite_store, job["id"])
-            if e.kind == "chain_state" and e.state == "running"]
+    runs = [
+        e
+        for e in events_in_store(sqlite_store, job["id"])
+        if e.kind == "chain_state" and e.state == "running"
+    ]
     assert len(runs) == 1
     _, audit = call("GET", job_url + "/audit")
     assert audit["chains"][0]["attempts"] == 1
@@ -290,7 +306,9 @@ def test_a_chain_whose_worker_dies_resumes_from_its_checkpoint(
     resumed = [
         e.detail["resumed_from_iteration"]
         for e in events_in_store(sqlite_store, job_id)
-        if e.kind == "chain_state" and e.state == "running" and e.detail
+        if e.kind == "chain_state"
+        and e.state == "running"
+        and e.detail
         and "resumed_from_iteration" in e.detail
     ]
     assert len(resumed) == 1 and resumed[0] >= 4000

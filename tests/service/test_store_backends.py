@@ -43,17 +43,35 @@ def insert_job(runtime: Runtime, chains: int = 2, labels: dict | None = None) ->
     now = utc_now()
     with runtime.sessions() as session, session.begin():
         session.add(
-            Job(id=job_id, state="queued", created_at=now, chain_count=chains, seed=1,
-                body={"model": {}, "sampler": {"seed": 1}}, settings={}, labels=labels or {},
-                request_sha256="0" * 64, spec_sha256="0" * 64, data_sha256="0" * 64,
-                api_software={})
+            Job(
+                id=job_id,
+                state="queued",
+                created_at=now,
+                chain_count=chains,
+                seed=1,
+                body={"model": {}, "sampler": {"seed": 1}},
+                settings={},
+                labels=labels or {},
+                request_sha256="0" * 64,
+                spec_sha256="0" * 64,
+                data_sha256="0" * 64,
+                api_software={},
+            )
         )
         session.flush()
         session.add_all(JobLabel(job_id=job_id, key=k, value=v) for k, v in (labels or {}).items())
         session.add_all(
-            Chain(job_id=job_id, chain_index=i, state="queued", attempts=0,
-                  duplicate_deliveries=0, iteration=0, divergences=0, iterations_total=10,
-                  updated_at=now)
+            Chain(
+                job_id=job_id,
+                chain_index=i,
+                state="queued",
+                attempts=0,
+                duplicate_deliveries=0,
+                iteration=0,
+                divergences=0,
+                iterations_total=10,
+                updated_at=now,
+            )
             for i in range(chains)
         )
     return job_id
@@ -85,9 +103,14 @@ def race(count: int, action) -> list:
 
 def fake_result(draws: np.ndarray):
     return SimpleNamespace(
-        names=["a", "b"], values=draws, completed=True, adapted={"step_size": np.float64(0.5)},
-        stats={"divergent": np.zeros(draws.shape[0], bool),
-               "tree_depth": np.arange(draws.shape[0])},
+        names=["a", "b"],
+        values=draws,
+        completed=True,
+        adapted={"step_size": np.float64(0.5)},
+        stats={
+            "divergent": np.zeros(draws.shape[0], bool),
+            "tree_depth": np.arange(draws.shape[0]),
+        },
     )
 
 
@@ -97,8 +120,9 @@ def test_migrate_reaches_the_newest_revision_and_is_repeatable(database_url: str
     try:
         head = ScriptDirectory.from_config(alembic_config(database_url)).get_current_head()
         with runtime.engine.connect() as connection:
-            assert connection.execute(text("SELECT version_num FROM alembic_version")).scalar() \
-                == head
+            assert (
+                connection.execute(text("SELECT version_num FROM alembic_version")).scalar() == head
+            )
             tables = set(inspect(connection).get_table_names())
             if runtime.engine.dialect.name == "sqlite":
                 assert connection.execute(text("PRAGMA journal_mode")).scalar() == "wal"
@@ -143,8 +167,9 @@ def test_an_expired_lease_passes_on_and_fences_out_the_old_holder(runtime: Runti
         rows = session.scalars(select(ChainArray).where(ChainArray.chain_id == chain.id)).all()
     stored = {row.name: decode_array(row.data, row.sha256) for row in rows}
     assert np.array_equal(stored["draws"], draws) and stored["draws"].dtype == np.float64
-    assert stored["divergent"].dtype == np.bool_ and np.array_equal(stored["tree_depth"],
-                                                                    np.arange(10))
+    assert stored["divergent"].dtype == np.bool_ and np.array_equal(
+        stored["tree_depth"], np.arange(10)
+    )
     assert chain.adapted == {"step_size": 0.5}
 
 
@@ -170,7 +195,8 @@ def test_events_are_kept_in_order_with_utc_timestamps(runtime: Runtime) -> None:
         events = session.scalars(select(Event).where(Event.job_id == job_id).order_by(Event.id))
         rows = [(e.kind, e.chain_index, e.state, e.at) for e in events]
     assert [r[:3] for r in rows] == [
-        ("chain_state", 0, "running"), ("job_state", None, "running"),
+        ("chain_state", 0, "running"),
+        ("job_state", None, "running"),
         ("chain_state", 0, "cancelled"),
     ]
     times = [r[3] for r in rows]
@@ -179,8 +205,10 @@ def test_events_are_kept_in_order_with_utc_timestamps(runtime: Runtime) -> None:
 
 
 def test_list_filters_and_cursor_pages_on_both_backends(runtime: Runtime) -> None:
-    ids = [insert_job(runtime, 1, {"team": "red" if i % 3 == 0 else "blue", "i": str(i)})
-           for i in range(8)]
+    ids = [
+        insert_job(runtime, 1, {"team": "red" if i % 3 == 0 else "blue", "i": str(i)})
+        for i in range(8)
+    ]
     seen, cursor = [], None
     while True:
         page, cursor = list_jobs(runtime, JobFilter(), 3, cursor)
