@@ -6,6 +6,11 @@ import os
 
 from celery import Task, shared_task
 
+# Imported here, in the worker's main process, so every forked pool process starts with the engine
+# loaded instead of paying for the imports on its first chain.
+import worker.runner  # noqa: F401
+from service.chain_work import run_chain as run
+from service.finishing import finish
 from service.runtime import Runtime, build_runtime
 
 _runtimes: dict[tuple[int, int], Runtime] = {}
@@ -27,8 +32,6 @@ def _runtime(task: Task) -> Runtime:
     max_retries=None,
 )
 def run_chain(self: Task, job_id: str, chain_index: int) -> str:
-    from service.chain_work import run_chain as run
-
     outcome = run(_runtime(self), job_id, int(chain_index), recheck=self.request.retries > 0)
     if outcome.recheck_after is not None:
         # Held by another delivery: look again when its lease would lapse (the holder may be dead).
@@ -38,6 +41,4 @@ def run_chain(self: Task, job_id: str, chain_index: int) -> str:
 
 @shared_task(bind=True, name="drawyard.finish_job", acks_late=True, reject_on_worker_lost=True)
 def finish_job(self: Task, job_id: str) -> str:
-    from service.finishing import finish
-
     return finish(_runtime(self), job_id)
