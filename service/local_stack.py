@@ -10,6 +10,7 @@ from __future__ import annotations
 import atexit
 import contextlib
 import ctypes
+import json
 import os
 import shutil
 import signal
@@ -344,11 +345,15 @@ class LocalStack:
             self.redis = RedisServer(self.var_dir / "redis").start()
             self.broker_url = self.redis.url
             self.broker_note = f"private redis-server on port {self.redis.port}"
-        elif self.broker in ("auto", "filesystem"):
-            folder = self.var_dir / "broker"
+        elif self.broker in ("auto", "filesystem") or self.broker.startswith("filesystem://"):
+            folder = Path(os.environ.get("DRAWYARD_BROKER_FOLDER") or self.var_dir / "broker")
             folder.mkdir(parents=True, exist_ok=True)
             self.broker_url = "filesystem://"
             env["DRAWYARD_BROKER_FOLDER"] = str(folder)
+            # The filesystem transport finds new messages by polling the folder, once a second by
+            # default; a fifth of a second keeps chains from idling in the queue for long.
+            if "DRAWYARD_BROKER_TRANSPORT_OPTIONS" not in os.environ:
+                env["DRAWYARD_BROKER_TRANSPORT_OPTIONS"] = json.dumps({"polling_interval": 0.2})
             self.broker_note = f"filesystem broker in {folder} (single machine only)"
             self.broker_warning = (
                 f"SERVERLESS FILESYSTEM BROKER in {folder}: SINGLE MACHINE ONLY. Workers on other "
