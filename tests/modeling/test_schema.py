@@ -51,10 +51,16 @@ def test_readme_example_validates():
     from worker.modeling import compile_model
 
     text = (Path(__file__).resolve().parents[2] / "README.md").read_text()
-    start = text.index("```json", text.index("worked example")) + len("```json")
+    start = text.index("```json", text.index("### Worked example")) + len("```json")
     body = json.loads(text[start:text.index("```", start)])
     model = compile_model(body["model"], body["data"])
-    assert model.dimension > 0
+    assert model.dimension == 7
+    names = model.quantity_names
+    # the column order the README states
+    assert names[:3] == ["baseline", "heat", "spread"]
+    assert names[19:22] == ["failures_per_100_unit_months", "hot_month_failures",
+                            "replicate.monthly_failures[1]"]
+    assert names[-1] == "log_likelihood.monthly_failures[8]"
 
 
 def test_not_an_object():

@@ -14,6 +14,15 @@ from .tape import Plan
 _POINT_FAILURES = (ValueError, FloatingPointError, ZeroDivisionError, OverflowError)
 
 
+def _draw(distribution: Any, args: dict, rng: np.random.Generator,
+          shape: tuple[int, ...] | None) -> np.ndarray:
+    """One draw of the given shape; scalars are drawn as length-1 vectors, since some of numpy's
+    generators return a Python number rather than an array for a scalar shape."""
+    if shape == () and distribution.event_ndim == 0:
+        return np.asarray(distribution.sample(args, rng, (1,)), dtype=float).reshape(())
+    return np.asarray(distribution.sample(args, rng, shape), dtype=float)
+
+
 def flat_names(name: str, shape: tuple[int, ...]) -> list[str]:
     """theta -> theta; theta[3]; L[2,1]: 1-based, row-major."""
     if not shape:
@@ -75,8 +84,12 @@ class CompiledModel:
         rng = np.random.default_rng(0)
         for term in self._assembly.predictions:
             try:
+                args = self._args(term, values)
+                shape = None
+                if term.distribution.event_ndim == 0:
+                    shape = np.broadcast_shapes(*[np.shape(a) for a in args.values()])
                 with np.errstate(all="ignore"):
-                    draw = term.distribution.sample(self._args(term, values), rng, None)
+                    draw = _draw(term.distribution, args, rng, shape)
                 shapes.append(tuple(np.shape(draw)))
             except (ValueError, IndexError, TypeError) as error:
                 problems.append(Problem(term.at + "/arguments",
@@ -147,12 +160,12 @@ class CompiledModel:
         pieces += [np.ravel(values[n]) for n in a.quantities.values()]
         with np.errstate(all="ignore"):
             for term, shape in zip(a.predictions, self._prediction_shapes, strict=True):
-                pieces.append(np.ravel(term.distribution.sample(self._args(term, values), rng,
-                                                                shape)))
+                pieces.append(np.ravel(_draw(term.distribution, self._args(term, values), rng,
+                                             shape)))
             for name in a.replicates:
                 term = self._likelihood[name]
-                pieces.append(np.ravel(term.distribution.sample(self._args(term, values), rng,
-                                                                term.shape)))
+                pieces.append(np.ravel(_draw(term.distribution, self._args(term, values), rng,
+                                             term.shape)))
             for name in a.pointwise:
                 term = self._likelihood[name]
                 pointwise = term.distribution.log_density(values[term.variate],
