@@ -6,8 +6,19 @@ STAMP  := $(VENV)/.installed
 
 .PHONY: venv test bench demo lint services clean
 
+# Debian ships Python's venv support separately (python3-venv): install it when root may, else say so.
 $(STAMP): pyproject.toml
-	$(PYTHON) -m venv $(VENV)
+	@if ! $(PYTHON) -m venv $(VENV) >/dev/null 2>&1; then \
+	  rm -rf $(VENV); \
+	  if [ "$$(id -u)" -eq 0 ] && command -v apt-get >/dev/null 2>&1; then \
+	    echo "installing python3-venv from Debian's packages"; \
+	    apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq python3-venv >/dev/null; \
+	    $(PYTHON) -m venv $(VENV); \
+	  else \
+	    echo "Python cannot create a virtual environment here; install python3-venv" \
+	         "(sudo apt-get install python3-venv) and run make again." >&2; exit 1; \
+	  fi; \
+	fi
 	$(PY) -m pip install --quiet --upgrade pip
 	$(PY) -m pip install --quiet -e '.[test]'
 	touch $(STAMP)
