@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
 from typing import Any
 
@@ -48,8 +49,14 @@ def diagnostics_document(job: Job) -> dict[str, Any]:
     return {"job": job.id, "quantities": quantities, "sampler": sampler, "verdict": job.verdict}
 
 
+# A comma separates names except inside brackets, where it separates indices ("L[2,1]").
+NAME_SEPARATOR = re.compile(r",(?![^\[\]]*\])")
+
+
 def _parse_list(raw: str | None) -> list[str]:
-    return [part.strip() for part in raw.split(",") if part.strip()] if raw else []
+    if not raw:
+        return []
+    return [part.strip() for part in NAME_SEPARATOR.split(raw) if part.strip()]
 
 
 def _arrays(runtime: Runtime, chain_id: int, kind: str) -> list[ChainArray]:

@@ -274,3 +274,25 @@ def test_readiness_reflects_the_broker(app, sqlite_store) -> None:
     response, health = get(unreachable.test_client(), "/v1/health/ready")
     assert response.status_code == 503 and health["status"] == "unavailable"
     assert health["checks"]["database"]["ok"] and not health["checks"]["broker"]["ok"]
+
+
+def test_quantity_lists_split_on_commas_outside_brackets() -> None:
+    """Flat names index matrices as L[2,1] (DEVELOPERS.md, the model spec), so a comma inside
+    brackets belongs to the name."""
+    from service.problem_details import ApiProblem
+    from service.results import select_columns
+
+    names = ["mu", "L[1,1]", "L[2,1]", "L[2,2]", "log_likelihood.obs[3]"]
+    chains = [type("ChainRow", (), {"chain_index": i, "id": i})() for i in range(3)]
+    chosen = select_columns(names, chains, "L[2,1], mu,log_likelihood.obs[3]", "3,1", "4")
+    assert chosen.names == ["L[2,1]", "mu", "log_likelihood.obs[3]"]
+    assert chosen.columns == [2, 0, 4] and chosen.chains == [2, 0] and chosen.thin == 4
+    for quantities, chain_list, thin in (
+        ("L[3,1]", None, None),
+        (None, "4", None),
+        (None, "0", None),
+        (None, None, "0"),
+    ):
+        with pytest.raises(ApiProblem) as refused:
+            select_columns(names, chains, quantities, chain_list, thin)
+        assert refused.value.status == 400

@@ -288,7 +288,7 @@ def test_a_chain_whose_worker_dies_resumes_from_its_checkpoint(
             "DRAWYARD_CHECKPOINT_EVERY": "2000",
         },
     )
-    body = normal_mean(chains=1, warmup=500, draws=40_000, seed=31)
+    body = normal_mean(chains=1, warmup=500, draws=24_000, seed=31)
     job_url = submit(service.base_url, body)
     job_id = job_url.rsplit("/", 1)[1]
     deadline = time.monotonic() + 120
