@@ -161,7 +161,7 @@ def test_resolve_sampler_fills_every_default() -> None:
         ({"warmup_iterations": 200_000}, ["/sampler/warmup_iterations"]),
         ({"seed": -1}, ["/sampler/seed"]),
         ({"target_acceptance": 1.0}, ["/sampler/target_acceptance"]),
-        ({"max_tree_depth": 0}, ["/sampler/max_tree_depth"]),
+        ({"maximum_tree_depth": 0}, ["/sampler/maximum_tree_depth"]),
         ({"metric": "full"}, ["/sampler/metric"]),
         ({"integration_time": -1}, ["/sampler/integration_time"]),
         ({"jitter": "yes"}, ["/sampler/jitter"]),

@@ -27,7 +27,7 @@ DEFAULT_CHAINS = 4
 DEFAULT_MAX_CHAINS = 16
 DEFAULT_MAX_DRAWS = 100_000
 MAX_SEED = 2**63 - 1  # seeds travel through JSON and SQL as signed 64-bit integers
-MAX_TREE_DEPTH_LIMIT = 30
+TREE_DEPTH_LIMIT = 30
 TOP_LEVEL_MEMBERS = ("model", "data", "sampler", "checks", "labels")
 # settings of the runner itself, beside those of one chain (SamplerSettings)
 JOB_SETTINGS = ("chains", "seed", "initial_values")
@@ -94,7 +94,7 @@ def sampler_problems(
         "chains": lambda v: _integer_problem(v, 1, max_chains, "number of chains"),
         "seed": lambda v: _integer_problem(v, 0, MAX_SEED, "seed"),
         "target_acceptance": _acceptance_problem,
-        "max_tree_depth": lambda v: _integer_problem(v, 1, MAX_TREE_DEPTH_LIMIT, "maximum tree "
+        "maximum_tree_depth": lambda v: _integer_problem(v, 1, TREE_DEPTH_LIMIT, "maximum tree "
                                                      "depth"),
         "metric": lambda v: _choice_problem(v, METRICS, "metric"),
         "integration_time": lambda v: _positive_problem(v, "integration time"),
@@ -403,7 +403,7 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
     draws = np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
     summary = summarize(draws, list(results[0].names))
-    depth = resolved["max_tree_depth"] if resolved["method"] == "nuts" else None
+    depth = resolved["maximum_tree_depth"] if resolved["method"] == "nuts" else None
     report = sampler_checks([dict(r.stats) for r in results], depth)
     report["step_size_per_chain"] = [
         float(r.adapted["step_size"]) if "step_size" in r.adapted else None for r in results

@@ -16,8 +16,8 @@ import pytest
 from scipy import stats
 
 from tests.diagnostics.series import ar1
-from worker.diagnostics import mcse_mean, mcse_quantile, mcse_sd
-from worker.diagnostics.mcse import mcse_mean_batch, mcse_quantile_batch, mcse_sd_batch
+from worker.diagnostics import mcse_mean, mcse_of_sd, mcse_quantile
+from worker.diagnostics.mcse import mcse_mean_batch, mcse_of_sd_batch, mcse_quantile_batch
 
 REPLICATES = 100
 CHAINS = 4
@@ -52,8 +52,8 @@ def test_mcse_of_mean_matches_spread_of_means_for_ar1() -> None:
 
 def test_mcse_of_sd_of_iid_normal_is_sigma_over_root_2n(iid_normal: np.ndarray) -> None:
     expected = 2.0 / np.sqrt(2.0 * N)
-    assert _mean_within_4_se(mcse_sd_batch(iid_normal), expected)
-    assert abs(mcse_sd(iid_normal[0]) - expected) < 0.15 * expected
+    assert _mean_within_4_se(mcse_of_sd_batch(iid_normal), expected)
+    assert abs(mcse_of_sd(iid_normal[0]) - expected) < 0.15 * expected
 
 
 @pytest.mark.parametrize("p", [0.05, 0.5, 0.95])

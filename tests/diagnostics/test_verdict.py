@@ -31,7 +31,7 @@ def _good_report(chains: int = 4, draws: int = 1000) -> dict:
             }
             for c in range(chains)
         ],
-        max_tree_depth=10,
+        maximum_tree_depth=10,
     )
 
 
@@ -43,7 +43,7 @@ def test_summary_of_iid_normal_draws_agrees_with_scipy() -> None:
     (record,) = summarize(draws, ["x"])
     truth = stats.norm(1.0, 2.0)
     assert abs(record["mean"] - truth.mean()) < 4 * record["mcse_mean"]
-    assert abs(record["sd"] - truth.std()) < 4 * record["mcse_sd"]
+    assert abs(record["sd"] - truth.std()) < 4 * record["mcse_of_sd"]
     for p, label in ((0.05, "5%"), (0.5, "50%"), (0.95, "95%")):
         error = abs(record["quantiles"][label] - truth.ppf(p))
         assert error < 4 * record["mcse_quantiles"][label]
@@ -175,7 +175,7 @@ def test_sampler_checks_counts_per_chain() -> None:
             "energy": np.array([2.0, 2.0, 2.0, 2.0]),
         },
     ]
-    report = sampler_checks(stats_per_chain, max_tree_depth=5)
+    report = sampler_checks(stats_per_chain, maximum_tree_depth=5)
     assert report["divergences"] == 2 and report["divergences_per_chain"] == [2, 0]
     assert report["tree_depth_hits"] == 6 and report["tree_depth_hits_per_chain"] == [2, 4]
     assert report["mean_acceptance_per_chain"] == pytest.approx([0.75, 0.9])
@@ -186,7 +186,7 @@ def test_sampler_checks_counts_per_chain() -> None:
 
 
 def test_sampler_checks_for_a_method_without_trees_or_energy() -> None:
-    report = sampler_checks([{"acceptance": np.full(10, 0.25)}] * 2, max_tree_depth=None)
+    report = sampler_checks([{"acceptance": np.full(10, 0.25)}] * 2, maximum_tree_depth=None)
     assert report["divergences"] is None and report["tree_depth_hits"] is None
     assert report["ebfmi_per_chain"] == [None, None]
     assert verdict([], report)["passed"]

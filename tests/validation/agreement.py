@@ -53,7 +53,7 @@ def mismatches(record: dict, truth: Mapping[str, float], k: float = TOLERANCE_MC
     if "mean" in truth:
         pairs.append(("mean", record["mean"], record["mcse_mean"], truth["mean"]))
     if "sd" in truth:
-        pairs.append(("sd", record["sd"], record["mcse_sd"], truth["sd"]))
+        pairs.append(("sd", record["sd"], record["mcse_of_sd"], truth["sd"]))
     for label in PROBABILITIES:
         if label in truth:
             pairs.append(

@@ -109,6 +109,6 @@ def test_logistic_regression_posterior_mean_matches_mle(method: str) -> None:
         if mean_gap > 0.1 * fit.bse[j] + 4 * record["mcse_mean"]:
             problems.append(f"{name}: mean {record['mean']} vs MLE {fit.params[j]}")
         sd_gap = abs(record["sd"] - fit.bse[j])
-        if sd_gap > 0.1 * fit.bse[j] + 4 * record["mcse_sd"]:
+        if sd_gap > 0.1 * fit.bse[j] + 4 * record["mcse_of_sd"]:
             problems.append(f"{name}: sd {record['sd']} vs MLE se {fit.bse[j]}")
     assert not problems, problems

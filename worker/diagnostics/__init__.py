@@ -2,7 +2,7 @@
 
 from worker.diagnostics.energy import ebfmi
 from worker.diagnostics.ess import bulk_ess, ess, quantile_ess, tail_ess
-from worker.diagnostics.mcse import mcse_mean, mcse_quantile, mcse_sd
+from worker.diagnostics.mcse import mcse_mean, mcse_of_sd, mcse_quantile
 from worker.diagnostics.rhat import classic_split_rhat, split_rhat
 from worker.diagnostics.sampler_report import sampler_checks
 from worker.diagnostics.summary import summarize
@@ -18,7 +18,7 @@ __all__ = [
     "ess",
     "mcse_mean",
     "mcse_quantile",
-    "mcse_sd",
+    "mcse_of_sd",
     "quantile_ess",
     "resolve_thresholds",
     "sampler_checks",

@@ -29,7 +29,7 @@ def mcse_mean_batch(x: np.ndarray) -> np.ndarray:
     return sd / np.sqrt(ess_batch(x))
 
 
-def mcse_sd_batch(x: np.ndarray) -> np.ndarray:
+def mcse_of_sd_batch(x: np.ndarray) -> np.ndarray:
     """MCSE of the sd of each quantity of a ``(q, chains, draws)`` batch."""
     q = x.shape[0]
     flat = x.reshape(q, -1)
@@ -66,9 +66,9 @@ def mcse_mean(x: np.ndarray) -> float:
     return float(mcse_mean_batch(as_batch(x))[0])
 
 
-def mcse_sd(x: np.ndarray) -> float:
+def mcse_of_sd(x: np.ndarray) -> float:
     """MCSE of the sd of one quantity's ``(chains, draws)`` array."""
-    return float(mcse_sd_batch(as_batch(x))[0])
+    return float(mcse_of_sd_batch(as_batch(x))[0])
 
 
 def mcse_quantile(x: np.ndarray, p: float) -> float:

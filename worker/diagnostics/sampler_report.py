@@ -12,22 +12,24 @@ def _finite_or_none(value: float) -> float | None:
     return float(value) if np.isfinite(value) else None
 
 
-def sampler_checks(stats: list[dict[str, np.ndarray]], max_tree_depth: int | None) -> dict:
+def sampler_checks(stats: list[dict[str, np.ndarray]], maximum_tree_depth: int | None) -> dict:
     """Summarise each chain's per-draw statistics (sampling phase only) into a JSON-able report.
 
     ``stats[c]`` holds arrays such as ``divergent``, ``tree_depth``, ``acceptance`` and ``energy``
     for chain ``c``; a draw counts as hitting the depth limit when its tree depth reaches
-    ``max_tree_depth`` (None when the method builds no trees).
+    ``maximum_tree_depth`` (None when the method builds no trees).
     """
     has_divergent = bool(stats) and all("divergent" in s for s in stats)
-    has_depth = bool(stats) and max_tree_depth is not None and all("tree_depth" in s for s in stats)
+    has_depth = (
+        bool(stats) and maximum_tree_depth is not None and all("tree_depth" in s for s in stats)
+    )
     divergences = (
         [int(np.count_nonzero(np.asarray(s["divergent"]))) for s in stats]
         if has_divergent
         else None
     )
     depth_hits = (
-        [int(np.count_nonzero(np.asarray(s["tree_depth"]) >= max_tree_depth)) for s in stats]
+        [int(np.count_nonzero(np.asarray(s["tree_depth"]) >= maximum_tree_depth)) for s in stats]
         if has_depth
         else None
     )
@@ -42,7 +44,7 @@ def sampler_checks(stats: list[dict[str, np.ndarray]], max_tree_depth: int | Non
         "draws_per_chain": draws,
         "divergences": sum(divergences) if divergences is not None else None,
         "divergences_per_chain": divergences,
-        "max_tree_depth": max_tree_depth,
+        "maximum_tree_depth": maximum_tree_depth,
         "tree_depth_hits": sum(depth_hits) if depth_hits is not None else None,
         "tree_depth_hits_per_chain": depth_hits,
         "mean_acceptance_per_chain": acceptance,

@@ -8,7 +8,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from worker.diagnostics.ess import bulk_ess_batch, tail_ess_batch
-from worker.diagnostics.mcse import mcse_mean_batch, mcse_quantile_batch, mcse_sd_batch
+from worker.diagnostics.mcse import mcse_mean_batch, mcse_of_sd_batch, mcse_quantile_batch
 from worker.diagnostics.rhat import split_rhat_batch
 from worker.diagnostics.splitting import MIN_DRAWS_PER_CHAIN
 
@@ -49,10 +49,10 @@ def summarize(
 ) -> list[dict]:
     """One record per quantity of ``draws`` shaped ``(chains, draws, quantities)``.
 
-    A record holds ``name``, ``mean``, ``sd``, ``quantiles`` and ``mcse_quantiles`` (keyed '5%'...),
-    ``mcse_mean``, ``mcse_sd``, ``bulk_ess``, ``tail_ess``, ``rhat`` and ``note``: None, or why the
-    diagnostics are None: 'constant' (every draw identical), 'not_finite' (some draw is NaN or
-    infinite) or 'too_few_draws' (fewer than four per chain).
+    A record holds ``name``, ``mean``, ``sd``, ``quantiles`` and ``mcse_quantiles`` (keyed
+    '5%'...), ``mcse_mean``, ``mcse_of_sd``, ``bulk_ess``, ``tail_ess``, ``rhat`` and ``note``:
+    None, or why the diagnostics are None: 'constant' (every draw identical), 'not_finite' (some
+    draw is NaN or infinite) or 'too_few_draws' (fewer than four per chain).
     """
     values = np.asarray(draws, dtype=np.float64)
     if values.ndim != 3:
@@ -86,7 +86,7 @@ def _summarize_block(
         enough = block.shape[2] >= MIN_DRAWS_PER_CHAIN
         nan = np.full(q, np.nan)
         mcse_mean = mcse_mean_batch(block) if enough else nan
-        mcse_sd = mcse_sd_batch(block) if enough else nan
+        mcse_of_sd = mcse_of_sd_batch(block) if enough else nan
         mcse_points = [mcse_quantile_batch(block, p) if enough else nan for p in probabilities]
         bulk = bulk_ess_batch(block) if enough else nan
         tail = tail_ess_batch(block) if enough else nan
@@ -103,7 +103,7 @@ def _summarize_block(
                 "quantiles": {lab: _json_number(points[j, i]) for j, lab in enumerate(labels)},
                 # a constant quantity is known exactly: its Monte Carlo errors are zero
                 "mcse_mean": 0.0 if constant else _json_number(mcse_mean[i]),
-                "mcse_sd": 0.0 if constant else _json_number(mcse_sd[i]),
+                "mcse_of_sd": 0.0 if constant else _json_number(mcse_of_sd[i]),
                 "mcse_quantiles": {
                     lab: 0.0 if constant else _json_number(mcse_points[j][i])
                     for j, lab in enumerate(labels)
