@@ -73,9 +73,6 @@ class Graph:
     def type_of(self, node_id: int) -> ValueType:
         return self.nodes[node_id].type
 
-    def depends_on_unknowns(self, node_id: int) -> bool:
-        return not self.nodes[node_id].constant
-
     # ---- expressions
     def add_expression(self, tree: ex.Node) -> int:
         """Turn a syntax tree into graph nodes; raises ExpressionError with a position."""
