@@ -145,6 +145,9 @@ CASES = [
     ("prior support against the declaration", setting(["priors", 0], {
         "on": "mu", "distribution": "half_normal", "arguments": {"scale": 1}}),
      "/model/priors/0/distribution", "declare 'mu' with lower: 0"),
+    ("uniform prior on an unknown that can leave its interval", setting(["priors", 1], {
+        "on": "tau", "distribution": "uniform", "arguments": {"lower": 0, "upper": 10}}),
+     "/model/priors/1/distribution", "declare 'tau' with lower: 0 and upper: 10"),
     ("lower bound not below upper bound", setting(["unknowns", "tau"], {"lower": 2, "upper": 1}),
      "/model/unknowns/tau", "the lower bound 2 must be below the upper bound 1"),
     # --- bad values in the data

@@ -353,6 +353,9 @@ class _Assembler:
             if not self.elementwise_shapes(context, at, distribution, *args, shape,
                                            f"'{target}'"):
                 continue
+            if target in self.declared_unknowns and distribution.variate_kind == "interval":
+                self.interval_support(target, dict(zip(*args, strict=True)),
+                                      pointer(*at, "distribution"), context)
             declared = self.declared_unknowns.get(target, {})
             guaranteed = (declared.get("lower") is not None and declared["lower"] >= 0) or \
                 declared.get("structure") in ("positive_ordered", "simplex")
@@ -398,6 +401,19 @@ class _Assembler:
         elif kind in ("simplex", "cholesky_correlation") and structure != kind:
             self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
                              f"declare '{target}' with structure: {kind}")
+
+    def interval_support(self, target: str, args: dict[str, int], at: str, context: str) -> None:
+        """A prior on [lower, upper] needs an unknown that cannot leave that interval."""
+        graph = self.out.graph
+        values = {n: graph.nodes[k].value for n, k in args.items()}
+        if any(v is None or v.ndim for v in values.values()):
+            return  # bounds that vary or are arrays: the density itself says -inf outside
+        low, high = float(values["lower"]), float(values["upper"])
+        declared = self.declared_unknowns[target]
+        lower, upper = declared.get("lower"), declared.get("upper")
+        if lower is None or upper is None or lower < low or upper > high:
+            self.problem(at, f"{context}: the prior is zero outside [{low:g}, {high:g}], so "
+                             f"declare '{target}' with lower: {low:g} and upper: {high:g}")
 
     # ---- likelihood
     def likelihood(self) -> None:
