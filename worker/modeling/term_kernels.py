@@ -57,29 +57,36 @@ def _reducer(shape: tuple[int, ...], batch: tuple[int, ...]):
 
 
 class GenericTerm:
-    """Any distribution, through its own log_density_and_gradients."""
+    """Any distribution, through its own log_density_and_gradients.
 
-    __slots__ = ("variate", "distribution", "names", "nodes", "wrt", "wanted")
+    The argument mapping is built once; a call refreshes only the entries that depend on unknowns.
+    """
+
+    __slots__ = ("variate", "distribution", "wrt", "wanted", "args")
 
     def __init__(self, variate: int, distribution: Any, names: tuple[str, ...],
                  nodes: tuple[int, ...], graph: Graph):
         self.variate = variate
         self.distribution = distribution
-        self.names = names
-        self.nodes = nodes
         self.wanted = tuple((n, k) for n, k in zip(names, nodes, strict=True)
                             if not graph.nodes[k].constant)
         self.wrt = frozenset([n for n, _ in self.wanted]
                              + ([] if graph.nodes[variate].constant else ["x"]))
+        self.args = {n: _compact(graph.nodes[k].value) for n, k in zip(names, nodes, strict=True)
+                     if graph.nodes[k].constant}
+
+    def _refresh(self, v: list[Any]) -> dict[str, Any]:
+        args = self.args
+        for name, node in self.wanted:
+            args[name] = v[node]
+        return args
 
     def value(self, v: list[Any]) -> float:
-        args = {n: v[k] for n, k in zip(self.names, self.nodes, strict=True)}
-        return float(np.sum(self.distribution.log_density(v[self.variate], args)))
+        return float(np.sum(self.distribution.log_density(v[self.variate], self._refresh(v))))
 
     def run(self, v: list[Any], adjoint: list[Any]) -> float:
-        args = {n: v[k] for n, k in zip(self.names, self.nodes, strict=True)}
-        pointwise, grads = self.distribution.log_density_and_gradients(v[self.variate], args,
-                                                                        self.wrt)
+        pointwise, grads = self.distribution.log_density_and_gradients(
+            v[self.variate], self._refresh(v), self.wrt)
         for name, node in self.wanted:
             _accumulate(adjoint, node, grads[name])
         if "x" in self.wrt:
