@@ -13,7 +13,7 @@ from service.job_resources import job_resource
 from service.plots.job_arrays import quantity_names
 from service.problem_details import ApiProblem
 from service.store.models import JOB_STATES, TERMINAL_STATES, Chain, Job
-from service.submissions import submit
+from service.submissions import submit, validate
 from service.views.context import runtime
 from service.web.advice import grouped_failures
 from service.web.blueprint import web
@@ -140,6 +140,13 @@ def submit_form() -> tuple[str, int] | Response:
     state = read_form(request.form, request.files)
     body = build_body(state)
     if body is None:
+        return _form_page(state, 422)
+    if state.problems:
+        # The labels could not be read; check the rest too, so every problem shows at once.
+        try:
+            validate(body, runtime().settings)
+        except ApiProblem as problem:
+            place_problems(state, body, problem.errors)
         return _form_page(state, 422)
     try:
         # The form's token is the idempotency key: submitting the same form twice (a double

@@ -123,14 +123,18 @@ def _labels(state: FormState) -> dict[str, str]:
 
 
 def build_body(state: FormState) -> dict[str, Any] | None:
-    """The submission body, or None when the form itself could not be read (problems added)."""
+    """The submission body, or None when the spec or data is not JSON (problems added).
+
+    Malformed label lines are added to the problems but leave the body (without them), so the
+    caller can still have the service check the rest and show every problem at once.
+    """
     model = _parse_json(state, "model", state.model_text, "model spec")
     data = _parse_json(state, "data", state.data_text, "data")
     sampler = {name: _sampler_value(SAMPLER_FIELDS[name], raw)
                for name, raw in state.sampler.items() if raw}
-    labels = _labels(state)
     if state.problems:
         return None
+    labels = _labels(state)
     # Lay the spec and data out afresh so the line numbers shown with problems match the text.
     state.model_text = layout(model)[0]
     state.data_text = layout(data)[0]

@@ -1,0 +1,292 @@
+"""The pages' views through Flask's test client, against a real SQLite store and a real Redis.
+
+No worker runs here: a finished job is made by running its chains and its finishing step in this
+process through the same functions the Celery tasks call (service.chain_work.run_chain,
+service.finishing.finish). What the pages show is compared with the JSON API's answers for the
+same job, and with outside references named beside each check.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import re
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+from flask import Flask
+from flask.testing import FlaskClient
+
+from service.app import create_app
+from service.chain_work import run_chain
+from service.demo import demo_submission
+from service.finishing import finish
+from service.problem_details import ApiProblem
+from service.store import migrate
+from service.web.access import ACCESS_CHECK
+from service.web.advice import ADVICE
+from tests.conftest import sqlite_url
+
+SMALL = {"chains": 2, "warmup": 100, "draws": 100}
+
+
+def make_app(folder: Path, broker_url: str) -> Flask:
+    url = sqlite_url(folder / "store.sqlite")
+    migrate(url)
+    app = create_app({"database_url": url, "broker_url": broker_url})
+    app.config["DRAWYARD_PLOT_CACHE"] = str(folder / "plots")
+    return app
+
+
+@pytest.fixture
+def client(tmp_path: Path, redis_url: str) -> FlaskClient:
+    return make_app(tmp_path, redis_url).test_client()
+
+
+def demo_form(**changes: str) -> dict[str, str]:
+    body = demo_submission(SMALL["chains"], SMALL["warmup"], SMALL["draws"])
+    form = {
+        "model_text": json.dumps(body["model"]),
+        "data_text": json.dumps(body["data"]),
+        "chains": str(SMALL["chains"]),
+        "warmup_iterations": str(SMALL["warmup"]),
+        "draws": str(SMALL["draws"]),
+        "seed": "11",
+        "labels_text": "scenario=bakery-demo\nowner=analytics\n",
+        "token": "form-token-1",
+    }
+    form.update(changes)
+    return form
+
+
+def problems_of(page: str, field: str) -> list[dict[str, str]]:
+    """The problems the page lists beside one field: pointer, line and message."""
+    block = re.search(rf'<ul class="problems" id="problems-{field}".*?</ul>', page, re.S)
+    if block is None:
+        return []
+    found = []
+    for item in re.finditer(r'<li data-pointer="([^"]*)"(?: data-line="(\d+)")?>(.*?)</li>',
+                            block.group(0), re.S):
+        message = re.search(r'<span class="message">(.*?)</span>', item.group(3), re.S)
+        found.append({"pointer": item.group(1), "line": item.group(2),
+                      "message": message.group(1) if message else ""})
+    return found
+
+
+def textarea(page: str, name: str) -> str:
+    import html
+
+    match = re.search(rf'<textarea id="{name}"[^>]*>(.*?)</textarea>', page, re.S)
+    assert match is not None
+    return html.unescape(match.group(1))
+
+
+def test_pages_render_and_the_demo_button_fills_in_the_demo(client: FlaskClient) -> None:
+    assert client.get("/").headers["Location"].endswith("/jobs")
+    jobs = client.get("/jobs")
+    assert jobs.status_code == 200 and "No jobs yet." in jobs.get_data(as_text=True)
+    empty = client.get("/submit").get_data(as_text=True)
+    assert textarea(empty, "model_text") == ""
+    page = client.get("/submit?demo=bakery").get_data(as_text=True)
+    body = demo_submission()
+    # The page reuses service/demo.py's scenario: the same spec and data, read back as JSON.
+    assert json.loads(textarea(page, "model_text")) == body["model"]
+    assert json.loads(textarea(page, "data_text")) == body["data"]
+    assert "scenario=bakery-demo" in textarea(page, "labels_text")
+
+
+def test_submitting_the_form_queues_a_job_shown_in_the_list(client: FlaskClient) -> None:
+    answer = client.post("/submit", data=demo_form())
+    assert answer.status_code == 303
+    job_id = answer.headers["Location"].rsplit("/", 1)[1]
+    job = client.get(f"/v1/jobs/{job_id}").get_json()
+    assert job["state"] == "queued"
+    assert job["labels"] == {"scenario": "bakery-demo", "owner": "analytics"}
+    assert len(job["chains"]) == SMALL["chains"]
+
+    page = client.get(f"/jobs/{job_id}").get_data(as_text=True)
+    assert page.count("<tr data-chain=") == SMALL["chains"]
+    assert 'data-status-url="/v1/jobs/' + job_id + '"' in page
+    assert "job.js" in page  # the live progress script, only while the job runs
+
+    listing = client.get("/jobs?label=owner:analytics").get_data(as_text=True)
+    assert f'href="/jobs/{job_id}"' in listing and "queued" in listing
+    assert f'href="/jobs/{job_id}"' not in client.get("/jobs?state=succeeded").get_data(
+        as_text=True)
+    assert f'href="/jobs/{job_id}"' not in client.get("/jobs?label=owner:nobody").get_data(
+        as_text=True)
+
+    # The same form sent twice (a double click) is one job: its token is the idempotency key.
+    again = client.post("/submit", data=demo_form())
+    assert again.headers["Location"] == answer.headers["Location"]
+
+
+def test_a_bad_label_filter_is_shown_beside_the_filter(client: FlaskClient) -> None:
+    page = client.get("/jobs?label=no-colon").get_data(as_text=True)
+    assert 'id="label-problem"' in page and "key:value" in page
+    assert 'aria-invalid="true"' in page
+
+
+def test_invalid_json_is_shown_at_its_line(client: FlaskClient) -> None:
+    broken = '{\n  "title": "x",\n  "inputs": {,\n}'
+    page = client.post("/submit", data=demo_form(model_text=broken))
+    assert page.status_code == 422
+    text = page.get_data(as_text=True)
+    # The standard library's parser puts the stray comma on line 3.
+    with pytest.raises(json.JSONDecodeError) as parsed:
+        json.loads(broken)
+    found = problems_of(text, "model")
+    assert [p["line"] for p in found] == [str(parsed.value.lineno)] == ["3"]
+    assert textarea(text, "model_text") == broken  # the analyst's text comes back as typed
+
+
+def test_service_problems_are_placed_beside_their_fields_and_lines(client: FlaskClient) -> None:
+    body = demo_submission(2, 100, 100)
+    body["model"]["priors"][1]["distribution"] = "half_norml"
+    body["data"]["orders"][3] = -5
+    page = client.post("/submit", data=demo_form(
+        model_text=json.dumps(body["model"]), data_text=json.dumps(body["data"]), chains="two",
+        labels_text="scenario bakery"))
+    assert page.status_code == 422
+    text = page.get_data(as_text=True)
+
+    model = problems_of(text, "model")
+    assert [p["pointer"] for p in model] == ["/model/priors/1/distribution"]
+    spec_lines = textarea(text, "model_text").splitlines()
+    assert '"distribution": "half_norml"' in spec_lines[int(model[0]["line"]) - 1]
+
+    data = problems_of(text, "data")
+    assert [p["pointer"] for p in data] == ["/data/orders/3"]
+    assert spec_line_starts(textarea(text, "data_text"), int(data[0]["line"]), '"orders":')
+    chains = problems_of(text, "sampler-chains")
+    assert [p["pointer"] for p in chains] == ["/sampler/chains"]
+    assert problems_of(text, "labels")[0]["line"] == "1"
+    # The labels are checked before anything is sent, so no job exists.
+    assert client.get("/v1/jobs").get_json()["jobs"] == []
+
+
+def spec_line_starts(text: str, line: int, start: str) -> bool:
+    return text.splitlines()[line - 1].strip().startswith(start)
+
+
+def test_refused_submission_stores_nothing(client: FlaskClient) -> None:
+    body = demo_submission(2, 100, 100)
+    body["model"]["priors"][1]["distribution"] = "half_norml"
+    page = client.post("/submit", data=demo_form(model_text=json.dumps(body["model"])))
+    assert page.status_code == 422
+    assert client.get("/v1/jobs").get_json()["jobs"] == []
+
+
+def test_cancel_button_cancels_a_queued_job(client: FlaskClient) -> None:
+    job_id = client.post("/submit", data=demo_form()).headers["Location"].rsplit("/", 1)[1]
+    answer = client.post(f"/jobs/{job_id}/cancel")
+    assert answer.status_code == 303
+    assert client.get(f"/v1/jobs/{job_id}").get_json()["state"] == "cancelled"
+    assert "has no results" in client.get(f"/jobs/{job_id}").get_data(as_text=True)
+
+
+def test_unknown_job_and_unfinished_plots(client: FlaskClient) -> None:
+    missing = client.get("/jobs/" + "f" * 32)
+    assert missing.status_code == 404 and missing.mimetype == "text/html"
+    job_id = client.post("/submit", data=demo_form()).headers["Location"].rsplit("/", 1)[1]
+    plot = client.get(f"/jobs/{job_id}/plots/trace.svg?quantity=branch_spread")
+    assert plot.status_code == 409 and plot.mimetype == "application/problem+json"
+
+
+def test_the_access_check_guards_every_page(tmp_path: Path, redis_url: str) -> None:
+    app = make_app(tmp_path, redis_url)
+
+    def refuse(request) -> None:
+        raise ApiProblem(401, "unauthenticated", "Not signed in", "Give an API key.")
+
+    app.extensions[ACCESS_CHECK] = refuse
+    client = app.test_client()
+    for path in ("/jobs", "/submit", "/jobs/" + "0" * 32):
+        assert client.get(path).status_code == 401
+    assert client.post("/submit", data=demo_form()).status_code == 401
+
+
+@pytest.fixture(scope="module")
+def finished(tmp_path_factory: pytest.TempPathFactory, redis_server) -> Iterator[tuple]:
+    """A demo job run to the end in this process, with a bulk ESS threshold it cannot meet."""
+    folder = tmp_path_factory.mktemp("finished")
+    app = make_app(folder, redis_server.url)
+    client = app.test_client()
+    body = demo_submission(SMALL["chains"], SMALL["warmup"], SMALL["draws"])
+    body["checks"] = {"min_bulk_ess": 1_000_000}
+    job_id = client.post("/v1/jobs", json=body).get_json()["id"]
+    runtime = app.extensions["drawyard"]
+    for chain in range(SMALL["chains"]):
+        assert run_chain(runtime, job_id, chain).status == "succeeded"
+    finish(runtime, job_id)
+    assert client.get(f"/v1/jobs/{job_id}").get_json()["state"] == "succeeded"
+    yield client, job_id, folder / "plots"
+
+
+def test_finished_job_page_shows_verdict_advice_cautions_and_summary(finished) -> None:
+    client, job_id, _ = finished
+    page = client.get(f"/jobs/{job_id}").get_data(as_text=True)
+    summary = client.get(f"/v1/jobs/{job_id}/summary").get_json()
+    verdict = summary["verdict"]
+    assert verdict["passed"] is False
+    checks = {f["check"] for f in verdict["failed_checks"]}
+    assert "min_bulk_ess" in checks
+    assert set(re.findall(r'class="failed-check" data-check="([a-z_]+)"', page)) == checks
+    for check in checks:
+        assert ADVICE[check].remedy in page
+    for failure in verdict["failed_checks"]:
+        assert failure["message"].replace("'", "&#39;") in page
+    assert "does not prove the model right" in page
+    assert "qualified statistician" in page
+    rows = re.findall(r'<th scope="row"><code>([^<]+)</code>', page)
+    assert rows == [q["name"] for q in summary["quantities"]]
+    assert "job.js" not in page  # nothing to follow once the job has ended
+
+
+def read(client: FlaskClient, path: str) -> bytes:
+    answer = client.get(path)
+    try:
+        return answer.get_data()
+    finally:
+        answer.close()
+
+
+def test_every_download_link_answers_in_its_format(finished) -> None:
+    client, job_id, _ = finished
+    page = client.get(f"/jobs/{job_id}").get_data(as_text=True)
+    links = re.findall(r'<li><a href="(/v1/jobs/[^"]+)"', page)
+    assert len(links) == 7
+    for link in links:
+        answer = client.get(link)
+        assert answer.status_code == 200, link
+        assert answer.mimetype == ("text/csv" if "format=csv" in link else "application/json")
+        answer.close()  # streamed answers hold their request context until closed
+    draws = read(client, f"/v1/jobs/{job_id}/draws?format=csv").decode()
+    header = next(csv.reader(io.StringIO(draws)))
+    names = json.loads(read(client, f"/v1/jobs/{job_id}/draws?format=json"))["quantities"]
+    assert header == ["chain", "draw", *names]
+
+
+def test_plots_are_svg_cached_and_revalidated(finished) -> None:
+    client, job_id, cache = finished
+    page = client.get(f"/jobs/{job_id}?quantity=branch_spread&x=mean_log_orders"
+                      "&y=branch_spread").get_data(as_text=True)
+    sources = re.findall(r'<img src="([^"]+)"', page)
+    assert [re.search(r"plots/(\w+)\.svg", s).group(1) for s in sources] == [
+        "trace", "ranks", "density", "scatter"]
+    for source in sources:
+        source = source.replace("&amp;", "&")
+        first = client.get(source)
+        assert first.status_code == 200 and first.mimetype == "image/svg+xml"
+        assert first.data.lstrip().startswith(b"<?xml") and b"<svg" in first.data
+        again = client.get(source, headers={"If-None-Match": first.headers["ETag"]})
+        assert again.status_code == 304
+    assert len(list((cache / job_id).glob("*.svg"))) == 4
+    assert "branch_spread" in client.get(sources[0].replace("&amp;", "&")).get_data(as_text=True)
+    bad = client.get(f"/jobs/{job_id}/plots/trace.svg?quantity=nothing")
+    assert bad.status_code == 400 and bad.mimetype == "application/problem+json"
+    assert client.get(f"/jobs/{job_id}/plots/violin.svg?quantity=branch_spread").status_code == 404
+    bins = client.get(f"/jobs/{job_id}/plots/ranks.svg?quantity=branch_spread&bins=2")
+    assert bins.status_code == 400
