@@ -32,14 +32,27 @@ class LiveService:
     broker_url: str
     _next_index: int = field(default=0, repr=False)
 
+    def add_workers(self, count: int = 1, timeout: float = 60.0) -> list[ChildProcess]:
+        """Start more workers at once (e.g. to take over after one was killed); wait for all."""
+        added = self._launch_workers(count)
+        self._wait_consuming(added, timeout)
+        return added
+
+    def _launch_workers(self, count: int) -> list[ChildProcess]:
+        added = []
+        for _ in range(count):
+            index = self._next_index
+            self._next_index += 1
+            added.append(start_worker(index, self.env, self.log_dir / f"worker{index}.log"))
+        self.workers.extend(added)
+        return added
+
+    def _wait_consuming(self, workers: list[ChildProcess], timeout: float) -> None:
+        for worker in workers:
+            wait_until(lambda w=worker: _worker_log_says_ready(w), workers, timeout, worker.name)
+
     def add_worker(self, timeout: float = 60.0) -> ChildProcess:
-        """Start one more worker (e.g. to take over after another was killed)."""
-        index = self._next_index
-        self._next_index += 1
-        worker = start_worker(index, self.env, self.log_dir / f"worker{index}.log")
-        self.workers.append(worker)
-        wait_until(lambda: _worker_log_says_ready(worker), [worker], timeout, f"{worker.name}")
-        return worker
+        return self.add_workers(1, timeout)[0]
 
     def kill_worker(self, index: int) -> None:
         """SIGKILL a worker's whole process group: the main process and its pool process."""
@@ -86,15 +99,11 @@ def start_live_service(
         f"http://127.0.0.1:{port}", api, [], full_env, log_dir, database_url, broker_url
     )
     try:
-        for _ in range(workers):
-            index = service._next_index
-            service._next_index += 1
-            service.workers.append(start_worker(index, full_env, log_dir / f"worker{index}.log"))
-        everyone = [api, *service.workers]
+        # Everything boots side by side; then the API must answer and every worker consume.
+        launched = service._launch_workers(workers)
         what = f"{service.base_url}{READY_PATH}"
-        wait_until(api_ready(service.base_url), everyone, timeout, what)
-        for worker in service.workers:
-            wait_until(lambda w=worker: _worker_log_says_ready(w), everyone, timeout, worker.name)
+        wait_until(api_ready(service.base_url), [api, *launched], timeout, what)
+        service._wait_consuming(launched, timeout)
     except BaseException:
         service.stop()
         raise
