@@ -46,6 +46,7 @@ def free_port() -> int:
 def _die_with_parent() -> None:
     # Runs in the child between fork and exec: if the launching process dies without cleaning up
     # (SIGKILL, a crash), the kernel sends the child SIGTERM instead of leaving it orphaned.
+    # The kernel ties this to the launching *thread*, so children are started from the main one.
     with contextlib.suppress(OSError, AttributeError):
         libc = ctypes.CDLL("libc.so.6", use_errno=True)
         libc.prctl(_PR_SET_PDEATHSIG, signal.SIGTERM)
