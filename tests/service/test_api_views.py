@@ -296,3 +296,40 @@ def test_quantity_lists_split_on_commas_outside_brackets() -> None:
         with pytest.raises(ApiProblem) as refused:
             select_columns(names, chains, quantities, chain_list, thin)
         assert refused.value.status == 400
+
+
+def test_concurrent_retries_with_one_idempotency_key_make_one_job(app, queue) -> None:
+    """The unique key in the store settles a race between two first attempts (the draft's
+    'concurrent requests' case): both get the same job, and its chains are queued once."""
+    import threading
+
+    body = normal_mean(chains=2)
+    barrier = threading.Barrier(4)
+    answers: list = [None] * 4
+
+    def attempt(i: int) -> None:
+        client = app.test_client()
+        barrier.wait()
+        response = client.post("/v1/jobs", json=body, headers={"Idempotency-Key": "race"})
+        answers[i] = (response.status_code, check_flask("POST", "/v1/jobs", response)["id"])
+
+    threads = [threading.Thread(target=attempt, args=(i,)) for i in range(4)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join(timeout=60)
+    assert len({job_id for _, job_id in answers}) == 1
+    assert sorted(status for status, _ in answers).count(202) == 1
+    assert row_counts(app)["jobs"] == 1 and queue.length() == 2
+
+
+def test_an_unreachable_broker_refuses_the_job_with_503(sqlite_store) -> None:
+    from service.app import create_app
+
+    app = create_app({"database_url": sqlite_store, "broker_url": "redis://127.0.0.1:1/0"})
+    response, problem = post(app.test_client(), normal_mean())
+    assert response.status_code == 503 and response.headers["Retry-After"]
+    # The job was stored before the broker refused it; it is marked failed, never left queued.
+    _, page = get(app.test_client(), "/v1/jobs")
+    assert [job["state"] for job in page["jobs"]] == ["failed"]
+    assert "broker" in page["jobs"][0]["error"]

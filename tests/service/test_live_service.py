@@ -142,6 +142,7 @@ def events_in_store(database_url: str, job_id: str) -> list[Event]:
         engine.dispose()
 
 
+@pytest.mark.slow
 def test_draws_over_http_are_bitwise_the_in_process_draws(
     database_url: str, redis_url: str, live_service
 ) -> None:
