@@ -7,10 +7,14 @@ reported, never thrown). When it returns no problems, compile_model must succeed
 
 import copy
 
+import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from worker.modeling import check_model, compile_model
+from worker.modeling import expressions as ex
+from worker.modeling.graph import Graph
+from worker.modeling.shapes import ValueType
 from worker.problems import Problem
 
 from .test_spec_problems import BASE, DATA
@@ -69,12 +73,6 @@ def test_check_model_never_raises(in_spec, index, new):
 @given(text=st.text(alphabet="xyz12.+-*/^@()[],<>=! _eapslogtd", max_size=40))
 def test_expressions_fail_only_with_expression_errors(text):
     """Arbitrary text: parsing and building either succeed or raise ExpressionError."""
-    import numpy as np
-
-    from worker.modeling import expressions as ex
-    from worker.modeling.graph import Graph
-    from worker.modeling.shapes import ValueType
-
     graph = Graph()
     graph.names["x"] = graph.leaf(ValueType("real", (3,)))
     graph.names["y"] = graph.leaf(ValueType("real", ()))

@@ -126,6 +126,9 @@ CASES = [
     # --- supports and bounds
     ("negative constant scale", setting(["priors", 0, "arguments", "scale"], -1),
      "/model/priors/0/arguments/scale", "argument 'scale' must be a positive number, got -1"),
+    ("array scale with a negative entry", setting(["priors", 2, "arguments", "scale"],
+                                                  [1, 1, 1, -1, 1, 1, 1, 1]),
+     "/model/priors/2/arguments/scale", "must be a positive number in every entry"),
     ("zero constant scale in a likelihood", setting(["likelihood", 0, "arguments", "scale"], 0),
      "/model/likelihood/0/arguments/scale", "must be a positive number, got 0"),
     ("data below its declared lower bound", setting(["sigma"], [15, 10, -16, 11, 9, 11, 10, 18],

@@ -203,9 +203,9 @@ class _Assembler:
             support = distribution.argument_support.get(arg, "real")
             value = graph.nodes[node].value
             if value is not None and not support_holds(support, value):
-                shown = f"{float(value):g}" if value.ndim == 0 else "an array with values outside"
+                shown = f", got {float(value):g}" if value.ndim == 0 else " in every entry"
                 self.problem(here, f"{context}: argument '{arg}' must be "
-                                   f"{SUPPORT_PHRASES.get(support, support)}, got {shown}")
+                                   f"{SUPPORT_PHRASES.get(support, support)}{shown}")
                 ok = False
                 continue
             names.append(arg)
