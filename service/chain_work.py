@@ -271,7 +271,7 @@ def run_chain(
         monitor.close()
         log.exception("chain %s of job %s failed", chain_index + 1, job_id)
         outcome = "failed"
-        ended = end_chain(runtime, lease, "failed", f"{type(error).__name__}: {error}")
+        ended = end_chain(runtime, lease, "failed", f"{type(error).__name__}: {error}", monitor)
     else:
         monitor.close()
         if result.completed:
@@ -281,23 +281,38 @@ def run_chain(
             return ChainOutcome("lease lost")
         elif monitor.stop_reason == "cancelled":
             outcome = "cancelled"
-            ended = end_chain(runtime, lease, "cancelled", None)
+            ended = end_chain(runtime, lease, "cancelled", None, monitor)
         elif monitor.stop_reason == "time_limit":
             outcome = "failed"
             limit = runtime.settings.chain_time_limit
             reason = f"the chain ran past its time limit of {limit} s"
-            ended = end_chain(runtime, lease, "failed", reason)
+            ended = end_chain(runtime, lease, "failed", reason, monitor)
         else:
             outcome = "failed"
-            ended = end_chain(runtime, lease, "failed", "the sampler stopped before the last draw")
+            reason = "the sampler stopped before the last draw"
+            ended = end_chain(runtime, lease, "failed", reason, monitor)
     if ended and claim_finish(runtime, job_id):
         send_finish_task(runtime.celery, runtime.settings.queue, job_id)
     return ChainOutcome(outcome if ended else "lease lost")
 
 
-def end_chain(runtime: Runtime, lease: Lease, state: str, error: str | None) -> bool:
+def end_chain(
+    runtime: Runtime,
+    lease: Lease,
+    state: str,
+    error: str | None,
+    monitor: ChainMonitor | None = None,
+) -> bool:
     """Record a chain's end without results; False when the lease was lost meanwhile."""
     now = utc_now()
+    last: dict[str, Any] = {}
+    if monitor is not None and monitor.phase is not None:
+        # Where the chain stopped, not where the last periodic write happened to catch it.
+        last = {
+            "phase": monitor.phase,
+            "iteration": monitor.iteration,
+            "divergences": monitor.divergences,
+        }
     with transaction(runtime.sessions) as session:
         done = session.execute(
             update(Chain)
@@ -306,7 +321,7 @@ def end_chain(runtime: Runtime, lease: Lease, state: str, error: str | None) -> 
                 Chain.lease_token == lease.token,
                 Chain.state == "running",
             )
-            .values(state=state, error=error, finished_at=now, updated_at=now)
+            .values(state=state, error=error, finished_at=now, updated_at=now, **last)
             .execution_options(synchronize_session=False)
         ).rowcount
         if done:

@@ -332,3 +332,21 @@ def test_the_serverless_filesystem_broker_runs_a_job(sqlite_store: str, live_ser
     finished(job_url, service)
     _, draws = call("GET", job_url + "/draws")
     assert np.array_equal(bits(json_draws(draws)), bits(in_process(body)["draws"]))
+
+
+def test_a_chain_past_its_time_limit_fails_the_job_and_says_why(
+    sqlite_store: str, redis_url: str, live_service
+) -> None:
+    service = live_service(
+        sqlite_store,
+        redis_url,
+        workers=2,
+        env={"DRAWYARD_CHAIN_TIME_LIMIT": "2", "DRAWYARD_PROGRESS_INTERVAL": "0.25"},
+    )
+    job_url = submit(service.base_url, normal_mean(chains=1, warmup=500, draws=90_000, seed=8))
+    job = wait_for(job_url, lambda j: j["state"] in TERMINAL, 120, "the job to end")
+    assert job["state"] == "failed", service.logs()
+    (chain,) = job["chains"]
+    assert chain["state"] == "failed" and "time limit of 2 s" in chain["error"]
+    assert 0 < chain["iteration"] < chain["iterations_total"]
+    assert "chain 1 failed" in job["error"]
