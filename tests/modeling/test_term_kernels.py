@@ -17,6 +17,7 @@ from worker.modeling.term_kernels import (
     GenericTerm,
     HalfNormalFixedScale,
     NormalFixedScale,
+    NormalVaryingScale,
     PoissonLogRateData,
     term_kernel,
 )
@@ -145,7 +146,46 @@ def test_other_terms_take_the_generic_route():
     x = graph.leaf(ValueType("real", (3,)))
     scale = graph.leaf(ValueType("real", ()))
     location = graph.constant(np.asarray(0.0), "real")
-    normal = find_distribution("normal", {"location", "scale"})
-    kernel = term_kernel(x, normal, ("location", "scale"), (location, scale), graph)
+    laplace = find_distribution("laplace", {"location", "scale"})
+    kernel = term_kernel(x, laplace, ("location", "scale"), (location, scale), graph)
     assert isinstance(kernel, GenericTerm)
     assert kernel.wrt == frozenset({"x", "scale"})
+
+
+@SETTINGS
+@given(shape=SHAPES, seed=st.integers(0, 2**32 - 1), scale_scalar=st.booleans(),
+       location_scalar=st.booleans())
+def test_normal_varying_scale(shape, seed, scale_scalar, location_scalar):
+    """theta ~ normal(mu, tau), tau an unknown: against scipy.stats.norm and the generic route."""
+    rng = np.random.default_rng(seed)
+    graph = Graph()
+    x = graph.leaf(ValueType("real", shape))
+    location = graph.leaf(ValueType("real", () if location_scalar else shape))
+    scale = graph.leaf(ValueType("real", () if scale_scalar else shape))
+    values = [None] * len(graph.nodes)
+    values[x] = rng.normal(0, 2, size=shape)
+    values[location] = rng.normal(size=graph.type_of(location).shape)
+    values[scale] = rng.uniform(0.3, 3.0, size=graph.type_of(scale).shape)
+    normal = find_distribution("normal", {"location", "scale"})
+    kernel = term_kernel(x, normal, ("location", "scale"), (location, scale), graph)
+    assert isinstance(kernel, NormalVaryingScale)
+    expected = stats.norm.logpdf(values[x], values[location], values[scale]).sum()
+    assert np.isclose(kernel.value(values), expected, rtol=1e-12)
+    adjoint = [None] * len(values)
+    assert np.isclose(kernel.run(values, adjoint), expected, rtol=1e-12)
+    generic = GenericTerm(x, normal, ("location", "scale"), (location, scale), graph)
+    generic_adjoint = [None] * len(values)
+    generic.run(values, generic_adjoint)
+    for node in (x, location, scale):
+        def f(flat, node=node):
+            trial = list(values)
+            trial[node] = flat.reshape(np.shape(values[node]))
+            return kernel.value(trial)
+        numeric = central_gradient(f, np.ravel(values[node])).reshape(np.shape(values[node]))
+        assert np.shape(adjoint[node]) == np.shape(values[node])
+        assert_gradient_close(np.asarray(adjoint[node]), numeric, scale=abs(expected))
+        np.testing.assert_allclose(adjoint[node], generic_adjoint[node], rtol=1e-11, atol=1e-13)
+    bad = list(values)
+    bad[scale] = -np.abs(values[scale])
+    assert kernel.value(bad) == -np.inf
+    assert kernel.run(bad, [None] * len(values)) == -np.inf

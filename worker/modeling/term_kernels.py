@@ -1,11 +1,11 @@
 """How a prior or likelihood term is evaluated inside the plan: generic, fused, or constant.
 
 A generic term calls its distribution's log_density_and_gradients. The most common terms get a fused
-kernel instead: a normal or half-normal with a fixed scale, a Bernoulli on log-odds or a Poisson on
-log-rate observing data. Their constant parts (log scales, log factorials, support checks on data)
-are settled once at compile time, so a call costs a handful of array operations; for an 8-group
-hierarchical model the per-call overhead of the generic route is most of the time. Terms that
-depend on no unknown at all are evaluated once and kept as a number.
+kernel instead: a normal (fixed or varying scale), a half-normal with a fixed scale, a Bernoulli on
+log-odds or a Poisson on log-rate observing data. Their constant parts (log scales, log factorials,
+support checks on data) are settled once at compile time, so a call costs a handful of array
+operations; for an 8-group hierarchical model the per-call overhead of the generic route is most of
+the time. Terms that depend on no unknown at all are evaluated once and kept as a number.
 """
 
 from __future__ import annotations
@@ -132,6 +132,52 @@ class NormalFixedScale:
         return total
 
 
+class NormalVaryingScale:
+    """normal(x; location, scale) whose scale depends on unknowns (a hierarchical prior).
+
+    -inf when any scale is not positive; the gradients are the analytic ones: d/dx = -z/s,
+    d/dlocation = z/s, d/dscale = (z^2 - 1)/s with z = (x - location)/s.
+    """
+
+    __slots__ = ("x", "location", "scale", "count", "needed", "reducers", "batch")
+
+    def __init__(self, x: int, location: int, scale: int, graph: Graph):
+        shapes = [graph.type_of(n).shape for n in (x, location, scale)]
+        self.batch = np.broadcast_shapes(*shapes)
+        self.x, self.location, self.scale = x, location, scale
+        self.count = int(np.prod(self.batch, dtype=np.int64))
+        self.needed = tuple(not graph.nodes[n].constant for n in (x, location, scale))
+        self.reducers = tuple(_reducer(shape, self.batch) for shape in shapes)
+
+    def _parts(self, v: list[Any]):
+        s = v[self.scale]
+        if np.any(s <= 0):
+            return None
+        z = (v[self.x] - v[self.location]) / s
+        log_scale = np.log(s)
+        log_scale_total = float(np.sum(log_scale)) * (
+            1 if np.shape(s) == self.batch else self.count)
+        total = -0.5 * float(np.sum(z * z)) - log_scale_total - 0.5 * LOG_2PI * self.count
+        return s, z, total
+
+    def value(self, v: list[Any]) -> float:
+        parts = self._parts(v)
+        return -np.inf if parts is None else parts[2]
+
+    def run(self, v: list[Any], adjoint: list[Any]) -> float:
+        parts = self._parts(v)
+        if parts is None:
+            return -np.inf
+        s, z, total = parts
+        dz = z / s
+        pointwise = (-dz, dz, (z * z - 1.0) / s)
+        for node, need, reduce, g in zip((self.x, self.location, self.scale), self.needed,
+                                         self.reducers, pointwise, strict=True):
+            if need:
+                _accumulate(adjoint, node, g if reduce is None else reduce(g))
+        return total
+
+
 class HalfNormalFixedScale:
     """half_normal(x; scale) with a constant scale; -inf when any x is negative."""
 
@@ -227,8 +273,10 @@ def term_kernel(variate: int, distribution: Any, names: tuple[str, ...],
     constant = {n: graph.nodes[k].value for n, k in args.items() if graph.nodes[k].constant}
     x_value = graph.nodes[variate].value
     key = (distribution.name, tuple(names))
-    if key == ("normal", ("location", "scale")) and "scale" in constant:
-        return NormalFixedScale(variate, args["location"], constant["scale"], graph)
+    if key == ("normal", ("location", "scale")):
+        if "scale" in constant:
+            return NormalFixedScale(variate, args["location"], constant["scale"], graph)
+        return NormalVaryingScale(variate, args["location"], args["scale"], graph)
     if key == ("half_normal", ("scale",)) and "scale" in constant and x_value is None:
         return HalfNormalFixedScale(variate, constant["scale"], graph, sign_guaranteed)
     if x_value is not None and not constant:
