@@ -246,7 +246,6 @@ def run_chain(
     runtime: Runtime, job_id: str, chain_index: int, recheck: bool = False
 ) -> ChainOutcome:
     """Run one chain of a job if this delivery wins its lease; says what happened."""
-    from worker import runner
 
     lease = take_lease(runtime, job_id, chain_index, count_duplicate=not recheck)
     if lease is None:
@@ -257,10 +256,7 @@ def run_chain(
         return ChainOutcome("dropped")
     monitor = ChainMonitor(runtime, lease).start()
     try:
-        if lease.checkpoint is not None:
-            chain_run = runner.resume_chain(lease.body, chain_index, lease.checkpoint)
-        else:
-            chain_run = runner.start_chain(lease.body, chain_index)
+        chain_run = _start_or_resume(lease)
         result = chain_run.run(
             progress=monitor.progress,
             should_stop=monitor.should_stop,
@@ -294,6 +290,27 @@ def run_chain(
     if ended and claim_finish(runtime, job_id):
         send_finish_task(runtime.celery, runtime.settings.queue, job_id)
     return ChainOutcome(outcome if ended else "lease lost")
+
+
+def _start_or_resume(lease: Lease) -> Any:
+    """The chain from its checkpoint, or from the start when the checkpoint cannot be used.
+
+    Starting over costs time but not correctness: a chain's draws depend only on the body and its
+    seed, so a fresh start ends with the same draws as a resume would.
+    """
+    from worker import runner
+
+    if lease.checkpoint is not None:
+        try:
+            return runner.resume_chain(lease.body, lease.chain_index, lease.checkpoint)
+        except Exception as error:  # any unreadable or mismatched snapshot: start over
+            log.warning(
+                "checkpoint of chain %s of job %s unusable (%s); starting it over",
+                lease.chain_index + 1,
+                lease.job_id,
+                error,
+            )
+    return runner.start_chain(lease.body, lease.chain_index)
 
 
 def end_chain(
