@@ -68,7 +68,7 @@ def test_summary_is_strict_json_and_marks_undefined_quantities() -> None:
 def test_summary_handles_many_quantities_in_passes() -> None:
     """Wide outputs are summarised in several vectorised passes; every record must still match
     the one-quantity functions."""
-    from worker.diagnostics import bulk_ess, split_rhat
+    from worker.diagnostics import bulk_ess, mcse_quantile, split_rhat, tail_ess
     from worker.diagnostics import summary as summary_module
 
     rng = np.random.default_rng(3)
@@ -82,6 +82,8 @@ def test_summary_handles_many_quantities_in_passes() -> None:
     for i, record in enumerate(records):
         assert record["rhat"] == pytest.approx(split_rhat(draws[:, :, i]))
         assert record["bulk_ess"] == pytest.approx(bulk_ess(draws[:, :, i]))
+        assert record["tail_ess"] == pytest.approx(tail_ess(draws[:, :, i]))
+        assert record["mcse_quantiles"]["50%"] == pytest.approx(mcse_quantile(draws[:, :, i], 0.5))
 
 
 def test_sound_draws_pass_with_defaults() -> None:

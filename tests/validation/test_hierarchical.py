@@ -125,10 +125,10 @@ def test_non_centred_schools_match_quadrature(method: str, reference: dict) -> N
 
 @pytest.mark.slow
 def test_centred_schools_diverge_and_fail_the_verdict() -> None:
-    """A shorter run and a tree depth limit of 6 keep this quick: trajectories in the funnel's
-    neck are long, and divergences show up well within 4 x 400 draws."""
+    """Two chains, a shorter run and a tree depth limit of 6 keep this quick: trajectories in the
+    funnel's neck are long, and divergences show up well within 2 x 400 draws (21 here)."""
     outcome = run(
-        _schools_spec(centred=True), SCHOOLS_DATA, "nuts", seed=1981,
+        _schools_spec(centred=True), SCHOOLS_DATA, "nuts", seed=1981, chains=2,
         warmup_iterations=300, draws=400, maximum_tree_depth=6,
     )  # fmt: skip
     assert outcome["sampler"]["divergences"] > 0

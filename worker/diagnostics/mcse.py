@@ -42,10 +42,14 @@ def mcse_of_sd_batch(x: np.ndarray) -> np.ndarray:
         return mcse_variance / (2.0 * np.sqrt(variance))
 
 
-def mcse_quantile_batch(x: np.ndarray, p: float) -> np.ndarray:
-    """MCSE of the p-quantile of each quantity of a ``(q, chains, draws)`` batch."""
+def mcse_quantile_batch(x: np.ndarray, p: float, s_eff: np.ndarray | None = None) -> np.ndarray:
+    """MCSE of the p-quantile of each quantity of a ``(q, chains, draws)`` batch.
+
+    ``s_eff`` is the quantile's indicator ESS when the caller already has it.
+    """
     q = x.shape[0]
-    s_eff = quantile_ess_batch(x, p)
+    if s_eff is None:
+        s_eff = quantile_ess_batch(x, p)
     ok = np.isfinite(s_eff)
     a = np.where(ok, s_eff, 1.0) * p + 1.0
     b = np.where(ok, s_eff, 1.0) * (1.0 - p) + 1.0

@@ -7,7 +7,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from worker.diagnostics.ess import bulk_ess_batch, tail_ess_batch
+from worker.diagnostics.ess import TAIL_PROBABILITIES, bulk_ess_batch, quantile_ess_batch
 from worker.diagnostics.mcse import mcse_mean_batch, mcse_of_sd_batch, mcse_quantile_batch
 from worker.diagnostics.rhat import split_rhat_batch
 from worker.diagnostics.splitting import MIN_DRAWS_PER_CHAIN
@@ -87,9 +87,14 @@ def _summarize_block(
         nan = np.full(q, np.nan)
         mcse_mean = mcse_mean_batch(block) if enough else nan
         mcse_of_sd = mcse_of_sd_batch(block) if enough else nan
-        mcse_points = [mcse_quantile_batch(block, p) if enough else nan for p in probabilities]
+        # indicator ESS per probability, shared by the quantile MCSE and tail-ESS (5% and 95%)
+        needed = sorted({*probabilities, *TAIL_PROBABILITIES})
+        indicator = {p: quantile_ess_batch(block, p) if enough else nan for p in needed}
+        mcse_points = [
+            mcse_quantile_batch(block, p, indicator[p]) if enough else nan for p in probabilities
+        ]
         bulk = bulk_ess_batch(block) if enough else nan
-        tail = tail_ess_batch(block) if enough else nan
+        tail = np.minimum(*(indicator[p] for p in TAIL_PROBABILITIES))
         rhat = split_rhat_batch(block) if enough else nan
     notes = _notes(block)
     records = []
