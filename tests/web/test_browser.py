@@ -81,6 +81,13 @@ def test_demo_submitted_followed_and_read(
     page.wait_for_url(re.compile(r"/jobs/[0-9a-f]{32}$"))
     job_id = page.url.rsplit("/", 1)[1]
     expect(page.locator("#chains tbody tr[data-chain]")).to_have_count(CHAINS)
+    # The table moves while the job runs, without a reload: job.js polls the JSON status.
+    page.wait_for_function(
+        """() => document.querySelector('#job').dataset.terminal === 'no'
+              && [...document.querySelectorAll('[data-field=iteration]')]
+                   .some(cell => Number(cell.textContent) > 0)""",
+        timeout=FINISH_TIMEOUT_MS,
+    )
     screenshot(page, "job-running")
 
     # The page polls the status and reloads itself when the job ends; then the verdict appears.
@@ -178,7 +185,8 @@ def test_bad_spec_shows_the_problem_beside_its_line(
     expect(page.locator("#model_text")).to_have_attribute("aria-invalid", "true")
     # The data are fine, and the chains problem sits beside the chains box.
     expect(page.locator("#field-data .problems")).to_have_count(0)
-    expect(page.locator("#problems-sampler-chains")).to_contain_text("whole number")
+    chains = page.locator("#problems-sampler-chains li[data-pointer='/sampler/chains']")
+    expect(chains).to_contain_text("two")
     screenshot(page, "submit-problems")
     jobs = requests.get(f"{service.base_url}/v1/jobs", timeout=30).json()["jobs"]
     assert jobs == []
