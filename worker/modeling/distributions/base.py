@@ -201,7 +201,8 @@ class Distribution:
 
     # subclass hooks -----------------------------------------------------------------------------
     def _log_density(self, x: Array, *args: Array) -> Array:
-        return self._log_density_and_pointwise(x, *args, wrt=frozenset())[0]
+        val, _, bad = self._log_density_and_pointwise(x, *args, wrt=frozenset())
+        return val if bad is None else np.where(bad, NEG_INF, val)
 
     def _log_density_and_pointwise(
         self, x: Array, *args: Array, wrt: frozenset[str]
