@@ -8,6 +8,7 @@ AR(1) correlation matrix, common practice), so a dense metric should remove most
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from tests.samplers.targets import Gaussian
 from worker.diagnostics import bulk_ess
@@ -30,6 +31,7 @@ def run(metric: str) -> tuple[ChainOutput, float]:
     return out, gradients_per_ess
 
 
+@pytest.mark.slow
 def test_dense_metric_recovers_covariance_and_saves_gradients() -> None:
     """The adapted dense inverse metric is close to S; dense needs far fewer gradients per ESS.
 

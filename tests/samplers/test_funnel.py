@@ -17,6 +17,7 @@ from tests.samplers.targets import CentredFunnel, NonCentredFunnel
 from worker.samplers import SamplerSettings
 
 
+@pytest.mark.slow
 def test_centred_funnel_reports_divergences() -> None:
     _, outputs = run_chains(CentredFunnel(), SamplerSettings(), seed=11)
     divergences = sum(int(out.stats["divergent"].sum()) for out in outputs)

@@ -86,23 +86,24 @@ class Chain:
         self.iteration = 0
         self.divergences = {"warmup": 0, "sampling": 0}
         self.estimator = RunningCovariance(self.dimension, settings.metric == "dense")
-        self.state = initial_state(
-            target,
-            settings.initialisation,
-            settings.init_radius,
-            self.rng,
-            initial_point,
-            needs_gradient=not self._metropolis,
-        )
-        if self._metropolis:
-            self.proposal = RandomWalkProposal.initial(settings.metric, self.dimension)
-            self.scale_updates = 0
-            self.average_sum = 0.0
-            self.average_count = 0
-        else:
-            self.metric = Metric.identity(settings.metric, self.dimension)
-            self.step_size = initial_step_size(target, self.metric, self.state, 1.0, self.rng)
-            self.dual = DualAveraging.start(self.step_size, self.goal)
+        with np.errstate(all="ignore"):
+            self.state = initial_state(
+                target,
+                settings.initialisation,
+                settings.init_radius,
+                self.rng,
+                initial_point,
+                needs_gradient=not self._metropolis,
+            )
+            if self._metropolis:
+                self.proposal = RandomWalkProposal.initial(settings.metric, self.dimension)
+                self.scale_updates = 0
+                self.average_sum = 0.0
+                self.average_count = 0
+            else:
+                self.metric = Metric.identity(settings.metric, self.dimension)
+                self.step_size = initial_step_size(target, self.metric, self.state, 1.0, self.rng)
+                self.dual = DualAveraging.start(self.step_size, self.goal)
         self._allocate()
 
     def _setup(self, target: Target, settings: SamplerSettings) -> None:
@@ -161,15 +162,18 @@ class Chain:
         """One iteration: a transition, its bookkeeping, and (in warm-up) adaptation."""
         i = self.iteration
         warmup = self.settings.warmup_iterations
-        self.state, stats = self._transition()(self.state, self.rng)
+        # Overflow and invalid operations are expected on bad trajectories and are handled as
+        # divergences; numpy's warnings about them are noise.
+        with np.errstate(all="ignore"):
+            self.state, stats = self._transition()(self.state, self.rng)
+            if i < warmup and not self._metropolis:
+                self._adapt_hamiltonian(i, stats["acceptance"])
         if i < warmup:
             self._record(self.warmup_stats, i, stats)
             if stats.get("divergent"):
                 self.divergences["warmup"] += 1
             if self._metropolis:
                 self._adapt_proposal(i, stats["acceptance"])
-            else:
-                self._adapt_hamiltonian(i, stats["acceptance"])
         else:
             j = i - warmup
             self.draws[j] = self.state.position

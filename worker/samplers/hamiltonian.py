@@ -7,6 +7,7 @@ which is what adaptation estimates (the posterior covariance, or its diagonal).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -70,19 +71,16 @@ def leapfrog(
     step: float,
 ) -> tuple[np.ndarray, np.ndarray, float, np.ndarray]:
     """One leapfrog step of signed size ``step`` (Neal 2011, eq. 5.18-5.20)."""
-    with np.errstate(all="ignore"):
-        half = momentum + (0.5 * step) * gradient
-        new_position = position + step * metric.velocity(half)
+    half = momentum + (0.5 * step) * gradient
+    new_position = position + step * metric.velocity(half)
     log_density, new_gradient = density_and_gradient(target, new_position)
-    with np.errstate(all="ignore"):
-        new_momentum = half + (0.5 * step) * new_gradient
+    new_momentum = half + (0.5 * step) * new_gradient
     return new_position, new_momentum, log_density, new_gradient
 
 
 def hamiltonian(log_density: float, momentum: np.ndarray, metric: Metric) -> float:
     """H = -log density + kinetic energy; +inf outside the support or after overflow."""
-    if not np.isfinite(log_density):
-        return np.inf
-    with np.errstate(all="ignore"):
-        energy = -log_density + metric.kinetic(momentum)
-    return energy if np.isfinite(energy) else np.inf
+    if not math.isfinite(log_density):
+        return math.inf
+    energy = -log_density + metric.kinetic(momentum)
+    return energy if math.isfinite(energy) else math.inf

@@ -59,9 +59,16 @@ class _Tree:
         self.divergent = False
 
 
+def log_add(a: float, b: float) -> float:
+    """log(e^a + e^b) for finite a, b, without overflow."""
+    if a < b:
+        a, b = b, a
+    return a + math.log1p(math.exp(b - a))
+
+
 def _continues(v_minus: np.ndarray, v_plus: np.ndarray, rho: np.ndarray) -> bool:
     """The generalized no-U-turn criterion (Betancourt 2017, section A.4.2)."""
-    return float(v_minus @ rho) > 0.0 and float(v_plus @ rho) > 0.0
+    return bool(v_minus.dot(rho) > 0.0) and bool(v_plus.dot(rho) > 0.0)
 
 
 def _join(left: _Tree, right: _Tree) -> bool:
@@ -125,7 +132,7 @@ class NutsTransition:
             # Biased progressive sampling: move to the new subtree's sample with prob w_new/w_old.
             if math.log(rng.random()) < new.log_weight - tree.log_weight:
                 tree.sample, tree.sample_energy = new.sample, new.sample_energy
-            tree.log_weight = float(np.logaddexp(tree.log_weight, new.log_weight))
+            tree.log_weight = log_add(tree.log_weight, new.log_weight)
             if forward:
                 turning = _join(tree, new)
             else:
@@ -178,7 +185,7 @@ class NutsTransition:
             inner.valid = False
             inner.divergent = outer.divergent
             return inner
-        total = float(np.logaddexp(inner.log_weight, outer.log_weight))
+        total = log_add(inner.log_weight, outer.log_weight)
         # Uniform progressive sampling within a subtree: each point in proportion to its weight.
         if math.log(rng.random()) < outer.log_weight - total:
             inner.sample, inner.sample_energy = outer.sample, outer.sample_energy
