@@ -10,9 +10,10 @@
   algorithms: optimal acceptance about 0.234 in high dimension (0.44 in one), scale 2.38 / sqrt(d).
 - Andrieu & Thoms (2008), A tutorial on adaptive MCMC, section 5 (global adaptive scaling): the
   log scale follows the Robbins-Monro recursion log s += gain_t (alpha_t - target) with gains
-  t^-0.6 (summable squares, non-summable sum). The scale used after warm-up is the average of the
-  log scale over the final warm-up stretch (Polyak-Ruppert averaging), which is less noisy than the
-  last iterate. All adaptation stops after warm-up, so sampling is a fixed, valid Markov chain.
+  t^-0.6 (summable squares, non-summable sum), restarted with the scale at each covariance update.
+  The scale used after warm-up is the average of the log scale over the second half of the final
+  warm-up stretch (Polyak-Ruppert averaging), which is less noisy than the last iterate. All
+  adaptation stops after warm-up, so sampling is a fixed, valid Markov chain.
 """
 
 from __future__ import annotations
