@@ -3,7 +3,7 @@ errors shown as pages (the plot images keep the API's problem documents)."""
 
 from __future__ import annotations
 
-from flask import Blueprint, render_template, request
+from flask import Blueprint, Response, render_template, request
 
 from service.problem_details import ApiProblem, problem_response
 from service.web.access import check_access
@@ -18,6 +18,21 @@ web = Blueprint(
 web.before_request(check_access)
 
 PLOT_ENDPOINT = "web.plot"
+# The pages load only their own stylesheet, scripts and images, and may not be framed; a plot
+# opened on its own may use its inline styles and nothing else.
+PAGE_POLICY = (
+    "default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self'; "
+    "connect-src 'self'; form-action 'self'; frame-ancestors 'none'; base-uri 'none'"
+)
+PLOT_POLICY = "default-src 'none'; style-src 'unsafe-inline'; frame-ancestors 'self'"
+
+
+@web.after_request
+def security_headers(response: Response) -> Response:
+    plot = request.endpoint == PLOT_ENDPOINT
+    response.headers.setdefault("Content-Security-Policy", PLOT_POLICY if plot else PAGE_POLICY)
+    response.headers.setdefault("X-Content-Type-Options", "nosniff")
+    return response
 
 
 @web.errorhandler(ApiProblem)

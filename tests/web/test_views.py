@@ -243,6 +243,8 @@ def test_finished_job_page_shows_verdict_advice_cautions_and_summary(finished) -
     rows = re.findall(r'<th scope="row"><code>([^<]+)</code>', page)
     assert rows == [q["name"] for q in summary["quantities"]]
     assert "job.js" not in page  # nothing to follow once the job has ended
+    headers = client.get(f"/jobs/{job_id}").headers
+    assert "frame-ancestors 'none'" in headers["Content-Security-Policy"]
 
 
 def read(client: FlaskClient, path: str) -> bytes:
@@ -284,6 +286,9 @@ def test_plots_are_svg_cached_and_revalidated(finished) -> None:
         again = client.get(source, headers={"If-None-Match": first.headers["ETag"]})
         assert again.status_code == 304
     assert len(list((cache / job_id).glob("*.svg"))) == 4
+    # An SVG opened on its own runs nothing (W3C Content Security Policy Level 3, default-src).
+    assert client.get(sources[0].replace("&amp;", "&")).headers[
+        "Content-Security-Policy"].startswith("default-src 'none'")
     assert "branch_spread" in client.get(sources[0].replace("&amp;", "&")).get_data(as_text=True)
     bad = client.get(f"/jobs/{job_id}/plots/trace.svg?quantity=nothing")
     assert bad.status_code == 400 and bad.mimetype == "application/problem+json"
