@@ -149,7 +149,7 @@ def test_draws_over_http_are_bitwise_the_in_process_draws(
     """Two worker processes run the two chains at the same time; what comes back over HTTP (JSON
     and CSV) is bit for bit what the engine gives in process for the same body and seed."""
     service = live_service(database_url, redis_url, workers=2)
-    body = normal_mean(chains=2, warmup=300, draws=4000, seed=77)
+    body = normal_mean(chains=2, warmup=300, draws=2500, seed=77)
     job_url = submit(service.base_url, body)
     job = finished(job_url, service)
     expected = in_process(body)
@@ -166,7 +166,7 @@ def test_draws_over_http_are_bitwise_the_in_process_draws(
     assert text.splitlines()[0] == "chain,draw," + ",".join(expected["names"])
     for c in range(2):
         rows = table[table[:, 0] == c + 1]
-        assert np.array_equal(rows[:, 1], np.arange(1, 4001))
+        assert np.array_equal(rows[:, 1], np.arange(1, 2501))
         assert np.array_equal(bits(rows[:, 2:]), bits(expected["draws"][c]))
 
     _, thinned = call("GET", job_url + "/draws?chains=2&thin=7&quantities=mu")
@@ -184,7 +184,7 @@ def test_draws_over_http_are_bitwise_the_in_process_draws(
         assert audit["chains"][c]["draws_sha256"] == digest.hexdigest()
     canonical = json.dumps(body["model"], sort_keys=True, separators=(",", ":")).encode()
     assert audit["hashes"]["model"] == hashlib.sha256(canonical).hexdigest()
-    assert audit["seed"] == 77 and audit["settings"]["draws"] == 4000
+    assert audit["seed"] == 77 and audit["settings"]["draws"] == 2500
     assert audit["software"]["finish"]["numpy"] == np.__version__
 
     # In parallel: two different worker processes, running at overlapping times.
