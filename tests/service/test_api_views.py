@@ -333,3 +333,16 @@ def test_an_unreachable_broker_refuses_the_job_with_503(sqlite_store) -> None:
     _, page = get(app.test_client(), "/v1/jobs")
     assert [job["state"] for job in page["jobs"]] == ["failed"]
     assert "broker" in page["jobs"][0]["error"]
+
+
+def test_draws_in_a_format_the_service_cannot_write_get_406(app, queue) -> None:
+    """RFC 9110 section 15.5.7: 406 when no representation matches the request's preferences."""
+    client = app.test_client()
+    _, job = post(client, normal_mean())
+    for path, headers in (
+        (f"/v1/jobs/{job['id']}/draws?format=xml", {}),
+        (f"/v1/jobs/{job['id']}/sampler-stats", {"Accept": "application/xml"}),
+    ):
+        response = client.get(path, headers=headers)
+        problem = check_flask("GET", path, response)
+        assert response.status_code == 406 and problem["status"] == 406
