@@ -71,6 +71,11 @@ def test_demo_submitted_followed_and_read(
     page.goto(f"{base}/jobs")
     page.keyboard.press("Tab")
     assert page.evaluate("document.activeElement.textContent") == "Skip to the content"
+    # and the focused element carries the visible outline of the stylesheet (WCAG 2.1, 2.4.7).
+    outline = page.evaluate(
+        "(() => { const s = getComputedStyle(document.activeElement);"
+        " return [s.outlineStyle, s.outlineWidth]; })()")
+    assert outline == ["solid", "3px"]
 
     load_demo(page, base)
     page.fill("#chains", str(CHAINS))

@@ -123,6 +123,18 @@ def test_submitting_the_form_queues_a_job_shown_in_the_list(client: FlaskClient)
     assert again.headers["Location"] == answer.headers["Location"]
 
 
+def test_uploaded_files_take_the_place_of_the_text(client: FlaskClient) -> None:
+    form = demo_form(token="upload-token")
+    spec, data = form.pop("model_text").encode(), form.pop("data_text").encode()
+    form["model_text"] = "this text is ignored when a file is chosen"
+    form["model_file"] = (io.BytesIO(spec), "spec.json")
+    form["data_file"] = (io.BytesIO(data), "data.json")
+    answer = client.post("/submit", data=form, content_type="multipart/form-data")
+    assert answer.status_code == 303
+    job_id = answer.headers["Location"].rsplit("/", 1)[1]
+    assert client.get(f"/v1/jobs/{job_id}").get_json()["state"] == "queued"
+
+
 def test_a_bad_label_filter_is_shown_beside_the_filter(client: FlaskClient) -> None:
     page = client.get("/jobs?label=no-colon").get_data(as_text=True)
     assert 'id="label-problem"' in page and "key:value" in page
