@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 
 import numpy as np
@@ -69,12 +70,18 @@ def sum_to_shape(g: Array, full: tuple[int, ...], target: tuple[int, ...]) -> Ar
     """Sum a pointwise gradient, broadcast to `full`, down to the shape of the array passed in.
 
     A pointwise gradient may be constant along axes of the batch (d/dlower of a uniform does not
-    involve x), so it is broadcast to the full batch before summing: each batch element contributes.
+    involve x), so it counts as broadcast to the full batch before summing: each batch element
+    contributes.
     """
+    g = np.asarray(g)
     if target == full:
-        g = np.asarray(g)
         return g if g.shape == full else np.array(np.broadcast_to(g, full))
-    g = np.broadcast_to(g, full)
+    if not target:
+        # a scalar argument: the sum of g broadcast to `full` is g.sum() times the replication
+        total = g.sum()
+        return total if g.shape == full else total * (math.prod(full) // max(g.size, 1))
+    if g.shape != full:
+        g = np.broadcast_to(g, full)
     lead = len(full) - len(target)
     axes = tuple(range(lead)) + tuple(
         lead + i for i, n in enumerate(target) if n == 1 and full[lead + i] != 1
@@ -113,32 +120,34 @@ class Distribution:
     def __repr__(self) -> str:
         return f"<distribution {self.name}({', '.join(self.arguments)})>"
 
+    # errstate as a decorator costs less per call than a with-block; out-of-support points are
+    # expected here and become -inf, so their floating-point warnings carry no information
+    @np.errstate(all="ignore")
     def log_density(self, x: Array, args: Mapping[str, Array]) -> Array:
         """Pointwise log density (or mass) over the broadcast batch; -inf outside the support."""
-        with np.errstate(all="ignore"):
-            return self._log_density(np.asarray(x), *[np.asarray(args[n]) for n in self.arguments])
+        return self._log_density(np.asarray(x), *[np.asarray(args[n]) for n in self.arguments])
 
+    @np.errstate(all="ignore")
     def log_density_and_gradients(
         self, x: Array, args: Mapping[str, Array], wrt: frozenset[str]
     ) -> tuple[Array, dict[str, Array]]:
         """Pointwise values, and gradients of their sum shaped like the arrays passed in."""
         xa = np.asarray(x)
         values = [np.asarray(args[n]) for n in self.arguments]
-        with np.errstate(all="ignore"):
-            val, pointwise, bad = self._log_density_and_pointwise(xa, *values, wrt=wrt)
+        val, pointwise, bad = self._log_density_and_pointwise(xa, *values, wrt=wrt)
         batch = val.shape
         grads: dict[str, Array] = {}
         for key, g in pointwise.items():
-            if isinstance(g, Summed):
+            if type(g) is Summed:
                 grads[key] = g.value
                 continue
             if key == "x":
                 target = xa.shape
-                event = target[len(target) - self.event_ndim :] if self.event_ndim else ()
+                k = self.event_ndim
             else:
                 target = values[self.arguments.index(key)].shape
                 k = self.argument_event_ndim.get(key, 0)
-                event = target[len(target) - k :] if k else ()
+            event = target[len(target) - k :] if k else ()
             if bad is not None:
                 # out-of-support elements carry no gradient, so a -inf total has a finite gradient
                 g = np.where(bad.reshape(bad.shape + (1,) * len(event)), 0.0, g)
@@ -194,7 +203,7 @@ class Distribution:
         if shape is None:
             shape = self._default_shape(values)
         with np.errstate(all="ignore"):
-            return self._sample(rng, tuple(shape), *values)
+            return np.asarray(self._sample(rng, tuple(shape), *values))
 
     def _default_shape(self, values: list[Array]) -> tuple[int, ...]:
         return np.broadcast_shapes(*[v.shape for v in values])
@@ -223,6 +232,44 @@ def cholesky_correlation_valid(v: Array) -> Array:
         np.abs(np.sum(v * v, axis=-1) - 1.0) <= STRUCTURE_TOLERANCE * v.shape[-1], axis=-1
     )
     return upper_zero & diagonal & unit_rows
+
+
+def positive(*arrays: Array) -> bool:
+    """Every element > 0 (NaN fails): one reduction per array instead of a mask and a reduction."""
+    for a in arrays:
+        if a.ndim == 0:
+            if not a > 0:
+                return False
+        elif a.size and not a.min() > 0:
+            return False
+    return True
+
+
+def nonnegative(*arrays: Array) -> bool:
+    """Every element >= 0 (NaN fails)."""
+    for a in arrays:
+        if a.ndim == 0:
+            if not a >= 0:
+                return False
+        elif a.size and not a.min() >= 0:
+            return False
+    return True
+
+
+def counts(x: Array) -> bool:
+    """Every element a non-negative integer; integer arrays skip the integrality test."""
+    if x.dtype.kind in "iub":
+        return nonnegative(x)
+    return nonnegative(x) and bool(np.all(x == np.floor(x)))
+
+
+def binary(x: Array) -> bool:
+    """Every element 0 or 1."""
+    if x.ndim == 0:
+        return bool(x == 0 or x == 1)
+    if x.dtype.kind in "iub":
+        return x.size == 0 or bool(x.min() >= 0 and x.max() <= 1)
+    return bool(np.all((x == 0) | (x == 1)))
 
 
 def mask_or_none(bad: Array) -> Array | None:

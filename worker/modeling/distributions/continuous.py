@@ -10,7 +10,7 @@ import numpy as np
 from scipy.special import betaln, digamma, gammaln, xlog1py, xlogy
 
 from ..special import LOG_2, LOG_2PI, LOG_PI
-from .base import Array, Distribution, mask_or_none
+from .base import Array, Distribution, mask_or_none, nonnegative, positive
 
 Pointwise = tuple[Array, dict[str, Array], Array | None]
 
@@ -32,7 +32,7 @@ class Normal(Distribution):
                 grads["location"] = dz
             if "scale" in wrt:
                 grads["scale"] = (z * z - 1.0) / scale
-        return val, grads, mask_or_none(~(scale > 0))
+        return val, grads, None if positive(scale) else mask_or_none(~(scale > 0))
 
     def _sample(self, rng, shape, location, scale):
         return location + scale * rng.standard_normal(shape)
@@ -52,7 +52,9 @@ class HalfNormal(Distribution):
             grads["x"] = -z / scale
         if "scale" in wrt:
             grads["scale"] = (z * z - 1.0) / scale
-        return val, grads, mask_or_none(~(scale > 0) | ~(x >= 0))
+        return val, grads, (
+            None if positive(scale) and nonnegative(x) else mask_or_none(~(scale > 0) | ~(x >= 0))
+        )
 
     def _sample(self, rng, shape, scale):
         return scale * np.abs(rng.standard_normal(shape))
@@ -99,7 +101,10 @@ class StudentT(Distribution):
             grads["scale"] = (ratio * z - 1.0) / scale
         if d_nu is not None:
             grads["degrees_of_freedom"] = d_nu
-        return val, grads, mask_or_none(~(scale > 0) | ~(degrees_of_freedom > 0))
+        return val, grads, (
+            None if positive(scale, degrees_of_freedom)
+            else mask_or_none(~(scale > 0) | ~(degrees_of_freedom > 0))
+        )
 
     def _sample(self, rng, shape, degrees_of_freedom, location, scale):
         return location + scale * rng.standard_t(np.broadcast_to(degrees_of_freedom, shape))
@@ -122,6 +127,8 @@ class HalfStudentT(Distribution):
             grads["scale"] = (ratio * z - 1.0) / scale
         if d_nu is not None:
             grads["degrees_of_freedom"] = d_nu
+        if positive(scale, degrees_of_freedom) and nonnegative(x):
+            return val + LOG_2, grads, None
         bad = ~(scale > 0) | ~(degrees_of_freedom > 0) | ~(x >= 0)
         return val + LOG_2, grads, mask_or_none(bad)
 
@@ -147,7 +154,7 @@ class Cauchy(Distribution):
                 grads["location"] = dz
             if "scale" in wrt:
                 grads["scale"] = (zz - 1.0) / ((1.0 + zz) * scale)
-        return val, grads, mask_or_none(~(scale > 0))
+        return val, grads, None if positive(scale) else mask_or_none(~(scale > 0))
 
     def _sample(self, rng, shape, location, scale):
         return location + scale * rng.standard_cauchy(shape)
@@ -168,7 +175,9 @@ class HalfCauchy(Distribution):
             grads["x"] = -2.0 * z / ((1.0 + zz) * scale)
         if "scale" in wrt:
             grads["scale"] = (zz - 1.0) / ((1.0 + zz) * scale)
-        return val, grads, mask_or_none(~(scale > 0) | ~(x >= 0))
+        return val, grads, (
+            None if positive(scale) and nonnegative(x) else mask_or_none(~(scale > 0) | ~(x >= 0))
+        )
 
     def _sample(self, rng, shape, scale):
         return scale * np.abs(rng.standard_cauchy(shape))
@@ -192,7 +201,7 @@ class Laplace(Distribution):
                 grads["location"] = dz
             if "scale" in wrt:
                 grads["scale"] = (az - 1.0) / scale
-        return val, grads, mask_or_none(~(scale > 0))
+        return val, grads, None if positive(scale) else mask_or_none(~(scale > 0))
 
     def _sample(self, rng, shape, location, scale):
         return rng.laplace(np.broadcast_to(location, shape), scale)
@@ -217,7 +226,7 @@ class Logistic(Distribution):
                 grads["location"] = t / scale
             if "scale" in wrt:
                 grads["scale"] = (z * t - 1.0) / scale
-        return val, grads, mask_or_none(~(scale > 0))
+        return val, grads, None if positive(scale) else mask_or_none(~(scale > 0))
 
     def _sample(self, rng, shape, location, scale):
         return rng.logistic(np.broadcast_to(location, shape), scale)
@@ -242,7 +251,9 @@ class Lognormal(Distribution):
                 grads["log_location"] = dz
             if "log_scale" in wrt:
                 grads["log_scale"] = (z * z - 1.0) / log_scale
-        return val, grads, mask_or_none(~(log_scale > 0) | ~(x > 0))
+        return val, grads, (
+            None if positive(log_scale, x) else mask_or_none(~(log_scale > 0) | ~(x > 0))
+        )
 
     def _sample(self, rng, shape, log_location, log_scale):
         return np.exp(log_location + log_scale * rng.standard_normal(shape))
@@ -261,7 +272,9 @@ class Exponential(Distribution):
             grads["x"] = -rate
         if "rate" in wrt:
             grads["rate"] = 1.0 / rate - x
-        return val, grads, mask_or_none(~(rate > 0) | ~(x >= 0))
+        return val, grads, (
+            None if positive(rate) and nonnegative(x) else mask_or_none(~(rate > 0) | ~(x >= 0))
+        )
 
     def _sample(self, rng, shape, rate):
         return rng.standard_exponential(shape) / rate
@@ -284,7 +297,10 @@ class Gamma(Distribution):
             grads["shape"] = log_rate - digamma(shape) + np.log(x)
         if "rate" in wrt:
             grads["rate"] = shape / rate - x
-        return val, grads, mask_or_none(~(shape > 0) | ~(rate > 0) | ~(x >= 0))
+        return val, grads, (
+            None if positive(shape, rate) and nonnegative(x)
+            else mask_or_none(~(shape > 0) | ~(rate > 0) | ~(x >= 0))
+        )
 
     def _sample(self, rng, shape_out, shape, rate):
         return rng.standard_gamma(np.broadcast_to(shape, shape_out)) / rate
@@ -308,7 +324,10 @@ class InverseGamma(Distribution):
             grads["shape"] = log_scale - digamma(shape) - log_x
         if "scale" in wrt:
             grads["scale"] = shape / scale - inv_x
-        return val, grads, mask_or_none(~(shape > 0) | ~(scale > 0) | ~(x > 0))
+        return val, grads, (
+            None if positive(shape, scale, x)
+            else mask_or_none(~(shape > 0) | ~(scale > 0) | ~(x > 0))
+        )
 
     def _sample(self, rng, shape_out, shape, scale):
         return scale / rng.standard_gamma(np.broadcast_to(shape, shape_out))
@@ -332,7 +351,10 @@ class Weibull(Distribution):
             grads["shape"] = 1.0 / shape + log_t * (1.0 - tk)
         if "scale" in wrt:
             grads["scale"] = shape * (tk - 1.0) / scale
-        return val, grads, mask_or_none(~(shape > 0) | ~(scale > 0) | ~(x >= 0))
+        return val, grads, (
+            None if positive(shape, scale) and nonnegative(x)
+            else mask_or_none(~(shape > 0) | ~(scale > 0) | ~(x >= 0))
+        )
 
     def _sample(self, rng, shape_out, shape, scale):
         return scale * rng.weibull(np.broadcast_to(shape, shape_out))
@@ -355,7 +377,10 @@ class Beta(Distribution):
                 grads["a"] = np.log(x) - digamma(a) + d_ab
             if "b" in wrt:
                 grads["b"] = np.log1p(-x) - digamma(b) + d_ab
-        return val, grads, mask_or_none(~(a > 0) | ~(b > 0) | ~((x >= 0) & (x <= 1)))
+        return val, grads, (
+            None if positive(a, b) and nonnegative(x, 1.0 - x)
+            else mask_or_none(~(a > 0) | ~(b > 0) | ~((x >= 0) & (x <= 1)))
+        )
 
     def _sample(self, rng, shape, a, b):
         return rng.beta(np.broadcast_to(a, shape), b)

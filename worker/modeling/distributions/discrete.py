@@ -10,7 +10,16 @@ import numpy as np
 from scipy.special import digamma, gammaln, xlog1py, xlogy
 
 from ..special import expit, softplus
-from .base import Array, Distribution, Summed, mask_or_none
+from .base import (
+    Array,
+    Distribution,
+    Summed,
+    binary,
+    counts,
+    mask_or_none,
+    nonnegative,
+    positive,
+)
 
 Pointwise = tuple[Array, dict[str, Array], Array | None]
 
@@ -36,6 +45,8 @@ class BernoulliProbability(Distribution):
         grads: dict[str, Array] = {}
         if "probability" in wrt:
             grads["probability"] = x / p - (1 - x) / (1 - p)
+        if binary(x) and nonnegative(p, 1.0 - p):
+            return val, grads, None
         return val, grads, mask_or_none(_not_binary(x) | ~((p >= 0) & (p <= 1)))
 
     def _sample(self, rng, shape, probability):
@@ -54,7 +65,7 @@ class BernoulliLogOdds(Distribution):
         grads: dict[str, Array] = {}
         if "log_odds" in wrt:
             grads["log_odds"] = x - expit(log_odds)
-        return val, grads, mask_or_none(_not_binary(x))
+        return val, grads, None if binary(x) else mask_or_none(_not_binary(x))
 
     def _sample(self, rng, shape, log_odds):
         return (rng.random(shape) < expit(log_odds)).astype(np.int64)
@@ -72,6 +83,8 @@ class PoissonRate(Distribution):
         grads: dict[str, Array] = {}
         if "rate" in wrt:
             grads["rate"] = x / rate - 1.0
+        if counts(x) and nonnegative(rate):
+            return val, grads, None
         return val, grads, mask_or_none(_not_count(x) | ~(rate >= 0))
 
     def _sample(self, rng, shape, rate):
@@ -91,7 +104,7 @@ class PoissonLogRate(Distribution):
         grads: dict[str, Array] = {}
         if "log_rate" in wrt:
             grads["log_rate"] = x - rate
-        return val, grads, mask_or_none(_not_count(x))
+        return val, grads, None if counts(x) else mask_or_none(_not_count(x))
 
     def _sample(self, rng, shape, log_rate):
         return rng.poisson(np.broadcast_to(np.exp(log_rate), shape)).astype(np.int64)
@@ -189,6 +202,8 @@ class NegativeBinomialMean(Distribution):
         val, grads = _negative_binomial(
             x, dispersion, xlogy(x, mean), log_total, mean, wrt, "mean"
         )
+        if counts(x) and positive(mean, dispersion):
+            return val, grads, None
         bad = _not_count(x) | ~(mean > 0) | ~(dispersion > 0)
         return val, grads, mask_or_none(bad)
 
@@ -211,6 +226,8 @@ class NegativeBinomialLogMean(Distribution):
         val, grads = _negative_binomial(
             x, dispersion, x * log_mean, log_total, mean, wrt, "log_mean"
         )
+        if counts(x) and positive(dispersion):
+            return val, grads, None
         return val, grads, mask_or_none(_not_count(x) | ~(dispersion > 0))
 
     def _sample(self, rng, shape, log_mean, dispersion):
