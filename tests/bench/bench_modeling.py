@@ -1,7 +1,7 @@
 """Modeling engine: log density + gradient of spec-compiled models over hand-written numpy.
 
 Both functions are timed side by side in one run, call by call in alternation, on the same point,
-after checking that they agree; the ratio is the median time of ours / the hand-written one's.
+after checking that they agree; the ratio is the median CPU time of ours / the hand-written one's.
 """
 
 from __future__ import annotations
@@ -105,12 +105,13 @@ def compare(label: str, spec: dict, data: dict, hand, calls: int, seed: int = 1)
     hand_value, hand_grad = hand(u)
     assert np.isclose(ours_value, hand_value, rtol=1e-10, atol=1e-8), (ours_value, hand_value)
     assert np.allclose(ours_grad, hand_grad, rtol=1e-9, atol=1e-8)
-    # Alternate single calls and compare medians: on a shared machine a call is rarely interrupted
-    # (time slices are far longer than a call), so the median is the undisturbed cost, and
-    # alternating exposes both functions to the same load.
+    # Alternate single calls and compare medians of process CPU time: CPU time leaves out the time
+    # other processes on a shared machine hold the cores, the median drops calls disturbed anyway,
+    # and alternation exposes both functions to the same cache and memory-bandwidth conditions.
+    # Process (not thread) time, so that BLAS worker threads count for both alike.
     ours_times = np.empty(calls)
     hand_times = np.empty(calls)
-    clock = time.perf_counter
+    clock = time.process_time
     for i in range(calls):
         start = clock()
         model.log_density_and_gradient(u)

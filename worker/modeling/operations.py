@@ -16,6 +16,19 @@ Array = np.ndarray
 Grads = list[Array | None]
 
 
+# Above this length a dot product is done by einsum rather than BLAS: a BLAS dot of a long vector
+# may wake BLAS worker threads, which on a busy machine (one chain per core) costs far more than
+# the arithmetic; below it BLAS's lower call overhead wins.
+_BLAS_DOT_LIMIT = 1024
+
+
+def sum_of_products(a: Array, b: Array) -> float:
+    """sum(a * b) over equal shapes, in one pass."""
+    if a.size <= _BLAS_DOT_LIMIT:
+        return float(np.vdot(a, b))
+    return float(np.einsum("i,i->", a.reshape(-1), b.reshape(-1)))
+
+
 def _reduce_to(grad: Array, shape: tuple[int, ...]) -> Array:
     """Undo scalar broadcasting: the only broadcasting the language allows."""
     if grad.shape == shape:
@@ -79,7 +92,7 @@ def _product_gradient(g: Array, other: Array, shape: tuple[int, ...]) -> Array:
     if shape == g.shape:
         return g * other
     if other.shape == g.shape:
-        return np.vdot(g, other)
+        return np.float64(sum_of_products(g, other))
     return (g * other).sum()
 
 
@@ -210,7 +223,7 @@ class Dot(Operation):
     name = "dot"
 
     def forward(self, a, b):
-        return np.asarray(np.dot(a, b))
+        return np.float64(sum_of_products(a, b))
 
     def backward(self, g, inputs, out, needs):
         a, b = inputs

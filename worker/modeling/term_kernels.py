@@ -16,6 +16,7 @@ import numpy as np
 from scipy.special import expit, gammaln, log_expit
 
 from .graph import Graph
+from .operations import sum_of_products
 
 LOG_2PI = float(np.log(2.0 * np.pi))
 LOG_2 = float(np.log(2.0))
@@ -36,17 +37,13 @@ def _scalar_square(z: Any) -> float:
     return float(z * z)
 
 
-def _vector_square(z: np.ndarray) -> float:
-    return float(z @ z)
-
-
 def _array_square(z: np.ndarray) -> float:
-    return float(np.vdot(z, z))
+    return sum_of_products(z, z)
 
 
 def _square_sum_for(batch: tuple[int, ...]):
-    """sum(z^2) for values of one known shape, picked once: a scalar, a vector, or any array."""
-    return {0: _scalar_square, 1: _vector_square}.get(len(batch), _array_square)
+    """sum(z^2) for values of one known shape, picked once: a scalar or an array."""
+    return _scalar_square if not batch else _array_square
 
 
 def _reducer(shape: tuple[int, ...], batch: tuple[int, ...]):
@@ -227,11 +224,11 @@ class BernoulliLogOddsData:
 
     def value(self, v: list[Any]) -> float:
         eta = self._eta(v)
-        return float(np.vdot(self.y, eta) + np.sum(log_expit(-eta)))
+        return sum_of_products(self.y, eta) + float(np.sum(log_expit(-eta)))
 
     def run(self, v: list[Any], adjoint: list[Any]) -> float:
         eta = self._eta(v)
-        total = float(np.vdot(self.y, eta) + np.sum(log_expit(-eta)))
+        total = sum_of_products(self.y, eta) + float(np.sum(log_expit(-eta)))
         g = self.y - expit(eta)
         _accumulate(adjoint, self.eta, g if self.eta_reduce is None else self.eta_reduce(g))
         return total
@@ -255,12 +252,12 @@ class PoissonLogRateData:
 
     def value(self, v: list[Any]) -> float:
         r = self._log_rate(v)
-        return self.constant + float(np.vdot(self.y, r) - np.sum(np.exp(r)))
+        return self.constant + sum_of_products(self.y, r) - float(np.sum(np.exp(r)))
 
     def run(self, v: list[Any], adjoint: list[Any]) -> float:
         r = self._log_rate(v)
         rate = np.exp(r)
-        total = self.constant + float(np.vdot(self.y, r) - np.sum(rate))
+        total = self.constant + sum_of_products(self.y, r) - float(np.sum(rate))
         g = self.y - rate
         _accumulate(adjoint, self.log_rate, g if self.reduce is None else self.reduce(g))
         return total
