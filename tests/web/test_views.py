@@ -307,3 +307,37 @@ def test_plots_are_svg_cached_and_revalidated(finished) -> None:
     assert client.get(f"/jobs/{job_id}/plots/violin.svg?quantity=branch_spread").status_code == 404
     bins = client.get(f"/jobs/{job_id}/plots/ranks.svg?quantity=branch_spread&bins=2")
     assert bins.status_code == 400
+
+
+def test_a_passed_verdict_lists_its_thresholds(tmp_path: Path, redis_url: str) -> None:
+    """Lenient thresholds (None switches a check off, DEVELOPERS.md) give a passing verdict."""
+    app = make_app(tmp_path, redis_url)
+    client = app.test_client()
+    body = demo_submission(SMALL["chains"], SMALL["warmup"], SMALL["draws"])
+    body["checks"] = {"max_rhat": 1.5, "min_bulk_ess": 10, "min_tail_ess": 10,
+                      "max_divergences": None, "min_ebfmi": None}
+    job_id = client.post("/v1/jobs", json=body).get_json()["id"]
+    runtime = app.extensions["drawyard"]
+    for chain in range(SMALL["chains"]):
+        run_chain(runtime, job_id, chain)
+    finish(runtime, job_id)
+    verdict = client.get(f"/v1/jobs/{job_id}/summary").get_json()["verdict"]
+    assert verdict["passed"] is True
+    page = client.get(f"/jobs/{job_id}").get_data(as_text=True)
+    assert 'data-passed="yes"' in page and 'class="failed-check"' not in page
+    assert "max rhat 1.5" in page and "min bulk ess 10" in page
+    assert "does not prove the model right" in page  # the cautions show on a pass too
+
+
+def test_the_list_pages_through_older_jobs(client: FlaskClient) -> None:
+    from service.web.pages import PAGE_SIZE
+
+    for number in range(PAGE_SIZE + 1):
+        assert client.post("/submit", data=demo_form(token=f"t{number}")).status_code == 303
+    first = client.get("/jobs").get_data(as_text=True)
+    assert first.count('<a href="/jobs/') == PAGE_SIZE
+    older = re.search(r'<a href="(/jobs\?cursor=[^"]+)">Older jobs</a>', first)
+    assert older is not None
+    second = client.get(older.group(1).replace("&amp;", "&")).get_data(as_text=True)
+    assert second.count('<a href="/jobs/') == 1
+    assert "Older jobs" not in second
