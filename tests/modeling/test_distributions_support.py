@@ -275,3 +275,37 @@ def test_lkj_uniform_normaliser_is_the_elliptope_volume() -> None:
     )
     expected = np.log(np.sqrt(1 - l21**2)) - np.log(np.pi**2 / 2)
     assert dist.log_density(factor, {"concentration": 1.0}) == pytest.approx(expected, rel=1e-12)
+
+
+def test_extreme_linear_predictors_stay_finite() -> None:
+    """Far in the tails the log-space forms keep full precision where the naive formulas underflow.
+
+    References (common practice): log(1 - logistic(t)) = -softplus(t); for very negative a and
+    b < a, log(logistic(a) - logistic(b)) = a + log(1 - exp(b - a)) up to O(exp(a)); softmax is
+    unchanged by adding a constant to every log weight.
+    """
+    ordered = find_distribution("ordered_logistic", {"predictor", "cutpoints"})
+    cutpoints = np.array([-1.0, 0.5, 2.0])
+    values = ordered.log_density(np.array([1, 3, 4]), {"predictor": np.array([40.0, -800.0, 900.0]),
+                                                       "cutpoints": cutpoints})
+    expected = [
+        -(40.0 + 1.0) - np.log1p(np.exp(-41.0)),
+        (-800.0 - 0.5) + np.log(-np.expm1(-(2.0 - 0.5))),
+        0.0,
+    ]
+    np.testing.assert_allclose(values, expected, rtol=1e-14)
+
+    binomial = find_distribution("binomial", {"trials", "log_odds"})
+    value = binomial.log_density(0, {"trials": 10, "log_odds": 750.0})
+    assert value == pytest.approx(-7500.0, rel=1e-14)
+
+    categorical = find_distribution("categorical", {"log_weights"})
+    w = np.array([0.3, -1.2, 2.0])
+    np.testing.assert_allclose(
+        categorical.log_density(np.array([1, 2, 3]), {"log_weights": w + 1000.0}),
+        categorical.log_density(np.array([1, 2, 3]), {"log_weights": w}),
+        rtol=1e-12,
+    )
+
+    poisson = find_distribution("poisson", {"log_rate"})
+    assert poisson.log_density(0, {"log_rate": -745.0}) == pytest.approx(-np.exp(-745.0), abs=0)
