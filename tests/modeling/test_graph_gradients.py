@@ -42,22 +42,27 @@ def check(spec, seed):
         assert_gradient_close(gradient, numeric, scale=abs(value))
 
 
-@settings(max_examples=40, deadline=None)
+@settings(max_examples=40, deadline=None, derandomize=True)
 @given(shape=SHAPES, function=st.sampled_from(FUNCTIONS),
        operator=st.sampled_from(["+", "-", "*", "/", "^"]), b_first=st.booleans(),
        seed=st.integers(0, 2**32 - 1))
 def test_function_and_operator(shape, function, operator, b_first, seed):
-    # keep b's side of ^ and / away from sign changes and zero (exp(b) > 0), and the base of a
-    # power positive (a negative base to a fractional power has no real value)
+    # Keep every operation well inside its domain, so that finite differences are accurate: b's
+    # side is exp(b) > 0; a power's base is positive (a negative base to a fractional power has no
+    # real value) and its exponent bounded (no overflow); a divisor stays at least 1.
     left, right = f"{function}(a)", "exp(b)"
-    if operator == "^":
-        left = f"exp({left})"
     if b_first:
         left, right = right, left
+        if operator == "^":
+            right = f"tanh({right})"
+        elif operator == "/":
+            right = f"1 + square({right})"
+    elif operator == "^":
+        left = f"exp(tanh({left}))"
     check(spec_for(shape, f"({left}) {operator} ({right})"), seed)
 
 
-@settings(max_examples=30, deadline=None)
+@settings(max_examples=30, deadline=None, derandomize=True)
 @given(n=st.integers(1, 5), seed=st.integers(0, 2**32 - 1),
        reduce=st.sampled_from(["sum", "mean"]))
 def test_vector_pipeline(n, seed, reduce):
@@ -66,7 +71,7 @@ def test_vector_pipeline(n, seed, reduce):
     check(spec_for([n], expression), seed)
 
 
-@settings(max_examples=30, deadline=None)
+@settings(max_examples=30, deadline=None, derandomize=True)
 @given(m=st.integers(1, 4), n=st.integers(1, 4), seed=st.integers(0, 2**32 - 1))
 def test_matrix_pipeline(m, n, seed):
     rng = np.random.default_rng(seed)

@@ -73,10 +73,7 @@ class Plan:
              tuple((k, i) for k, (i, need) in enumerate(zip(inputs, needs, strict=True)) if need))
             for out, operation, inputs, needs in reversed(self.steps)
         ]
-        self._slot_plan = [
-            (s.node, s.start, s.stop, s.shape, None if s.transform is None else s.transform.forward)
-            for s in slots
-        ]
+        self._slot_plan = [_slot_entry(s) for s in slots]
 
         # Terms that involve no unknown add the same number at every point: settle it now.
         self.constant_total = 0.0
@@ -116,9 +113,13 @@ class Plan:
         with np.errstate(all="ignore"):
             v = self._values
             total = self.constant_total
-            for node, start, stop, shape, forward in self._slot_plan:
-                if forward is None:
+            for kind, node, start, stop, shape, forward, bound, sign in self._slot_plan:
+                if kind == IDENTITY:
                     v[node] = u[start] if not shape else u[start:stop].reshape(shape)
+                elif kind == SCALAR_BOUND:
+                    ui = u[start]
+                    v[node] = _float64(bound + sign * math.exp(ui))
+                    total += ui
                 else:
                     x, log_jacobian, _ = forward(u[start:stop])
                     v[node] = x if shape else x[()]
@@ -135,9 +136,15 @@ class Plan:
             v = self._values
             total = self.constant_total
             pullbacks = []
-            for node, start, stop, shape, forward in self._slot_plan:
-                if forward is None:
+            for kind, node, start, stop, shape, forward, bound, sign in self._slot_plan:
+                if kind == IDENTITY:
                     v[node] = u[start] if not shape else u[start:stop].reshape(shape)
+                elif kind == SCALAR_BOUND:
+                    ui = u[start]
+                    slope = sign * math.exp(ui)
+                    v[node] = _float64(bound + slope)
+                    total += ui
+                    pullbacks.append(slope)
                 else:
                     x, log_jacobian, pullback = forward(u[start:stop])
                     v[node] = x if shape else x[()]
@@ -158,13 +165,17 @@ class Plan:
                     adjoint[i] = grads_in[k] if previous is None else previous + grads_in[k]
             gradient = np.empty(self.dimension)
             k = 0
-            for node, start, stop, shape, forward in self._slot_plan:
+            for kind, node, start, stop, shape, _, _, _ in self._slot_plan:
                 g = adjoint[node]
-                if forward is None:
+                if kind == IDENTITY:
                     if not shape:
                         gradient[start] = 0.0 if g is None else g
                     else:
                         gradient[start:stop] = 0.0 if g is None else g.reshape(-1)
+                elif kind == SCALAR_BOUND:
+                    # d/du of (value terms + log-Jacobian u): g * dx/du + 1
+                    gradient[start] = 1.0 if g is None else g * pullbacks[k] + 1.0
+                    k += 1
                 else:
                     gradient[start:stop] = pullbacks[k](np.zeros(shape) if g is None else g)
                     k += 1
@@ -172,6 +183,28 @@ class Plan:
             if not math.isfinite(total + float(gradient.sum())):
                 return -math.inf, np.zeros(self.dimension)
         return float(total), gradient
+
+
+IDENTITY, SCALAR_BOUND, GENERAL = 0, 1, 2
+# values in the plan keep numpy's scalar type, which carries .shape like every other value
+_float64 = np.float64
+
+
+def _slot_entry(slot: UnknownSlot) -> tuple:
+    """How the plan constrains one unknown: (kind, node, start, stop, shape, forward, bound, sign).
+
+    A scalar with one bound, x = bound + exp(u) (lower) or bound - exp(u) (upper), the commonest
+    constrained unknown (a scale), is done in plain floats here; its log-Jacobian is u. Everything
+    else goes through its transform's forward pass.
+    """
+    t = slot.transform
+    if t is None:
+        return (IDENTITY, slot.node, slot.start, slot.stop, slot.shape, None, 0.0, 0.0)
+    if slot.shape == () and t.structure in ("lower", "upper"):
+        bound = float(t.lower if t.structure == "lower" else t.upper)
+        sign = 1.0 if t.structure == "lower" else -1.0
+        return (SCALAR_BOUND, slot.node, slot.start, slot.stop, (), None, bound, sign)
+    return (GENERAL, slot.node, slot.start, slot.stop, slot.shape, t.forward, 0.0, 0.0)
 
 
 def _ancestors(graph: Graph, wanted: set[int]) -> set[int]:
