@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import digamma, gammaln, xlog1py, xlogy
 
-from ..special import expit, softplus
+from ..special import expit, max_last, softplus, sum_last
 from .base import (
     Array,
     Distribution,
@@ -30,6 +30,19 @@ def _not_binary(x: Array) -> Array:
 
 def _not_count(x: Array) -> Array:
     return ~((x >= 0) & (x == np.floor(x)))
+
+
+def _not_category(x: Array, k: int) -> Array:
+    return ~((x >= 1) & (x <= k) & (x == np.floor(x)))
+
+
+def categories(x: Array, k: int) -> bool:
+    """Every element an integer in 1..k (two reductions for integer data)."""
+    if x.size == 0:
+        return True
+    if x.dtype.kind in "iu":
+        return bool(x.min() >= 1 and x.max() <= k)
+    return not bool(np.any(_not_category(x, k)))
 
 
 class BernoulliProbability(Distribution):
@@ -254,21 +267,25 @@ class Categorical(Distribution):
         k = log_weights.shape[-1]
         batch = np.broadcast_shapes(x.shape, log_weights.shape[:-1])
         w = np.broadcast_to(log_weights, batch + (k,))
-        bad = ~((x >= 1) & (x <= k) & (x == np.floor(x)))
-        index = np.broadcast_to(np.where(bad, 1, x).astype(np.intp) - 1, batch)
-        top = np.max(w, axis=-1, keepdims=True)
-        shifted = np.exp(w - top)
-        total = np.sum(shifted, axis=-1)
-        picked = np.take_along_axis(w, index[..., None], axis=-1)[..., 0]
-        val = picked - top[..., 0] - np.log(total)
+        bad = None if categories(x, k) else _not_category(x, k)
+        index = (x if bad is None else np.where(bad, 1, x)).astype(np.intp) - 1
+        index = np.broadcast_to(index, batch).ravel()
+        top = max_last(w)
+        top = np.where(np.isfinite(top), top, 0.0)
+        shifted = np.exp(w - top[..., None])
+        total = sum_last(shifted)
+        # pick each row's own category through flat indices (faster than take_along_axis)
+        flat = np.arange(index.size) * k + index
+        picked = w.reshape(-1)[flat].reshape(batch)
+        val = picked - top - np.log(total)
         grads: dict[str, Array] = {}
         if "log_weights" in wrt:
-            g = -shifted / total[..., None]
-            np.put_along_axis(
-                g, index[..., None], np.take_along_axis(g, index[..., None], -1) + 1.0, -1
-            )
+            g = shifted / (-total[..., None])
+            g.reshape(-1)[flat] += 1.0
             grads["log_weights"] = g
-        return val, grads, mask_or_none(np.broadcast_to(bad, batch))
+        if bad is not None:
+            bad = mask_or_none(np.broadcast_to(bad, batch))
+        return val, grads, bad
 
     def _sample(self, rng, shape, log_weights):
         k = log_weights.shape[-1]
@@ -297,9 +314,13 @@ class OrderedLogistic(Distribution):
     def _log_density_and_pointwise(self, x, predictor, cutpoints, wrt) -> Pointwise:
         k = cutpoints.shape[-1]
         batch = np.broadcast_shapes(x.shape, predictor.shape, cutpoints.shape[:-1])
-        bad = ~((x >= 1) & (x <= k + 1) & (x == np.floor(x)))
-        bad = bad | np.any(~(np.diff(cutpoints, axis=-1) > 0), axis=-1)
-        outcome = np.broadcast_to(np.where(bad, 1, x).astype(np.intp), batch)
+        if categories(x, k + 1) and (k < 2 or bool(np.all(np.diff(cutpoints, axis=-1) > 0))):
+            bad = None
+            outcome = np.broadcast_to(x.astype(np.intp), batch)
+        else:
+            bad = _not_category(x, k + 1) | np.any(~(np.diff(cutpoints, axis=-1) > 0), axis=-1)
+            bad = np.broadcast_to(bad, batch)
+            outcome = np.broadcast_to(np.where(bad, 1, x).astype(np.intp), batch)
         pad_shape = cutpoints.shape[:-1] + (1,)
         padded = np.concatenate(
             [np.full(pad_shape, -np.inf), cutpoints, np.full(pad_shape, np.inf)], axis=-1
@@ -327,7 +348,7 @@ class OrderedLogistic(Distribution):
                 grads["cutpoints"] = self._scatter(
                     outcome, -d_above, -d_below, k, batch, padded.ndim == 1, bad
                 )
-        return val, grads, mask_or_none(np.broadcast_to(bad, batch))
+        return val, grads, None if bad is None else mask_or_none(bad)
 
     @staticmethod
     def _scatter(outcome, d_low, d_high, k, batch, shared, bad):
@@ -336,7 +357,7 @@ class OrderedLogistic(Distribution):
         d_high = np.broadcast_to(d_high, batch)
         if shared:
             # one cutpoint vector for the whole batch: sum by index in a single pass
-            if bad.any():
+            if bad is not None:
                 d_low = np.where(bad, 0.0, d_low)
                 d_high = np.where(bad, 0.0, d_high)
             total = np.bincount(outcome.ravel() - 1, d_low.ravel(), minlength=k + 2)

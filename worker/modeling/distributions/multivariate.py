@@ -6,7 +6,7 @@ import numpy as np
 from scipy.linalg import solve_triangular
 from scipy.special import betaln, digamma, gammaln, xlogy
 
-from ..special import LOG_2, LOG_2PI
+from ..special import LOG_2, LOG_2PI, sum_last
 from ..transforms import cholesky_from_partial_correlations
 from .base import STRUCTURE_TOLERANCE, Array, Distribution, Summed, cholesky_correlation_valid
 
@@ -23,8 +23,8 @@ class Dirichlet(Distribution):
 
     def _log_density_and_pointwise(self, x, concentration, wrt) -> Pointwise:
         a = concentration
-        total = np.sum(a, axis=-1)
-        val = gammaln(total) - np.sum(gammaln(a), axis=-1) + np.sum(xlogy(a - 1.0, x), axis=-1)
+        total = sum_last(a)
+        val = gammaln(total) - sum_last(gammaln(a)) + sum_last(xlogy(a - 1.0, x))
         grads: dict[str, Array] = {}
         if "x" in wrt:
             grads["x"] = (a - 1.0) / x
@@ -72,7 +72,7 @@ class MultivariateNormal(Distribution):
             r = np.broadcast_to(r, batch + (k,))
             z = np.linalg.solve(lower, r[..., None])[..., 0]
             w = np.linalg.solve(np.swapaxes(lower, -1, -2), z[..., None])[..., 0] if wrt else None
-        val = -0.5 * k * LOG_2PI - np.sum(np.log(diagonal), axis=-1) - 0.5 * np.sum(z * z, axis=-1)
+        val = -0.5 * k * LOG_2PI - np.sum(np.log(diagonal), axis=-1) - 0.5 * sum_last(z * z)
         grads: dict[str, Array] = {}
         bad = np.any(~(diagonal > 0), axis=-1)
         if wrt:
