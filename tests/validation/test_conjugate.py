@@ -110,11 +110,13 @@ def test_conjugate_posterior_matches_closed_form(case: str, method: str) -> None
 
 
 def test_the_comparison_has_power() -> None:
-    """The 4-MCSE check must flag a reference that is off by a tenth of a posterior sd (here the
-    beta-binomial posterior with NUTS: its MCSE of the mean is about sd / sqrt(ESS) ~ sd / 60)."""
+    """The 4-MCSE check must flag a reference off by a quarter of a posterior sd: with the
+    verdict's ESS of at least 400, 4 MCSE of the mean is at most 4 sd / sqrt(400) = 0.2 sd
+    (beta-binomial posterior, NUTS)."""
     spec, data, truth = _beta_binomial()
     outcome = run(spec, data, "nuts", seed=5)
+    assert outcome["verdict"]["passed"]
     reference = from_scipy(truth["theta"])
     assert not mismatches(record_of(outcome, "theta"), reference)
-    shifted = {"mean": reference["mean"] + 0.1 * reference["sd"]}
+    shifted = {"mean": reference["mean"] + 0.25 * reference["sd"]}
     assert mismatches(record_of(outcome, "theta"), shifted)

@@ -108,6 +108,7 @@ def test_quadrature_reference_is_sane(reference: dict) -> None:
     assert 0 < reference["tau"]["mean"] < 20
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("method", METHODS)
 def test_non_centred_schools_match_quadrature(method: str, reference: dict) -> None:
     """NUTS runs with target acceptance 0.9: at the default 0.8 the half-Cauchy tail of tau gave
