@@ -195,3 +195,9 @@ def test_bad_spec_shows_the_problem_beside_its_line(
     screenshot(page, "submit-problems")
     jobs = requests.get(f"{service.base_url}/v1/jobs", timeout=30).json()["jobs"]
     assert jobs == []
+
+    # A job that does not exist gets a page saying so, not a bare error document.
+    answer = page.goto(f"{service.base_url}/jobs/{'0' * 32}")
+    assert answer is not None and answer.status == 404
+    expect(page.get_by_role("heading", name="No such job")).to_be_visible()
+    screenshot(page, "job-not-found")
