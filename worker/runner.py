@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 
 from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
-from worker.problems import InvalidSubmission, Problem
+from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, SamplerSettings
 from worker.samplers.chain import sampling_sequence
 from worker.samplers.settings import INITIALISATIONS, METHODS, METRICS
@@ -88,14 +88,12 @@ def sampler_problems(
         return [Problem("/sampler", "The sampler settings must be an object.")]
     checks: dict[str, Callable[[Any], str | None]] = {
         "method": lambda v: _choice_problem(v, METHODS, "method"),
-        "warmup_iterations": lambda v: _integer_problem(v, 0, max_draws, "number of warm-up "
-                                                        "iterations"),
+        "warmup_iterations": lambda v: _integer_problem(v, 0, max_draws, "warm-up length"),
         "draws": lambda v: _integer_problem(v, 1, max_draws, "number of draws per chain"),
         "chains": lambda v: _integer_problem(v, 1, max_chains, "number of chains"),
         "seed": lambda v: _integer_problem(v, 0, MAX_SEED, "seed"),
         "target_acceptance": _acceptance_problem,
-        "maximum_tree_depth": lambda v: _integer_problem(v, 1, TREE_DEPTH_LIMIT, "maximum tree "
-                                                     "depth"),
+        "maximum_tree_depth": lambda v: _integer_problem(v, 1, TREE_DEPTH_LIMIT, "depth limit"),
         "metric": lambda v: _choice_problem(v, METRICS, "metric"),
         "integration_time": lambda v: _positive_problem(v, "integration time"),
         "jitter": _flag_problem,
@@ -106,7 +104,7 @@ def sampler_problems(
     }  # fmt: skip
     problems = []
     for name, value in sampler.items():
-        where = f"/sampler/{_escape(name)}"
+        where = f"/sampler/{escape_token(name)}"
         if name not in checks:
             known = ", ".join(sorted(checks))
             problems.append(Problem(where, f"Unknown sampler setting '{name}'; known: {known}."))
@@ -116,10 +114,6 @@ def sampler_problems(
             problems.append(Problem(where, message))
     problems.extend(_initial_values_shape_problems(sampler))
     return problems
-
-
-def _escape(token: str) -> str:
-    return str(token).replace("~", "~0").replace("/", "~1")
 
 
 def _initial_values_shape_problems(sampler: dict) -> list[Problem]:
@@ -189,7 +183,7 @@ def _initial_value_problems(body: dict) -> list[Problem]:
     for i, item in enumerate(sets):
         where = "/sampler/initial_values" + (f"/{i}" if isinstance(values, list) else "")
         problems.extend(
-            Problem(f"{where}/{_escape(name)}", f"'{name}' is not an unknown of the model.")
+            Problem(f"{where}/{escape_token(name)}", f"'{name}' is not an unknown of the model.")
             for name in item
             if name not in known
         )
@@ -226,7 +220,7 @@ def check_submission(
     if not isinstance(body, dict):
         return [Problem("", "The submission must be a JSON object.")]
     problems = [
-        Problem(f"/{_escape(name)}", f"Unknown member '{name}' of the submission.")
+        Problem(f"/{escape_token(name)}", f"Unknown member '{name}' of the submission.")
         for name in body
         if name not in TOP_LEVEL_MEMBERS
     ]
