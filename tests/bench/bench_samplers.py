@@ -157,7 +157,7 @@ def compiled_models() -> str:
         "NUTS, logistic regression 50000 x 20, compiled spec",
         compile_model(spec, data),
         # Shorter than the default: each gradient is a pass over 50,000 rows.
-        SamplerSettings(warmup_iterations=300, draws=300),
+        SamplerSettings(warmup_iterations=200, draws=200),
         1,
     )
     spec, data, _ = eight_schools()
