@@ -188,6 +188,8 @@ def test_bad_spec_shows_the_problem_beside_its_line(
     assert flagged.get_attribute("value") == str(expected_line)
     expect(flagged).to_contain_text('"distribution": "half_norml"')
     expect(page.locator("#model_text")).to_have_attribute("aria-invalid", "true")
+    # The spec's text area is scrolled to the flagged line (submit.js).
+    assert page.locator("#model_text").evaluate("area => area.scrollTop") > 0
     # The data are fine, and the chains problem sits beside the chains box.
     expect(page.locator("#field-data .problems")).to_have_count(0)
     chains = page.locator("#problems-sampler-chains li[data-pointer='/sampler/chains']")
