@@ -161,8 +161,11 @@ class Plan:
                     continue
                 grads_in = operation.backward(g, [v[i] for i in inputs], v[out], needs)
                 for k, i in targets:
+                    gk = grads_in[k]
+                    if gk is None:  # a select's condition carries no gradient
+                        continue
                     previous = adjoint[i]
-                    adjoint[i] = grads_in[k] if previous is None else previous + grads_in[k]
+                    adjoint[i] = gk if previous is None else previous + gk
             gradient = np.empty(self.dimension)
             k = 0
             for kind, node, start, stop, shape, _, _, _ in self._slot_plan:
