@@ -107,12 +107,15 @@ def test_same_seed_same_draws() -> None:
     np.testing.assert_array_equal(a, b)
 
 
-def test_dirichlet_draws() -> None:
-    """Component means and variances of scipy.stats.dirichlet."""
-    alpha = np.array([1.5, 2.0, 3.5])
+@pytest.mark.parametrize("alpha", [[1.5, 2.0, 3.5], [0.001, 0.002, 0.003]])
+def test_dirichlet_draws(alpha: list[float]) -> None:
+    """Component means and variances of scipy.stats.dirichlet, also for tiny concentrations
+    (where naive normalised gamma draws underflow to 0/0)."""
+    alpha = np.array(alpha)
     dist = find_distribution("dirichlet", {"concentration"})
     draws = dist.sample({"concentration": alpha}, np.random.default_rng(5), (N, 3))
     assert draws.shape == (N, 3)
+    assert np.all(np.isfinite(draws))
     np.testing.assert_allclose(draws.sum(axis=1), 1.0, atol=1e-12)
     reference = st.dirichlet(alpha)
     assert np.all(np.abs(draws.mean(axis=0) - reference.mean()) < Z * np.sqrt(reference.var() / N))

@@ -6,7 +6,7 @@ import numpy as np
 from scipy.linalg import solve_triangular
 from scipy.special import betaln, digamma, gammaln, xlogy
 
-from ..special import LOG_2, LOG_2PI, sum_last
+from ..special import LOG_2, LOG_2PI, softmax, sum_last
 from ..transforms import cholesky_from_partial_correlations
 from .base import STRUCTURE_TOLERANCE, Array, Distribution, Summed, cholesky_correlation_valid
 
@@ -39,8 +39,11 @@ class Dirichlet(Distribution):
         return val, grads, bad if bad.any() else None
 
     def _sample(self, rng, shape, concentration):
-        g = rng.standard_gamma(np.broadcast_to(concentration, shape))
-        return g / np.sum(g, axis=-1, keepdims=True)
+        # normalised Gamma(a) draws, built in log space as Gamma(a + 1) * U^(1/a) (Marsaglia &
+        # Tsang 2000, section 6) so that small concentrations cannot underflow every component
+        a = np.broadcast_to(concentration, shape)
+        log_g = np.log(rng.standard_gamma(a + 1.0)) + np.log(rng.random(shape)) / a
+        return softmax(log_g)
 
 
 class MultivariateNormal(Distribution):
