@@ -275,8 +275,3 @@ def binary(x: Array) -> bool:
 def mask_or_none(bad: Array) -> Array | None:
     """Keep an out-of-support mask only when something is out of support (saves a pass)."""
     return bad if bad.any() else None
-
-
-def finalise(val: Array, bad: Array) -> Array:
-    """Values with out-of-support elements set to -inf."""
-    return np.where(bad, NEG_INF, val) if bad.any() else val
