@@ -263,3 +263,32 @@ def test_problems_are_one_sentence_each():
     problems = check_model(spec, data)
     assert len(problems) == 1, "a large bad array gives one problem, not one per element"
     assert "8 value(s)" in problems[0].message
+
+
+def _resolves(document, pointer):
+    """RFC 6901 evaluation: every token but the last must exist; the last may name a missing
+    member (a missing datum or field is reported where it should be)."""
+    tokens = [t.replace("~1", "/").replace("~0", "~") for t in pointer.split("/")[1:]]
+    target = document
+    for position, token in enumerate(tokens):
+        last = position == len(tokens) - 1
+        if isinstance(target, dict):
+            if token not in target:
+                return last
+            target = target[token]
+        elif isinstance(target, list):
+            if not token.isdigit() or int(token) >= len(target):
+                return False
+            target = target[int(token)]
+        else:
+            return False
+    return True
+
+
+@pytest.mark.parametrize(("label", "change", "where", "fragment"), CASES,
+                         ids=[c[0] for c in CASES])
+def test_every_pointer_resolves(label, change, where, fragment):
+    spec, data = copy.deepcopy(BASE), copy.deepcopy(DATA)
+    change(spec, data)
+    for problem in check_model(spec, data):
+        assert _resolves({"model": spec, "data": data}, problem.pointer), problem
