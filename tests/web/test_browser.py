@@ -86,11 +86,14 @@ def test_demo_submitted_followed_and_read(
     page.wait_for_url(re.compile(r"/jobs/[0-9a-f]{32}$"))
     job_id = page.url.rsplit("/", 1)[1]
     expect(page.locator("#chains tbody tr[data-chain]")).to_have_count(CHAINS)
-    # The table moves while the job runs, without a reload: job.js polls the JSON status.
+    # The table moves while the job runs, without a reload: job.js polls the JSON status. The
+    # cells as rendered are kept in the page's own window object, which a reload would replace.
+    table = "() => [...document.querySelectorAll('#chains [data-field]')].map(c => c.textContent)"
+    page.evaluate(f"window.renderedCells = ({table})()")
     page.wait_for_function(
-        """() => document.querySelector('#job').dataset.terminal === 'no'
-              && [...document.querySelectorAll('[data-field=iteration]')]
-                   .some(cell => Number(cell.textContent) > 0)""",
+        f"""() => window.renderedCells !== undefined
+              && document.querySelector('#job').dataset.terminal === 'no'
+              && ({table})().some((text, i) => text !== window.renderedCells[i])""",
         timeout=FINISH_TIMEOUT_MS,
     )
     screenshot(page, "job-running")
