@@ -6,6 +6,7 @@ import logging
 from typing import Any
 
 from sqlalchemy import select, update
+from sqlalchemy.orm import undefer
 
 from service import events
 from service.runtime import Runtime
@@ -55,7 +56,9 @@ def finish(runtime: Runtime, job_id: str) -> str:
     from worker import runner
 
     with runtime.sessions() as session:
-        job = session.scalars(select(Job).where(Job.id == job_id)).one_or_none()
+        job = session.scalars(
+            select(Job).where(Job.id == job_id).options(undefer(Job.body))
+        ).one_or_none()
         chains = session.scalars(
             select(Chain).where(Chain.job_id == job_id).order_by(Chain.chain_index)
         ).all()

@@ -177,6 +177,10 @@ def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
         if row.kind == "stat":
             stats.setdefault(row.chain_id, {})[row.name] = row.sha256
     thresholds = (job.verdict or {}).get("thresholds")
+    if thresholds is None:
+        with runtime.sessions() as session:
+            body = session.scalar(select(Job.body).where(Job.id == job_id))
+        thresholds = (body or {}).get("checks")
     return {
         "job": job.id,
         "submitted_by": job.submitted_by,
@@ -200,7 +204,7 @@ def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
         "seed": job.seed,
         "chain_seeds": _seed_records(job.seed, job.chain_count),
         "settings": job.settings,
-        "checks": thresholds if thresholds is not None else job.body.get("checks"),
+        "checks": thresholds,
         "software": {"api": job.api_software, "finish": job.finish_software},
         "chains": [
             {

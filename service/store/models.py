@@ -67,7 +67,8 @@ class Job(Base):
     chain_count: Mapped[int] = mapped_column(Integer)
     seed: Mapped[int] = mapped_column(BigInteger)
     # The submission as stored: the request body with the seed filled in when it was missing.
-    body: Mapped[dict[str, Any]] = mapped_column(JSON)
+    # Deferred: it holds the data, which can be megabytes, and the status endpoint never needs it.
+    body: Mapped[dict[str, Any]] = mapped_column(JSON, deferred=True)
     settings: Mapped[dict[str, Any]] = mapped_column(JSON)
     labels: Mapped[dict[str, str]] = mapped_column(JSON)
     request_sha256: Mapped[str] = mapped_column(String(64))
@@ -119,7 +120,8 @@ class Chain(Base):
     started_at: Mapped[datetime | None] = mapped_column(UtcDateTime)
     finished_at: Mapped[datetime | None] = mapped_column(UtcDateTime)
     updated_at: Mapped[datetime] = mapped_column(UtcDateTime)
-    checkpoint: Mapped[bytes | None] = mapped_column(LargeBinary)
+    # Deferred: the latest snapshot can be large and only a delivery that takes the lease reads it.
+    checkpoint: Mapped[bytes | None] = mapped_column(LargeBinary, deferred=True)
     checkpoint_iteration: Mapped[int | None] = mapped_column(Integer)
     checkpoint_at: Mapped[datetime | None] = mapped_column(UtcDateTime)
     adapted: Mapped[dict[str, Any] | None] = mapped_column(JSON)
