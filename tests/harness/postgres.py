@@ -7,6 +7,7 @@ that account does not exist. Run as anyone else, they simply run as the current 
 
 from __future__ import annotations
 
+import atexit
 import glob
 import os
 import pwd
@@ -93,6 +94,9 @@ class PostgresServer:
         self.user = server_user()
         if self.directory is None:
             self.directory = Path(tempfile.mkdtemp(prefix="drawyard-pg-"))
+            # Registered after service.local_stack's own hook, so it runs first (hooks run in
+            # reverse): the server stops, then its directory goes, even if nobody calls stop().
+            atexit.register(self.stop)
         self.directory.mkdir(parents=True, exist_ok=True)
         # Everything the server touches lives in this directory, owned by the server's user.
         _give_to(self.directory, self.user)

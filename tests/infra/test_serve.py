@@ -92,3 +92,28 @@ def test_migrate_creates_the_store(tmp_path: Path) -> None:
     finally:
         engine.dispose()
     assert {"jobs", "alembic_version"} <= tables
+
+
+def test_worker_command_consumes_and_stops_on_sigterm(tmp_path: Path, redis_url: str) -> None:
+    # Celery's documented shutdown: SIGTERM is a warm shutdown that ends the worker cleanly.
+    log = tmp_path / "worker.out"
+    env = {k: v for k, v in os.environ.items() if not k.startswith("DRAWYARD_")}
+    env.update({"DRAWYARD_BROKER_URL": redis_url,
+                "DRAWYARD_DATABASE_URL": f"sqlite:///{tmp_path / 'w.sqlite'}"})
+    with open(log, "wb") as out:
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "service.cli", "worker", "--name", "cli-test@%h"],
+            stdout=out, stderr=subprocess.STDOUT, env=env,
+        )
+    try:
+        deadline = time.monotonic() + 60
+        while " ready." not in log.read_text():
+            assert proc.poll() is None, log.read_text()
+            assert time.monotonic() < deadline, log.read_text()
+            time.sleep(0.1)
+        assert "cli-test@" in log.read_text()
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(timeout=60) == 0, log.read_text()
+    finally:
+        if proc.poll() is None:
+            proc.kill()
