@@ -370,3 +370,18 @@ def test_scalar_and_vector_bounds():
             check_model_gradient(model, u)
         row = model.report(u, np.random.default_rng(0))
         np.testing.assert_allclose(row, np.r_[low, high, lows, highs])
+
+
+def test_prior_arguments_may_be_expressions():
+    """A prior whose argument is an expression of unknowns (generic route): scipy.stats.laplace."""
+    spec = {"unknowns": {"a": {"shape": [2]}, "s": {"lower": 0}},
+            "priors": [{"on": "s", "distribution": "exponential", "arguments": {"rate": 1}},
+                       {"on": "a", "distribution": "laplace",
+                        "arguments": {"location": "[s, -s]", "scale": "2 * s"}}]}
+    model = compile_model(spec, {})
+    for u in points(model.dimension):
+        s = np.exp(u[2])
+        expected = (stats.expon.logpdf(s) + u[2]
+                    + stats.laplace.logpdf(u[:2], [s, -s], 2 * s).sum())
+        assert model.log_density(u) == pytest.approx(expected, rel=1e-11)
+        check_model_gradient(model, u)

@@ -43,7 +43,9 @@ class CompiledModel:
             [s.node for s in assembly.slots]
             + list(assembly.derived.values())
             + list(assembly.quantities.values())
-            + [n for t in (*assembly.likelihood, *assembly.predictions) for n in t.argument_nodes]
+            # every term's arguments: the trial below evaluates priors and likelihood terms too
+            + [n for t in (*assembly.priors, *assembly.likelihood, *assembly.predictions)
+               for n in t.argument_nodes]
         )
         self._report = Plan(graph, assembly.slots, [], assembly.dimension,
                             extra_outputs=tuple(report_nodes))
