@@ -124,3 +124,20 @@ def test_dirichlet_and_multivariate_normal_priors_with_expression_arguments():
         value, gradient = model.log_density_and_gradient(u)
         assert np.isfinite(value)
         assert_gradient_close(gradient, central_gradient(model.log_density, u), scale=abs(value))
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_distribution_as_a_prediction(name):
+    """A prediction per draw with each distribution: a scalar draw when the arguments are scalars
+    or carry only their own event axes (a categorical's weights, ordered cutpoints)."""
+    arguments = CASES[name][0]
+    spec = {"unknowns": UNKNOWNS, "priors": PRIORS,
+            "generated": {"predictions": [{"name": "draw", "distribution": name,
+                                           "arguments": arguments}]}}
+    model = compile_model(spec, {})
+    assert model.quantity_names[-1] == "draw"
+    rng = np.random.default_rng(9)
+    draws = np.array([model.report(np.zeros(model.dimension), rng)[-1] for _ in range(200)])
+    assert np.all(np.isfinite(draws))
+    if CASES[name][2] == "integer":
+        assert np.all(draws == np.round(draws))

@@ -24,7 +24,7 @@ from .distributions import (
     support_holds,
 )
 from .graph import Graph, IndexRangeError
-from .shapes import ValueType, describe
+from .shapes import ValueType, batch_shape, describe
 from .tape import Term, UnknownSlot
 from .transforms import make_transform
 
@@ -522,7 +522,8 @@ class _Assembler:
             if not distribution.event_ndim:
                 shapes = [self.out.graph.type_of(n).shape for n in args[1]]
                 try:
-                    np.broadcast_shapes(*shapes)
+                    batch_shape(dict(zip(args[0], shapes, strict=True)),
+                                distribution.argument_event_ndim)
                 except ValueError:
                     self.problem(pointer(*at, "arguments"),
                                  f"{context}: the arguments' shapes "

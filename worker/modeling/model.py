@@ -8,6 +8,7 @@ import numpy as np
 
 from ..problems import InvalidSubmission, Problem, pointer
 from .assembly import Assembly, DistributionTerm
+from .shapes import batch_shape
 from .tape import Plan
 
 # Failures a bad point can provoke inside numpy/scipy; the contract turns them into -inf.
@@ -89,7 +90,8 @@ class CompiledModel:
                 args = self._args(term, values)
                 shape = None
                 if term.distribution.event_ndim == 0:
-                    shape = np.broadcast_shapes(*[np.shape(a) for a in args.values()])
+                    shape = batch_shape({n: np.shape(a) for n, a in args.items()},
+                                        term.distribution.argument_event_ndim)
                 with np.errstate(all="ignore"):
                     draw = _draw(term.distribution, args, rng, shape)
                 shapes.append(tuple(np.shape(draw)))

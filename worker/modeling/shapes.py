@@ -9,6 +9,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 Shape = tuple[int, ...]
 
 
@@ -77,3 +79,11 @@ def matrix_product_shape(a: Shape, b: Shape) -> Shape:
         f"matrix product needs a matrix on the left and a vector or matrix on the right, "
         f"got {describe(a)} @ {describe(b)}"
     )
+
+
+def batch_shape(argument_shapes: dict[str, Shape], event_ndims: dict[str, int]) -> Shape:
+    """The batch shape of a distribution's arguments: each argument's shape without its own event
+    axes (a categorical's weight vector, a cutpoint vector), broadcast together."""
+    stripped = [shape[:len(shape) - event_ndims.get(name, 0)]
+                for name, shape in argument_shapes.items()]
+    return tuple(np.broadcast_shapes(*stripped))
