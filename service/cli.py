@@ -95,6 +95,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_serve(commands)
     _add_migrate(commands)
     _add_worker(commands)
+    from service.job_commands import add_job_commands
+
+    add_job_commands(commands)
     return parser
 
 

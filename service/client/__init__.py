@@ -1,0 +1,21 @@
+"""A typed Python client for the drawyard API, used by pipelines and by the `drawyard` command."""
+
+from service.client.errors import ClientError, ProblemError, ServiceUnreachable
+from service.client.http import DrawyardClient
+from service.client.records import ChainProgress, FailedCheck, Job, JobPage, Verdict
+from service.client.retrying import RetryPolicy
+from service.client.waiting import wait_for_job
+
+__all__ = [
+    "ChainProgress",
+    "ClientError",
+    "DrawyardClient",
+    "FailedCheck",
+    "Job",
+    "JobPage",
+    "ProblemError",
+    "RetryPolicy",
+    "ServiceUnreachable",
+    "Verdict",
+    "wait_for_job",
+]

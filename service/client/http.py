@@ -1,0 +1,261 @@
+"""`DrawyardClient`: the service's API over `requests`, with timeouts, retries and typed answers."""
+
+from __future__ import annotations
+
+import json
+import time
+import uuid
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from pathlib import Path
+from typing import Any, BinaryIO
+
+import numpy as np
+import requests
+
+from service.client.errors import ProblemError, ServiceUnreachable
+from service.client.records import Job, JobPage, SummaryDocument
+from service.client.retrying import RETRY_STATUSES, RetryPolicy, parse_retry_after
+
+DEFAULT_URL = "http://127.0.0.1:8000"
+DOWNLOAD_CHUNK_BYTES = 1 << 16
+
+
+class DrawyardClient:
+    """One drawyard service. Every call has a connect and a read timeout; answers the service
+    marks as temporary (429, 503) are retried after the wait it asks for, and connection
+    failures are retried for calls that are safe to repeat (reads, cancels, and submissions,
+    which carry an Idempotency-Key reused across their retries).
+
+    `rng` draws the backoff jitter; `sleep` is how the client waits (time.sleep by default).
+    """
+
+    def __init__(
+        self,
+        base_url: str = DEFAULT_URL,
+        *,
+        connect_timeout: float = 5.0,
+        read_timeout: float = 30.0,
+        retry: RetryPolicy | None = None,
+        rng: np.random.Generator | None = None,
+        session: requests.Session | None = None,
+        headers: Mapping[str, str] | None = None,
+        sleep: Callable[[float], None] = time.sleep,
+    ):
+        self.base_url = base_url.rstrip("/")
+        self.timeout = (connect_timeout, read_timeout)
+        self.retry = retry or RetryPolicy()
+        self.rng = rng if rng is not None else np.random.default_rng()
+        self.session = session or requests.Session()
+        self.session.headers.update(headers or {})
+        self.sleep = sleep
+
+    def close(self) -> None:
+        self.session.close()
+
+    def __enter__(self) -> DrawyardClient:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # ---- jobs ---------------------------------------------------------------------------------
+
+    def submit(self, body: Mapping[str, Any], idempotency_key: str | None = None) -> Job:
+        """POST /v1/jobs. A fresh uuid4 key is made when none is given, and every retry of this
+        submission sends the same one, so a repeat the service already accepted returns that job
+        instead of queuing a second."""
+        key = idempotency_key or uuid.uuid4().hex
+        response = self._request(
+            "POST", "/v1/jobs", json=dict(body), headers={"Idempotency-Key": key}, repeatable=True
+        )
+        return Job.from_json(response.json())
+
+    def job(self, job_id: str) -> Job:
+        return Job.from_json(self._request("GET", f"/v1/jobs/{job_id}").json())
+
+    def cancel(self, job_id: str) -> Job:
+        # Cancelling twice is the same as once, so a lost answer may be asked again.
+        response = self._request("POST", f"/v1/jobs/{job_id}/cancel", repeatable=True)
+        return Job.from_json(response.json())
+
+    def list_jobs(
+        self,
+        states: Iterable[str] = (),
+        labels: Mapping[str, str] | Iterable[str] = (),
+        limit: int | None = None,
+        cursor: str | None = None,
+    ) -> JobPage:
+        """GET /v1/jobs, newest first; `labels` as {key: value} or "key:value" strings."""
+        params: list[tuple[str, str]] = []
+        chosen = list(states)
+        if chosen:
+            params.append(("state", ",".join(chosen)))
+        pairs = (
+            [f"{k}:{v}" for k, v in labels.items()] if isinstance(labels, Mapping) else labels
+        )
+        params.extend(("label", pair) for pair in pairs)
+        if limit is not None:
+            params.append(("limit", str(limit)))
+        if cursor:
+            params.append(("cursor", cursor))
+        return JobPage.from_json(self._request("GET", "/v1/jobs", params=params).json())
+
+    def iter_jobs(
+        self,
+        states: Iterable[str] = (),
+        labels: Mapping[str, str] | Iterable[str] = (),
+        page_size: int | None = None,
+    ) -> Iterator[Job]:
+        """Every matching job, following `next_cursor` page by page."""
+        states, labels = list(states), labels if isinstance(labels, Mapping) else list(labels)
+        cursor = None
+        while True:
+            page = self.list_jobs(states, labels, page_size, cursor)
+            yield from page.jobs
+            if not page.next_cursor:
+                return
+            cursor = page.next_cursor
+
+    # ---- results ------------------------------------------------------------------------------
+
+    def summary(self, job_id: str) -> SummaryDocument:
+        return self._request("GET", f"/v1/jobs/{job_id}/summary").json()
+
+    def diagnostics(self, job_id: str) -> dict[str, Any]:
+        return self._request("GET", f"/v1/jobs/{job_id}/diagnostics").json()
+
+    def audit(self, job_id: str) -> dict[str, Any]:
+        return self._request("GET", f"/v1/jobs/{job_id}/audit").json()
+
+    def draws(
+        self,
+        job_id: str,
+        quantities: Sequence[str] | None = None,
+        chains: Sequence[int] | None = None,
+        thin: int | None = None,
+    ) -> dict[str, Any]:
+        """The draws as the service's JSON document (parsed)."""
+        params = _selection("quantities", quantities, chains, thin)
+        return self._request("GET", f"/v1/jobs/{job_id}/draws", params=params).json()
+
+    def sampler_stats(
+        self,
+        job_id: str,
+        statistics: Sequence[str] | None = None,
+        chains: Sequence[int] | None = None,
+        thin: int | None = None,
+    ) -> dict[str, Any]:
+        params = _selection("statistics", statistics, chains, thin)
+        return self._request("GET", f"/v1/jobs/{job_id}/sampler-stats", params=params).json()
+
+    def download(
+        self,
+        job_id: str,
+        resource: str,
+        destination: BinaryIO | Path,
+        format: str = "json",
+        columns: Sequence[str] | None = None,
+        chains: Sequence[int] | None = None,
+        thin: int | None = None,
+    ) -> int:
+        """Stream `draws` or `sampler-stats` (json or csv) into a file; returns bytes written.
+
+        The body is copied in chunks as it arrives, so a large result never sits in memory.
+        """
+        if resource not in ("draws", "sampler-stats"):
+            raise ValueError("resource is 'draws' or 'sampler-stats'")
+        member = "quantities" if resource == "draws" else "statistics"
+        params = [*_selection(member, columns, chains, thin), ("format", format)]
+        response = self._request(
+            "GET", f"/v1/jobs/{job_id}/{resource}", params=params, stream=True
+        )
+        with response:
+            if isinstance(destination, Path):
+                with destination.open("wb") as out:
+                    return _copy(response, out)
+            return _copy(response, destination)
+
+    # ---- transport ----------------------------------------------------------------------------
+
+    def _request(
+        self,
+        method: str,
+        path: str,
+        *,
+        repeatable: bool | None = None,
+        stream: bool = False,
+        **kwargs: Any,
+    ) -> requests.Response:
+        """Send, retrying as the policy allows; an error status becomes ProblemError."""
+        if repeatable is None:
+            repeatable = method in ("GET", "HEAD", "OPTIONS")
+        url = self.base_url + path
+        attempt = 0
+        while True:
+            try:
+                response = self.session.request(
+                    method, url, timeout=self.timeout, stream=stream, **kwargs
+                )
+            except requests.exceptions.ReadTimeout as error:
+                # The request may have been received and acted on; waiting longer is the
+                # caller's decision (a longer read timeout), not a silent repeat.
+                raise ServiceUnreachable(
+                    f"{method} {url}: no answer within the read timeout of {self.timeout[1]} s"
+                ) from error
+            except requests.exceptions.ConnectionError as error:
+                if not repeatable or attempt >= self.retry.retries:
+                    raise ServiceUnreachable(f"{method} {url}: {error}") from error
+                self.sleep(self.retry.backoff(attempt, self.rng))
+                attempt += 1
+                continue
+            if response.status_code < 400:
+                return response
+            wait = parse_retry_after(response.headers.get("Retry-After"))
+            if (
+                response.status_code in RETRY_STATUSES
+                and attempt < self.retry.retries
+                and (wait is None or wait <= self.retry.max_retry_after_seconds)
+            ):
+                response.close()
+                self.sleep(self.retry.backoff(attempt, self.rng) if wait is None else wait)
+                attempt += 1
+                continue
+            raise _problem(response, wait)
+
+
+def _selection(
+    member: str, columns: Sequence[str] | None, chains: Sequence[int] | None, thin: int | None
+) -> list[tuple[str, str]]:
+    params = []
+    if columns:
+        params.append((member, ",".join(columns)))
+    if chains:
+        params.append(("chains", ",".join(str(c) for c in chains)))
+    if thin is not None:
+        params.append(("thin", str(thin)))
+    return params
+
+
+def _copy(response: requests.Response, out: BinaryIO) -> int:
+    written = 0
+    for chunk in response.iter_content(DOWNLOAD_CHUNK_BYTES):
+        out.write(chunk)
+        written += len(chunk)
+    return written
+
+
+def _problem(response: requests.Response, retry_after: float | None) -> ProblemError:
+    text = response.text
+    try:
+        document = json.loads(text)
+    except ValueError:
+        document = None
+    if not isinstance(document, dict):
+        document = {
+            "type": "about:blank",
+            "title": response.reason or "",
+            "status": response.status_code,
+            "detail": text[:500].strip(),
+        }
+    return ProblemError(response.status_code, document, retry_after)
+
