@@ -385,3 +385,18 @@ def test_prior_arguments_may_be_expressions():
                     + stats.laplace.logpdf(u[:2], [s, -s], 2 * s).sum())
         assert model.log_density(u) == pytest.approx(expected, rel=1e-11)
         check_model_gradient(model, u)
+
+
+def test_report_survives_an_extreme_draw():
+    """numpy's Poisson generator refuses rates above about 9.2e18 (numpy documentation,
+    Generator.poisson); such a replicate is reported as NaN rather than failing the row."""
+    model = compile_model(STORES, STORES_DATA)
+    u = np.zeros(model.dimension)
+    u[0] = 60.0  # log rate 60: rate e^60, about 1.1e26
+    row = model.report(u, np.random.default_rng(0))
+    assert row.shape == (len(model.quantity_names),)
+    spec = dict(STORES, generated={"replicates": ["weekly_sales"]})
+    model = compile_model(spec, STORES_DATA)
+    row = model.report(u, np.random.default_rng(0))
+    assert np.all(np.isnan(row[-7:]))
+    assert np.isfinite(row[0])

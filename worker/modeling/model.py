@@ -24,6 +24,16 @@ def _draw(distribution: Any, args: dict, rng: np.random.Generator,
     return np.asarray(distribution.sample(args, rng, shape), dtype=float)
 
 
+def _report_draw(distribution: Any, args: dict, rng: np.random.Generator,
+                 shape: tuple[int, ...]) -> np.ndarray:
+    """A draw for a report row, or NaNs where numpy's generator refuses the arguments (a Poisson
+    rate beyond its range at an extreme draw): one odd draw must not stop a chain's report."""
+    try:
+        return _draw(distribution, args, rng, shape)
+    except ValueError:
+        return np.full(shape, np.nan)
+
+
 def flat_names(name: str, shape: tuple[int, ...]) -> list[str]:
     """theta -> theta; theta[3]; L[2,1]: 1-based, row-major."""
     if not shape:
@@ -164,12 +174,12 @@ class CompiledModel:
         pieces += [np.ravel(values[n]) for n in a.quantities.values()]
         with np.errstate(all="ignore"):
             for term, shape in zip(a.predictions, self._prediction_shapes, strict=True):
-                pieces.append(np.ravel(_draw(term.distribution, self._args(term, values), rng,
-                                             shape)))
+                pieces.append(np.ravel(_report_draw(term.distribution, self._args(term, values),
+                                                    rng, shape)))
             for name in a.replicates:
                 term = self._likelihood[name]
-                pieces.append(np.ravel(_draw(term.distribution, self._args(term, values), rng,
-                                             term.shape)))
+                pieces.append(np.ravel(_report_draw(term.distribution, self._args(term, values),
+                                                    rng, term.shape)))
             for name in a.pointwise:
                 term = self._likelihood[name]
                 pointwise = term.distribution.log_density(values[term.variate],
