@@ -8,6 +8,7 @@ from typing import Any
 from flask import Flask, request
 from werkzeug.exceptions import HTTPException
 
+from service.access.authentication import install_access
 from service.config import load_settings
 from service.problem_details import ApiProblem, http_problem, problem_response
 from service.runtime import build_runtime
@@ -27,6 +28,7 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app.extensions["drawyard"] = runtime
     for blueprint in (jobs, results, health, web):
         app.register_blueprint(blueprint)
+    install_access(app, runtime, (jobs, results))
 
     @app.errorhandler(ApiProblem)
     def api_problem(problem: ApiProblem):

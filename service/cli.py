@@ -12,6 +12,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import NoReturn
 
+from service.access.commands import add_keys_command, serve_host
 from service.local_stack import CELERY_APP, LocalStack, StartupError
 
 BANNER_WIDTH = 78
@@ -95,6 +96,15 @@ def build_parser() -> argparse.ArgumentParser:
     _add_serve(commands)
     _add_migrate(commands)
     _add_worker(commands)
+    sweeper = commands.add_parser(
+        "sweeper",
+        help="requeue chains whose worker died or whose task the broker lost",
+        description="Look at the store every DRAWYARD_SWEEP_INTERVAL seconds and send lost chain "
+        "tasks again (service/sweeper.py). Safe to run more than one.",
+    )
+    sweeper.add_argument("--once", action="store_true", help="sweep once and exit")
+    sweeper.set_defaults(run=lambda args: _sweeper_main(["--once"] if args.once else []))
+    add_keys_command(commands)
     from service.job_commands import add_job_commands
 
     add_job_commands(commands)
@@ -119,12 +129,15 @@ def _raise_stop(signum: int, frame: object) -> None:
 
 def run_serve(args: argparse.Namespace) -> int:
     broker = args.broker or os.environ.get("DRAWYARD_BROKER_URL") or "auto"
+    host, open_warning = serve_host(_serve_database_url(args), args.host)
+    if open_warning:
+        print(loud([open_warning]), flush=True)
     stack = LocalStack(
         var_dir=args.var.resolve(),
         database_url=_serve_database_url(args),
         broker=broker,
         workers=args.workers,
-        host=args.host,
+        host=host,
         port=args.port,
     )
     # Children run in their own sessions, so Ctrl-C reaches only this process, which then stops
@@ -179,6 +192,12 @@ def run_migrate(args: argparse.Namespace) -> int:
     migrate(url)
     print(f"store at {url} is at the newest revision")
     return 0
+
+
+def _sweeper_main(argv: list[str]) -> int:
+    from service.sweeper import main as sweeper_main
+
+    return sweeper_main(argv)
 
 
 def run_worker(args: argparse.Namespace) -> NoReturn:

@@ -33,12 +33,44 @@ class Settings:
     max_draws: int = 100_000
     max_body_bytes: int = 10 * 1024 * 1024
     checkpoint_every: int = 200
+    # Seconds between checkpoints as well (whichever comes first); 0 means by iterations only.
+    checkpoint_seconds: float = 30.0
+    # Deliveries of one chain that may take its lease; the next ends the chain as failed, so a
+    # chain that kills its worker is not requeued for ever.
+    max_attempts: int = 3
+    # The sweeper (service/sweeper.py): how often it looks, and how long a queued chain may wait
+    # for a worker before its task is sent again (the broker may have lost it).
+    sweep_interval: float = 10.0
+    requeue_queued_after: float = 300.0
     # How often a running chain writes progress, renews its lease and looks at the cancel flag.
     progress_interval: float = 1.0
     # A lease not renewed for this long is taken to belong to a dead worker.
     lease_seconds: int = 60
+    # Access (service/access/): 1 refuses every API request without a valid key, even before the
+    # first key is created; 0 leaves the service open until a key exists.
+    require_keys: int = 0
+    # Requests per key per window (0: no limit), counted in Redis so all API processes share it.
+    rate_limit: int = 600
+    rate_window: int = 60
+    # Queued plus running jobs one tenant may have at once (0: no cap).
+    max_active_jobs: int = 100
+    # Scalar unknowns (after shapes are resolved from the data) one model may declare.
+    max_unknowns: int = 100_000
     page_limit: int = 50
     max_page_limit: int = 500
+    # Completion callbacks (service/callbacks.py): URL prefixes a submission's notify.url must
+    # start with, separated by commas or spaces (empty: none allowed), and the HMAC-SHA256 key.
+    callback_allow: str = ""
+    callback_secret: str = ""
+    # Delivery attempts of one callback in all, the delay before the first retry (doubling after
+    # each), and the seconds one attempt may take.
+    callback_attempts: int = 5
+    callback_backoff: float = 2.0
+    callback_timeout: float = 10.0
+    # Log lines: "json" (one JSON object a line, for log collectors) or "text".
+    log_format: str = "json"
+    # Seconds the metrics endpoint waits for workers to answer a ping.
+    metrics_ping_timeout: float = 1.0
 
     @property
     def effective_visibility_timeout(self) -> int:

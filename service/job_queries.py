@@ -12,6 +12,8 @@ from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
 from service import events
+from service.access.tenancy import visible_jobs
+from service.callbacks import queue_callback_safely
 from service.problem_details import ApiProblem
 from service.runtime import Runtime
 from service.store.engine import transaction
@@ -25,7 +27,7 @@ def not_found(job_id: str) -> ApiProblem:
 
 
 def load_job(session: Session, job_id: str) -> tuple[Job, list[Chain]]:
-    job = session.scalars(select(Job).where(Job.id == job_id)).one_or_none()
+    job = session.scalars(select(Job).where(Job.id == job_id, *visible_jobs())).one_or_none()
     if job is None:
         raise not_found(job_id)
     chains = session.scalars(
@@ -90,7 +92,7 @@ def list_jobs(
     runtime: Runtime, where: JobFilter, limit: int, cursor: str | None
 ) -> tuple[list[tuple[Job, list[Chain]]], str | None]:
     """A page of jobs, newest first, and the cursor of the next page (None on the last)."""
-    statement = select(Job).order_by(Job.seq.desc()).limit(limit + 1)
+    statement = select(Job).where(*visible_jobs()).order_by(Job.seq.desc()).limit(limit + 1)
     if cursor:
         statement = statement.where(Job.seq < decode_cursor(cursor))
     if where.states:
@@ -159,4 +161,6 @@ def cancel_job(runtime: Runtime, job_id: str) -> tuple[Job, list[Chain]]:
             ).rowcount
             if closed:
                 events.record(session, job_id, "job_state", "cancelled")
+    if running is None and closed:
+        queue_callback_safely(runtime, job_id)
     return get_job(runtime, job_id)

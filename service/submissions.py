@@ -11,6 +11,9 @@ from sqlalchemy import select
 from sqlalchemy.exc import IntegrityError
 
 from service import events
+from service.access.limits import check_active_jobs, unknown_count_problems
+from service.access.tenancy import current_key_id, current_tenant, scoped_idempotency_key
+from service.callbacks import notify_problems
 from service.canonical import sha256_of_json
 from service.config import Settings
 from service.dispatch import send_chain_tasks
@@ -58,6 +61,7 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
         problems = _merged(
             problems, runner.check_submission(body, settings.max_chains, settings.max_draws)
         )
+        problems = _merged(problems, notify_problems(body, settings))
     if problems:
         raise invalid(problems)
     stored = dict(body)
@@ -65,7 +69,7 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
     sampler.setdefault("seed", fresh_seed())
     stored["sampler"] = sampler
     resolved = dict(runner.resolve_sampler(sampler))
-    problems = _limit_problems(resolved, settings)
+    problems = _limit_problems(resolved, settings) + unknown_count_problems(body, settings)
     if problems:
         raise invalid(problems)
     return stored, resolved
@@ -116,11 +120,13 @@ def existing_for_key(runtime: Runtime, key: str, request_sha256: str) -> Job | N
 def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted:
     """Validate, store and queue a submission (or return the job its idempotency key made)."""
     request_sha256 = sha256_of_json(body)
+    idempotency_key = scoped_idempotency_key(idempotency_key)
     if idempotency_key is not None:
         job = existing_for_key(runtime, idempotency_key, request_sha256)
         if job is not None:
             return Accepted(job, created=False)
     stored, resolved = validate(body, runtime.settings)
+    check_active_jobs(runtime, current_tenant())
     chains = int(resolved["chains"])
     iterations_total = int(resolved.get("warmup_iterations", 0)) + int(resolved.get("draws", 0))
     now = utc_now()
@@ -137,6 +143,8 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
         spec_sha256=sha256_of_json(body["model"]),
         data_sha256=sha256_of_json(body.get("data") or {}),
         idempotency_key=idempotency_key,
+        submitted_by=current_key_id(),
+        tenant=current_tenant(),
         api_software=software_versions(),
     )
     try:

@@ -53,6 +53,7 @@ class Base(DeclarativeBase):
 
 class Job(Base):
     __tablename__ = "jobs"
+    __table_args__ = (Index("ix_jobs_tenant_state", "tenant", "state"),)
 
     # seq orders jobs for cursor pagination; id is the public name.
     seq: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
@@ -76,6 +77,8 @@ class Job(Base):
     data_sha256: Mapped[str] = mapped_column(String(64))
     idempotency_key: Mapped[str | None] = mapped_column(String(255), unique=True)
     submitted_by: Mapped[str | None] = mapped_column(String(64))
+    # The tenant of the API key that submitted the job; None in open mode (no keys configured).
+    tenant: Mapped[str | None] = mapped_column(String(64))
     api_software: Mapped[dict[str, str]] = mapped_column(JSON)
     finish_software: Mapped[dict[str, str] | None] = mapped_column(JSON)
     summary: Mapped[list[Any] | None] = mapped_column(JSON)
@@ -109,6 +112,9 @@ class Chain(Base):
     lease_token: Mapped[str | None] = mapped_column(String(32))
     lease_expires_at: Mapped[datetime | None] = mapped_column(UtcDateTime)
     attempts: Mapped[int] = mapped_column(Integer, default=0)
+    # Set by the sweeper (service/sweeper.py) each time it sends a lost chain's task again.
+    requeued_at: Mapped[datetime | None] = mapped_column(UtcDateTime)
+    requeues: Mapped[int] = mapped_column(Integer, default=0, server_default="0")
     duplicate_deliveries: Mapped[int] = mapped_column(Integer, default=0)
     worker_host: Mapped[str | None] = mapped_column(String(255))
     worker_pid: Mapped[int | None] = mapped_column(Integer)
