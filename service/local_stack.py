@@ -293,7 +293,30 @@ def start_worker(
     ]
     # Warm shutdown (SIGTERM) lets a running chain notice and stop; late acknowledgement puts any
     # unfinished chain back on the queue, so the grace period can be short.
-    return start_child(f"worker {index}", argv, log_path, env, grace_seconds=15.0)
+    return start_child(f"worker {index}", argv, log_path, single_threaded_numerics(env),
+                       grace_seconds=15.0)
+
+
+NUMERIC_THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+def single_threaded_numerics(env: Mapping[str, str]) -> dict[str, str]:
+    """env plus one BLAS/OpenMP thread per process, unless the caller or the environment says.
+
+    A worker runs one chain per pool process and the deployment runs about one process per core;
+    extra BLAS threads in every process would only fight each other for the same cores.
+    """
+    out = dict(env)
+    for name in NUMERIC_THREAD_VARIABLES:
+        if name not in out and name not in os.environ:
+            out[name] = "1"
+    return out
+
+
+def start_sweeper(env: Mapping[str, str], log_path: Path) -> ChildProcess:
+    """The sweeper (service/sweeper.py): requeues chains whose worker died or task was lost."""
+    argv = [sys.executable, "-m", "service.sweeper"]
+    return start_child("sweeper", argv, log_path, env, grace_seconds=5.0)
 
 
 def api_ready(base_url: str) -> Callable[[], bool]:
@@ -330,6 +353,7 @@ class LocalStack:
     redis: RedisServer | None = None
     api: ChildProcess | None = None
     worker_processes: list[ChildProcess] = field(default_factory=list)
+    sweeper: ChildProcess | None = None
     broker_url: str = ""
     broker_note: str = ""
     broker_warning: str = ""
@@ -382,6 +406,7 @@ class LocalStack:
                 start_worker(i, env, logs / f"worker{i}.log", self.concurrency)
                 for i in range(self.workers)
             ]
+            self.sweeper = start_sweeper(env, logs / "sweeper.log")
             wait_until(
                 api_ready(self.base_url),
                 [self.api, *self.worker_processes],
@@ -394,7 +419,7 @@ class LocalStack:
         return self
 
     def children(self) -> list[ChildProcess]:
-        out = [c for c in [self.api, *self.worker_processes] if c is not None]
+        out = [c for c in [self.api, *self.worker_processes, self.sweeper] if c is not None]
         if self.redis is not None and self.redis.child is not None:
             out.append(self.redis.child)
         return out
@@ -405,6 +430,8 @@ class LocalStack:
             worker.signal_leader(worker.stop_signal)
         for worker in self.worker_processes:
             worker.stop()
+        if self.sweeper is not None:
+            self.sweeper.stop()
         if self.api is not None:
             self.api.stop()
         if self.redis is not None:

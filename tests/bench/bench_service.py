@@ -2,7 +2,8 @@
 
 1. Overhead: end-to-end wall time of a job through the live service (submit -> summary and draws
    read back over HTTP) over the in-process time of `worker.runner.run_in_process` for the same
-   body, for a small and a medium model, measured alternately in one run. One worker process runs
+   body (in a fresh Python with the workers' environment), for a small and a medium model,
+   measured alternately in one run. One worker process runs
    the chains one after another, as the in-process runner does. Target: <= 1.15 for the medium.
 2. Throughput: the time for one worker process, and for two, to work through the same queue of 50
    small one-chain jobs. Target: time(1 worker) / time(2 workers) >= 1.8 on two cores.
@@ -13,9 +14,12 @@ by the test harness. Run with `make bench` (or `python -m tests.bench service`).
 
 from __future__ import annotations
 
+import json
 import os
 import shutil
 import statistics
+import subprocess
+import sys
 import tempfile
 import time
 import uuid
@@ -26,7 +30,7 @@ from typing import Any
 import numpy as np
 import requests
 
-from service.local_stack import RedisServer
+from service.local_stack import RedisServer, single_threaded_numerics
 from tests.harness.live_service import LiveService, start_live_service
 
 REPEATS = 3
@@ -137,12 +141,28 @@ def end_to_end_seconds(service: LiveService, body: dict[str, Any]) -> float:
     return time.perf_counter() - started
 
 
-def in_process_seconds(body: dict[str, Any]) -> float:
-    from worker.runner import run_in_process
+IN_PROCESS = """
+import json, sys, time
+from worker.runner import run_in_process
+warm_up, body = (json.load(open(path)) for path in sys.argv[1:3])
+run_in_process(warm_up)
+started = time.perf_counter()
+run_in_process(body)
+print(time.perf_counter() - started)
+"""
 
-    started = time.perf_counter()
-    run_in_process(body)
-    return time.perf_counter() - started
+
+def in_process_seconds(body: dict[str, Any], env: dict[str, str], workdir: Path) -> float:
+    """run_in_process timed inside a fresh Python with the workers' environment (so the same
+    BLAS threading), after an untimed small job, as the service's worker has run one too."""
+    warm_up, path = workdir / "in_process_warm_up.json", workdir / "in_process_body.json"
+    warm_up.write_text(json.dumps(small_job(seed=99)))
+    path.write_text(json.dumps(body))
+    done = subprocess.run(
+        [sys.executable, "-c", IN_PROCESS, str(warm_up), str(path)],
+        env={**os.environ, **env}, capture_output=True, text=True, check=True, timeout=1800,
+    )
+    return float(done.stdout.strip().splitlines()[-1])
 
 
 def fresh_store(path: Path) -> str:
@@ -159,6 +179,7 @@ def measure_overhead(redis: RedisServer, workdir: Path) -> list[tuple[str, float
         fresh_store(workdir / "overhead.sqlite"), redis.url, workers=1,
         log_dir=workdir / "overhead-logs",
     )
+    worker_env = single_threaded_numerics(service.env)
     rows = []
     try:
         # The first job pays for imports in the worker's pool process; it is not counted.
@@ -168,7 +189,7 @@ def measure_overhead(redis: RedisServer, workdir: Path) -> list[tuple[str, float
             served, local = [], []
             for _ in range(REPEATS):
                 # Alternating keeps slow drifts of the machine out of the ratio.
-                local.append(in_process_seconds(body))
+                local.append(in_process_seconds(body, worker_env, workdir))
                 served.append(end_to_end_seconds(service, body))
             rows.append((name, statistics.median(served), statistics.median(local)))
     finally:
@@ -180,12 +201,13 @@ def parse_time(text: str) -> float:
     return datetime.fromisoformat(text.replace("Z", "+00:00")).timestamp()
 
 
-def throughput_seconds(redis: RedisServer, workdir: Path, workers: int) -> float:
+def throughput_seconds(redis: RedisServer, workdir: Path, workers: int) -> tuple[float, float]:
     """Time for N workers to drain a queue of THROUGHPUT_JOBS jobs: from the first chain's start
     to the last job's finish, both as recorded by the service.
 
     The jobs are all submitted before any worker starts, so the API's checking of submissions
     does not compete with the workers for the cores, and worker start-up is not counted.
+    Returns that time and the median time of one chain, start to finish, as the store saw it.
     """
     redis.flush()
     tag = uuid.uuid4().hex[:8]
@@ -200,8 +222,12 @@ def throughput_seconds(redis: RedisServer, workdir: Path, workers: int) -> float
         # Watch only the last job closely; the others are read once it is done.
         wait_done(urls[-1], poll=0.25)
         jobs = [wait_done(url, poll=0.25) for url in urls]
-        first_start = min(parse_time(c["started_at"]) for job in jobs for c in job["chains"])
-        return max(parse_time(job["finished_at"]) for job in jobs) - first_start
+        chains = [c for job in jobs for c in job["chains"]]
+        first_start = min(parse_time(c["started_at"]) for c in chains)
+        chain_seconds = statistics.median(
+            parse_time(c["finished_at"]) - parse_time(c["started_at"]) for c in chains
+        )
+        return max(parse_time(job["finished_at"]) for job in jobs) - first_start, chain_seconds
     finally:
         service.stop()
 
@@ -222,13 +248,16 @@ def main() -> None:
         for name, served, local in measure_overhead(redis, workdir):
             print(f"  {name:6s}  end-to-end {served:7.2f} s   in-process {local:7.2f} s   "
                   f"ratio {served / local:5.3f}", flush=True)
-        one = throughput_seconds(redis, workdir, workers=1)
-        two = throughput_seconds(redis, workdir, workers=2)
+        one, chain_one = throughput_seconds(redis, workdir, workers=1)
+        two, chain_two = throughput_seconds(redis, workdir, workers=2)
         print(f"throughput: draining a queue of {THROUGHPUT_JOBS} small one-chain jobs "
               "(target ratio >= 1.8)")
         print(f"  1 worker {one:7.2f} s ({THROUGHPUT_JOBS / one:5.2f} jobs/s)   "
               f"2 workers {two:7.2f} s ({THROUGHPUT_JOBS / two:5.2f} jobs/s)   "
               f"ratio {one / two:5.3f}", flush=True)
+        # If the chains themselves run slower side by side, the cores were not free for both.
+        print(f"  median chain run time: {chain_one:.3f} s with 1 worker, {chain_two:.3f} s with 2 "
+              f"(ratio {chain_two / chain_one:4.2f}; 1.00 when both cores are free)", flush=True)
         print(f"after: {load_note()}")
     finally:
         redis.stop()
