@@ -15,7 +15,8 @@ from service.schemas import BASE_URI, load_schemas
 PROBLEM = "application/problem+json"
 
 # (method, path) -> {status: response schema stem}; the tests check every answer against it.
-RESPONSES: dict[tuple[str, str], dict[int, str]] = {
+# None: an answer without a body (304 Not Modified, RFC 9110 section 15.4.5).
+RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
     ("post", "/v1/jobs"): {
         200: "job",
         202: "job",
@@ -32,6 +33,7 @@ RESPONSES: dict[tuple[str, str], dict[int, str]] = {
     ("get", "/v1/jobs/{job_id}/summary"): {200: "summary", 404: "problem", 409: "problem"},
     ("get", "/v1/jobs/{job_id}/draws"): {
         200: "draws",
+        304: None,
         400: "problem",
         404: "problem",
         406: "problem",
@@ -39,6 +41,7 @@ RESPONSES: dict[tuple[str, str], dict[int, str]] = {
     },
     ("get", "/v1/jobs/{job_id}/sampler-stats"): {
         200: "sampler_stats",
+        304: None,
         400: "problem",
         404: "problem",
         406: "problem",
@@ -75,13 +78,15 @@ QUERY_PARAMETERS = {
         ("quantities", "Comma-separated quantity names (default all)."),
         ("chains", "Comma-separated chain numbers from 1 (default all)."),
         ("thin", "Keep every k-th draw."),
-        ("format", "json or csv (or send Accept: text/csv)."),
+        ("format", "json, csv, parquet or npz (or send Accept with their media types)."),
+        ("layout", "wide (one row per chain and draw) or long (per chain, draw and quantity)."),
     ],
     ("get", "/v1/jobs/{job_id}/sampler-stats"): [
         ("statistics", "Comma-separated statistic names (default all)."),
         ("chains", "Comma-separated chain numbers from 1 (default all)."),
         ("thin", "Keep every k-th draw."),
-        ("format", "json or csv (or send Accept: text/csv)."),
+        ("format", "json, csv, parquet or npz (or send Accept with their media types)."),
+        ("layout", "wide (one row per chain and draw) or long (per chain, draw and statistic)."),
     ],
 }
 
@@ -116,10 +121,15 @@ def component_schemas() -> dict[str, Any]:
 def _operation(method: str, path: str) -> dict[str, Any]:
     responses = {}
     for status, stem in RESPONSES[(method, path)].items():
+        if stem is None:
+            responses[str(status)] = {"description": _status_text(status)}
+            continue
         media = PROBLEM if stem == "problem" else "application/json"
         content: dict[str, Any] = {media: {"schema": {"$ref": f"#/components/schemas/{stem}"}}}
         if stem in ("draws", "sampler_stats"):
             content["text/csv"] = {"schema": {"type": "string"}}
+            content["application/vnd.apache.parquet"] = {"schema": {"type": "string"}}
+            content["application/x-npz"] = {"schema": {"type": "string"}}
         responses[str(status)] = {"description": _status_text(status), "content": content}
     operation: dict[str, Any] = {"summary": SUMMARIES[(method, path)], "responses": responses}
     parameters = []

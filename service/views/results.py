@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from flask import Blueprint, Response, jsonify, request, stream_with_context
+from flask import Blueprint, Response, jsonify, request
 
-from service.draw_export import stream_csv, stream_json
-from service.problem_details import ApiProblem
+from service.formats.downloads import download
+from service.formats.negotiation import chosen_format, chosen_layout
 from service.results import (
     audit_document,
     diagnostics_document,
@@ -22,36 +22,6 @@ from service.views.context import runtime
 results = Blueprint("results", __name__, url_prefix="/v1/jobs/<job_id>")
 
 
-def _wants_csv() -> bool:
-    chosen = request.args.get("format")
-    if chosen is not None:
-        if chosen not in ("json", "csv"):
-            raise ApiProblem(
-                406,
-                "unsupported-format",
-                "Unsupported format",
-                "The format is json or csv.",
-                [{"parameter": "format", "message": "json or csv"}],
-            )
-        return chosen == "csv"
-    best = request.accept_mimetypes.best_match(["application/json", "text/csv"])
-    if best is None and request.accept_mimetypes:
-        raise ApiProblem(
-            406,
-            "unsupported-format",
-            "Unsupported format",
-            "These results come as application/json or text/csv.",
-        )
-    return best == "text/csv"
-
-
-def _stream(chunks, mimetype: str, filename: str | None = None) -> Response:
-    response = Response(stream_with_context(chunks), mimetype=mimetype)
-    if filename:
-        response.headers["Content-Disposition"] = f'attachment; filename="{filename}"'
-    return response
-
-
 @results.get("/summary")
 def summary(job_id: str) -> Response:
     job, _ = finished_job(runtime(), job_id)
@@ -66,7 +36,8 @@ def diagnostics(job_id: str) -> Response:
 
 @results.get("/draws")
 def draws(job_id: str) -> Response:
-    csv = _wants_csv()
+    format_name = chosen_format(request)
+    layout = chosen_layout(request, format_name)
     _, chains = finished_job(runtime(), job_id)
     names = draw_columns(runtime(), chains)
     selection = select_columns(
@@ -77,16 +48,15 @@ def draws(job_id: str) -> Response:
         request.args.get("thin"),
     )
     load = draw_loader(runtime(), chains)
-    if csv:
-        return _stream(
-            stream_csv(selection, load, selection.names), "text/csv", f"{job_id}-draws.csv"
-        )
-    return _stream(stream_json(job_id, "quantities", selection, load), "application/json")
+    return download(
+        runtime(), request, "draws", job_id, chains, selection, load, format_name, layout
+    )
 
 
 @results.get("/sampler-stats")
 def sampler_stats(job_id: str) -> Response:
-    csv = _wants_csv()
+    format_name = chosen_format(request)
+    layout = chosen_layout(request, format_name)
     _, chains = finished_job(runtime(), job_id)
     names = stat_names(runtime(), chains)
     selection = select_columns(
@@ -98,11 +68,9 @@ def sampler_stats(job_id: str) -> Response:
         parameter="statistics",
     )
     load = stat_loader(runtime(), chains, names)
-    if csv:
-        return _stream(
-            stream_csv(selection, load, selection.names), "text/csv", f"{job_id}-sampler-stats.csv"
-        )
-    return _stream(stream_json(job_id, "statistics", selection, load), "application/json")
+    return download(
+        runtime(), request, "sampler-stats", job_id, chains, selection, load, format_name, layout
+    )
 
 
 @results.get("/audit")

@@ -1,0 +1,1 @@
+"""Draws and sampler statistics as files: Parquet and .npz, long or wide, with strong ETags."""

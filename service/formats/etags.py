@@ -1,0 +1,52 @@
+"""Strong entity tags for downloads and the If-None-Match check (RFC 9110 sections 8.8.3, 13.1.2).
+
+A download is fixed by the stored arrays (their SHA-256s never change once a chain succeeded) and
+by what the query asked for, so the tag is a hash of both: the same bytes get the same tag on every
+API process, and any change to either gives a new one.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Sequence
+
+from service.draw_export import Selection
+
+# Bumped when the bytes written for the same arrays and query would change.
+ENCODING_VERSION = "1"
+
+
+def download_tag(
+    resource: str, format_name: str, layout: str, selection: Selection, array_hashes: Sequence[str]
+) -> str:
+    """The quoted strong ETag value for one download."""
+    identity = {
+        "version": ENCODING_VERSION,
+        "resource": resource,
+        "format": format_name,
+        "layout": layout,
+        "chains": selection.chains,
+        "columns": selection.names,
+        "thin": selection.thin,
+        "arrays": list(array_hashes),
+    }
+    digest = hashlib.sha256(json.dumps(identity, separators=(",", ":")).encode()).hexdigest()
+    return f'"{digest}"'
+
+
+def _opaque(tag: str) -> str:
+    # Weak comparison ignores the W/ prefix (RFC 9110 section 8.8.3.2).
+    tag = tag.strip()
+    return tag[2:] if tag.startswith("W/") else tag
+
+
+def none_match(header: str | None, tag: str) -> bool:
+    """True when If-None-Match names this tag (or is "*"): the client's copy is current."""
+    if not header:
+        return False
+    if header.strip() == "*":
+        return True
+    # A tag holding a comma can never be one of ours (they are hex), so splitting on commas
+    # loses no match.
+    return any(_opaque(candidate) == _opaque(tag) for candidate in header.split(","))
