@@ -41,7 +41,8 @@ exit codes:
   {EXIT_UNREACHABLE}  the service could not be reached, timed out, or answered with a server error
   {EXIT_STILL_RUNNING}  --timeout ran out while the job was still queued or running
 
-The service URL comes from --url, else the DRAWYARD_URL environment variable, else {DEFAULT_URL}."""
+The service URL comes from --url, else the DRAWYARD_URL environment variable, else
+{DEFAULT_URL}; an API key from --api-key, else DRAWYARD_API_KEY."""
 
 FETCHABLE = ("summary", "draws", "sampler-stats", "diagnostics", "audit")
 STATES = ("queued", "running", "succeeded", "failed", "cancelled")
@@ -182,6 +183,7 @@ def _client(args: argparse.Namespace) -> DrawyardClient:
         connect_timeout=args.connect_timeout,
         read_timeout=args.read_timeout,
         retry=RetryPolicy(retries=args.retries),
+        api_key=args.api_key or os.environ.get("DRAWYARD_API_KEY"),
     )
 
 
@@ -354,6 +356,10 @@ def _connection_options() -> argparse.ArgumentParser:
     group = common.add_argument_group("service")
     group.add_argument("--url", default=None,
                        help=f"service base URL (default: $DRAWYARD_URL, else {DEFAULT_URL})")
+    group.add_argument("--api-key", default=None, metavar="KEY",
+                       help="API key, sent as 'Authorization: Bearer KEY' (default: "
+                            "$DRAWYARD_API_KEY; prefer the variable, since arguments are visible "
+                            "to other users of the machine)")
     group.add_argument("--connect-timeout", type=float, default=5.0, metavar="SECONDS",
                        help="give up connecting after this long (default: 5)")
     group.add_argument("--read-timeout", type=float, default=30.0, metavar="SECONDS",

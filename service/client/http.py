@@ -26,7 +26,8 @@ class DrawyardClient:
     failures are retried for calls that are safe to repeat (reads, cancels, and submissions,
     which carry an Idempotency-Key reused across their retries).
 
-    `rng` draws the backoff jitter; `sleep` is how the client waits (time.sleep by default).
+    `api_key` is sent as `Authorization: Bearer <key>` on every call; `rng` draws the backoff
+    jitter; `sleep` is how the client waits (time.sleep by default).
     """
 
     def __init__(
@@ -39,6 +40,7 @@ class DrawyardClient:
         rng: np.random.Generator | None = None,
         session: requests.Session | None = None,
         headers: Mapping[str, str] | None = None,
+        api_key: str | None = None,
         sleep: Callable[[float], None] = time.sleep,
     ):
         self.base_url = base_url.rstrip("/")
@@ -47,6 +49,8 @@ class DrawyardClient:
         self.rng = rng if rng is not None else np.random.default_rng()
         self.session = session or requests.Session()
         self.session.headers.update(headers or {})
+        if api_key:
+            self.session.headers["Authorization"] = f"Bearer {api_key}"
         self.sleep = sleep
 
     def close(self) -> None:

@@ -32,7 +32,7 @@ from service.job_commands import (
     EXIT_STILL_RUNNING,
     EXIT_UNREACHABLE,
 )
-from tests.client.loopback import closed_port_url
+from tests.client.loopback import Answer, closed_port_url, scripted_server
 from tests.harness.live_service import LiveService
 from tests.service.bodies import Y, normal_mean, posterior_mean_sd
 
@@ -41,11 +41,13 @@ REPO_ROOT = Path(__file__).resolve().parents[2]
 
 
 def drawyard(
-    *args: str, url: str | None = None, timeout: float = 300
+    *args: str, url: str | None = None, timeout: float = 300, api_key: str | None = None
 ) -> subprocess.CompletedProcess:
     env = {k: v for k, v in os.environ.items() if not k.startswith("DRAWYARD_")}
     if url is not None:
         env["DRAWYARD_URL"] = url
+    if api_key is not None:
+        env["DRAWYARD_API_KEY"] = api_key
     return subprocess.run(
         [DRAWYARD, *args], capture_output=True, text=True, timeout=timeout, env=env, cwd=REPO_ROOT
     )
@@ -235,3 +237,17 @@ def test_every_command_has_help_with_the_exit_codes() -> None:
         shown = drawyard(command, "--help")
         assert shown.returncode == 0
         assert "exit codes:" in shown.stdout and "DRAWYARD_URL" in shown.stdout
+
+
+def test_the_api_key_comes_from_the_environment_and_a_401_is_bad_input() -> None:
+    """RFC 6750 section 2.1 for the header; RFC 9110 section 15.5.2 for 401 Unauthorized."""
+    finished = {"id": "ab" * 16, "state": "succeeded", "chains": [], "verdict": {"passed": True}}
+    refused = {"title": "A valid API key is needed", "status": 401, "detail": "Unknown key."}
+    with scripted_server([Answer(200, {}, finished), Answer(401, {}, refused)]) as server:
+        passed = drawyard("watch", "ab" * 16, url=server.url, api_key="k-env")
+        refusal = drawyard("watch", "ab" * 16, "--api-key", "k-flag", url=server.url)
+        sent = [r.headers.get("Authorization") for r in server.received]
+    assert passed.returncode == EXIT_PASSED, passed.stderr
+    assert refusal.returncode == EXIT_BAD_INPUT
+    assert "401 A valid API key is needed" in refusal.stderr
+    assert sent == ["Bearer k-env", "Bearer k-flag"]

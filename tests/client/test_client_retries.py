@@ -171,3 +171,11 @@ def test_retry_after_values_of_rfc_9110() -> None:
     assert parse_retry_after("Fri, 31 Dec 1999 23:59:59 GMT", now.replace(year=2000)) == 0
     assert parse_retry_after("soon") is None
     assert parse_retry_after(None) is None
+
+
+def test_an_api_key_is_sent_as_a_bearer_token() -> None:
+    """RFC 6750 (Jones & Hardt 2012) section 2.1: "Authorization: Bearer <token>"."""
+    with scripted_server([Answer(200, {}, JOB)]) as server:
+        DrawyardClient(server.url, api_key="k-123", rng=np.random.default_rng(1)).job("0123abcd")
+        sent = server.received[0].headers
+    assert sent["Authorization"] == "Bearer k-123"
