@@ -245,8 +245,13 @@ def run_fetch(args: argparse.Namespace) -> int:
             chains = _chains(args.chains)
             if args.output is None:
                 return _download(client, args, sys.stdout.buffer, columns, chains)
-            with _output_file(args.output) as out:
-                return _download(client, args, out, columns, chains)
+            try:
+                with _output_file(args.output) as out:
+                    return _download(client, args, out, columns, chains)
+            except (ProblemError, ServiceUnreachable):
+                # No half-written file left behind for a later step to mistake for the result.
+                args.output.unlink(missing_ok=True)
+                raise
         document = {
             "summary": client.summary,
             "diagnostics": client.diagnostics,

@@ -4,7 +4,7 @@ from service.client.errors import ClientError, ProblemError, ServiceUnreachable
 from service.client.http import DrawyardClient
 from service.client.records import ChainProgress, FailedCheck, Job, JobPage, Verdict
 from service.client.retrying import RetryPolicy
-from service.client.waiting import wait_for_job
+from service.client.waiting import WaitTimedOut, wait_for_job
 
 __all__ = [
     "ChainProgress",
@@ -17,5 +17,6 @@ __all__ = [
     "RetryPolicy",
     "ServiceUnreachable",
     "Verdict",
+    "WaitTimedOut",
     "wait_for_job",
 ]

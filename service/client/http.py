@@ -242,9 +242,16 @@ def _selection(
 
 def _copy(response: requests.Response, out: BinaryIO) -> int:
     written = 0
-    for chunk in response.iter_content(DOWNLOAD_CHUNK_BYTES):
-        out.write(chunk)
-        written += len(chunk)
+    try:
+        for chunk in response.iter_content(DOWNLOAD_CHUNK_BYTES):
+            out.write(chunk)
+            written += len(chunk)
+    except requests.exceptions.RequestException as error:
+        # The answer began and then broke off (a dropped connection, a stalled stream): the
+        # file is incomplete, which the caller must hear about as "no usable answer".
+        raise ServiceUnreachable(
+            f"{response.url}: the download stopped after {written} bytes: {error}"
+        ) from error
     return written
 
 

@@ -135,7 +135,7 @@ def test_a_job_that_fails_its_checks_has_its_own_exit_code(
 
 
 def test_a_cancelled_job_and_a_wait_that_runs_out(
-    shared_service: LiveService, files: dict[str, Path]
+    shared_service: LiveService, files: dict[str, Path], tmp_path: Path
 ) -> None:
     url = shared_service.base_url
     # Long enough (about half a minute a chain) to be cancelled while it runs.
@@ -169,6 +169,12 @@ def test_a_cancelled_job_and_a_wait_that_runs_out(
             watcher.kill()
     assert watcher.returncode == EXIT_JOB_FAILED, err
     assert "cancelled" in err
+
+    # A cancelled job has no results (409): bad input, and no empty file left behind.
+    target = tmp_path / "draws.csv"
+    fetched = drawyard("fetch", job_id, "draws", "--format", "csv", "-o", str(target), url=url)
+    assert fetched.returncode == EXIT_BAD_INPUT and "409" in fetched.stderr
+    assert not target.exists()
 
 
 BAD_CHANGES = {
