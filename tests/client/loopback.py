@@ -24,6 +24,8 @@ class Answer:
     headers: dict[str, str] = field(default_factory=dict)
     body: dict | None = None
     hang_up: bool = False  # close the connection without answering at all
+    # Promise this many more body bytes than are sent, then hang up (a download that breaks off).
+    short_by: int = 0
     # Send "Retry-After" as an HTTP-date this many seconds after the moment of answering.
     retry_after_date_in: float | None = None
 
@@ -71,7 +73,7 @@ def scripted_server(answers: list[Answer]) -> Iterator[ScriptedServer]:
             self.send_response(answer.status)
             kind = "application/problem+json" if answer.status >= 400 else "application/json"
             self.send_header("Content-Type", kind)
-            self.send_header("Content-Length", str(len(payload)))
+            self.send_header("Content-Length", str(len(payload) + answer.short_by))
             for name, value in answer.headers.items():
                 self.send_header(name, value)
             if answer.retry_after_date_in is not None:
@@ -79,6 +81,10 @@ def scripted_server(answers: list[Answer]) -> Iterator[ScriptedServer]:
                 self.send_header("Retry-After", email.utils.formatdate(when, usegmt=True))
             self.end_headers()
             self.wfile.write(payload)
+            if answer.short_by:
+                self.wfile.flush()
+                self.close_connection = True
+                self.connection.shutdown(socket.SHUT_RDWR)
 
         do_GET = _serve
         do_POST = _serve

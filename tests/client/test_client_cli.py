@@ -257,3 +257,12 @@ def test_the_api_key_comes_from_the_environment_and_a_401_is_bad_input() -> None
     assert refusal.returncode == EXIT_BAD_INPUT
     assert "401 A valid API key is needed" in refusal.stderr
     assert sent == ["Bearer k-env", "Bearer k-flag"]
+
+
+def test_a_failed_job_has_the_same_code_as_a_cancelled_one() -> None:
+    failed = {"id": "cd" * 16, "state": "failed", "chains": [], "verdict": None,
+              "error": "chain 2: no finite starting point"}
+    with scripted_server([Answer(200, {}, failed)]) as server:
+        done = drawyard("watch", "cd" * 16, url=server.url)
+    assert done.returncode == EXIT_JOB_FAILED
+    assert "failed: chain 2: no finite starting point" in done.stderr

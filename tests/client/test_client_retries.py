@@ -179,3 +179,10 @@ def test_an_api_key_is_sent_as_a_bearer_token() -> None:
         DrawyardClient(server.url, api_key="k-123", rng=np.random.default_rng(1)).job("0123abcd")
         sent = server.received[0].headers
     assert sent["Authorization"] == "Bearer k-123"
+
+
+def test_a_download_that_breaks_off_is_reported(tmp_path) -> None:
+    """RFC 9112 section 8: a message whose body ends before its Content-Length is incomplete."""
+    with scripted_server([Answer(200, {}, {"job": "x"}, short_by=5000)]) as server:
+        with pytest.raises(ServiceUnreachable, match="download stopped"):
+            client(server.url).download("0123abcd", "draws", tmp_path / "d.json")
