@@ -237,8 +237,12 @@ def run_watch(args: argparse.Namespace) -> int:
 
 def run_fetch(args: argparse.Namespace) -> int:
     what = args.what
-    if args.format == "csv" and what not in ("draws", "sampler-stats"):
-        raise InputProblem(f"--format csv is offered for draws and sampler-stats, not {what}")
+    if (args.format != "json" or args.layout) and what not in ("draws", "sampler-stats"):
+        raise InputProblem(
+            f"--format and --layout are offered for draws and sampler-stats, not {what}"
+        )
+    if args.output is None and args.format in ("parquet", "npz"):
+        raise InputProblem(f"--format {args.format} is binary: give a file with -o")
     with _client(args) as client:
         if what in ("draws", "sampler-stats"):
             columns = _names(args.quantities)
@@ -274,7 +278,9 @@ def _output_file(path: Path):
 
 
 def _download(client, args, out, columns, chains) -> int:
-    client.download(args.job, args.what, out, args.format, columns, chains, args.thin)
+    client.download(
+        args.job, args.what, out, args.format, columns, chains, args.thin, args.layout
+    )
     out.flush()
     return EXIT_PASSED
 
@@ -473,8 +479,11 @@ def add_job_commands(commands: argparse._SubParsersAction) -> None:
                        help="which result (default: summary)")
     fetch.add_argument("-o", "--output", type=Path, default=None, metavar="FILE",
                        help="file to write (default: stdout)")
-    fetch.add_argument("--format", choices=("json", "csv"), default="json",
+    fetch.add_argument("--format", choices=("json", "csv", "parquet", "npz"), default="json",
                        help="for draws and sampler-stats (default: json)")
+    fetch.add_argument("--layout", choices=("wide", "long"), default=None,
+                       help="parquet and npz: one row per draw (wide, the default) or one row "
+                            "per draw and quantity (long)")
     fetch.add_argument("--quantities", default=None, metavar="A,B",
                        help="only these columns: quantity names for draws, statistic names for "
                             "sampler-stats")

@@ -161,8 +161,11 @@ class DrawyardClient:
         columns: Sequence[str] | None = None,
         chains: Sequence[int] | None = None,
         thin: int | None = None,
+        layout: str | None = None,
     ) -> int:
-        """Stream `draws` or `sampler-stats` (json or csv) into a file; returns bytes written.
+        """Stream `draws` or `sampler-stats` into a file; returns bytes written.
+
+        `format` is json, csv, parquet or npz; `layout` wide or long (parquet and npz only).
 
         The body is copied in chunks as it arrives, so a large result never sits in memory.
         """
@@ -170,6 +173,8 @@ class DrawyardClient:
             raise ValueError("resource is 'draws' or 'sampler-stats'")
         member = "quantities" if resource == "draws" else "statistics"
         params = [*_selection(member, columns, chains, thin), ("format", format)]
+        if layout is not None:
+            params.append(("layout", layout))
         response = self._request(
             "GET", f"/v1/jobs/{job_id}/{resource}", params=params, stream=True
         )

@@ -108,6 +108,15 @@ def test_submit_wait_passed_then_fetch_and_list(
     assert rows[0] == ["chain", "draw", "mu"] and len(rows) == 1 + 100
     np.testing.assert_array_equal(np.array(rows[1:], dtype=float)[:, 2:], reference)
 
+    # The .npz download, read back with numpy alone (no pickle), holds the same numbers.
+    archive = tmp_path / "draws.npz"
+    fetched = drawyard("fetch", job_id, "draws", "--format", "npz", "--quantities", "mu",
+                       "--chains", "2", "--thin", "3", "-o", str(archive), url=url)
+    assert fetched.returncode == EXIT_PASSED, fetched.stderr
+    with np.load(archive, allow_pickle=False) as arrays:
+        np.testing.assert_array_equal(arrays["values"], reference)
+        np.testing.assert_array_equal(arrays["chain"], 2)
+
     listed = drawyard("list", "--label", "suite:client-cli", "--state", "succeeded", "--json",
                       url=url)
     assert listed.returncode == EXIT_PASSED, listed.stderr
