@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy import and_, delete, exists, func, or_, select, update
 
-from service import events
+from service import crash_drill, events
 from service.dispatch import send_finish_task
 from service.runtime import Runtime
 from service.store.arrays import ENCODING, encode_array
@@ -66,7 +66,11 @@ def take_lease(
             return None
         takeable = or_(
             Chain.state == "queued",
-            and_(Chain.state == "running", Chain.lease_expires_at < now),
+            and_(
+                Chain.state == "running",
+                Chain.lease_expires_at < now,
+                Chain.attempts < settings.max_attempts,
+            ),
         )
         taken = session.execute(
             update(Chain)
@@ -88,6 +92,10 @@ def take_lease(
             select(Chain).where(Chain.job_id == job_id, Chain.chain_index == chain_index)
         ).one()
         if taken != 1:
+            from service.sweeper import give_up_if_exhausted
+
+            if give_up_if_exhausted(session, chain, now, settings.max_attempts):
+                return None
             if chain.attempts > 0 and count_duplicate:
                 session.execute(
                     update(Chain)
@@ -148,16 +156,29 @@ class ChainMonitor:
     _closing: threading.Event = field(default_factory=threading.Event)
     _thread: threading.Thread | None = None
     _started: float = field(default_factory=time.monotonic)
+    # The running chain's snapshot(), for checkpoints by time as well as by iterations.
+    snapshot_source: Any = None
+    _last_checkpoint: float = field(default_factory=time.monotonic)
 
     # --- the engine's callbacks: cheap, no I/O -----------------------------------------------
     def progress(self, phase: str, iteration: int, divergences: int) -> None:
         self.phase, self.iteration, self.divergences = phase, int(iteration), int(divergences)
+        crash_drill.maybe_kill(self.lease.chain_index, self.iteration)
+        every = self.runtime.settings.checkpoint_seconds
+        if (
+            self.snapshot_source is not None
+            and every > 0
+            and time.monotonic() - self._last_checkpoint >= every
+        ):
+            # Called between iterations, where a snapshot resumes exactly, like the engine's own.
+            self.checkpoint(self.snapshot_source())
 
     def should_stop(self) -> bool:
         return self._stop_flag.is_set()
 
     def checkpoint(self, blob: bytes) -> None:
         self._checkpoint = (bytes(blob), self.iteration)
+        self._last_checkpoint = time.monotonic()
 
     # --- the writer thread ---------------------------------------------------------------------
     def start(self) -> ChainMonitor:
@@ -257,6 +278,7 @@ def run_chain(
     monitor = ChainMonitor(runtime, lease).start()
     try:
         chain_run = _start_or_resume(lease)
+        monitor.snapshot_source = chain_run.snapshot
         result = chain_run.run(
             progress=monitor.progress,
             should_stop=monitor.should_stop,

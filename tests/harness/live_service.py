@@ -14,6 +14,7 @@ from service.local_stack import (
     free_port,
     service_env,
     start_api,
+    start_sweeper,
     start_worker,
     wait_until,
 )
@@ -30,6 +31,8 @@ class LiveService:
     log_dir: Path
     database_url: str
     broker_url: str
+    # The sweeper process (service/sweeper.py); None only while starting.
+    sweeper: ChildProcess | None = None
     _next_index: int = field(default=0, repr=False)
 
     def add_workers(self, count: int = 1, timeout: float = 60.0) -> list[ChildProcess]:
@@ -62,7 +65,7 @@ class LiveService:
         """Every process's log tail, for assertion messages."""
         return "\n".join(
             f"--- {child.name} ({child.log_path}):\n{child.log_tail(60)}"
-            for child in [self.api, *self.workers]
+            for child in [self.api, *self.workers, *([self.sweeper] if self.sweeper else [])]
         )
 
     def stop(self) -> None:
@@ -70,6 +73,8 @@ class LiveService:
             worker.signal_leader(worker.stop_signal)
         for worker in self.workers:
             worker.stop()
+        if self.sweeper is not None:
+            self.sweeper.stop()
         self.api.stop()
 
 
@@ -101,6 +106,7 @@ def start_live_service(
     try:
         # Everything boots side by side; then the API must answer and every worker consume.
         launched = service._launch_workers(workers)
+        service.sweeper = start_sweeper(full_env, log_dir / "sweeper.log")
         what = f"{service.base_url}{READY_PATH}"
         wait_until(api_ready(service.base_url), [api, *launched], timeout, what)
         service._wait_consuming(launched, timeout)
