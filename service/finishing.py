@@ -9,6 +9,7 @@ from sqlalchemy import select, update
 from sqlalchemy.orm import undefer
 
 from service import events
+from service.callbacks import queue_callback_safely
 from service.runtime import Runtime
 from service.store.arrays import decode_array
 from service.store.engine import transaction
@@ -48,6 +49,8 @@ def _close(runtime: Runtime, job_id: str, state: str, **values: Any) -> bool:
         if done:
             detail = {"error": values["error"]} if values.get("error") else None
             events.record(session, job_id, "job_state", state, detail=detail)
+    if done:
+        queue_callback_safely(runtime, job_id)
     return bool(done)
 
 

@@ -70,6 +70,7 @@ def make_celery(settings: Settings | None = None) -> Celery:
     )
     app.conf.drawyard_settings = settings
     app.autodiscover_tasks(["worker"], related_name="tasks", force=True)
+    app.autodiscover_tasks(["worker"], related_name="callback_tasks", force=True)
     return app
 
 

@@ -28,7 +28,8 @@ DEFAULT_MAX_CHAINS = 16
 DEFAULT_MAX_DRAWS = 100_000
 MAX_SEED = 2**63 - 1  # seeds travel through JSON and SQL as signed 64-bit integers
 TREE_DEPTH_LIMIT = 30
-TOP_LEVEL_MEMBERS = ("model", "data", "sampler", "checks", "labels")
+# "notify" (a completion callback) belongs to the service, which checks it; the engine ignores it.
+TOP_LEVEL_MEMBERS = ("model", "data", "sampler", "checks", "labels", "notify")
 # settings of the runner itself, beside those of one chain (SamplerSettings)
 JOB_SETTINGS = ("chains", "seed", "initial_values")
 CHAIN_SETTINGS = tuple(f.name for f in dataclasses.fields(SamplerSettings))

@@ -1,0 +1,187 @@
+"""Completion callbacks: a job may name a URL that is told, by a signed POST, when the job ends.
+
+Only URLs under a configured prefix are accepted (DRAWYARD_CALLBACK_ALLOW), so a submission cannot
+make the workers call arbitrary hosts. The body is the job's status document, exactly as
+GET /v1/jobs/<id> returns it. The signature is HMAC-SHA256 (Krawczyk, Bellare, Canetti 1997,
+RFC 2104) keyed with DRAWYARD_CALLBACK_SECRET over ``<timestamp>.<body bytes>``; the timestamp is
+sent in its own header and is part of the signed message, so a receiver that rejects old
+timestamps cannot be fed a recorded request again. Delivery runs in a Celery task that retries
+with doubling delays up to DRAWYARD_CALLBACK_ATTEMPTS attempts; every attempt is written to the
+job's event log.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import hmac
+import json
+import logging
+import re
+import time
+from dataclasses import dataclass
+from typing import Any
+from urllib.parse import urlsplit
+
+import requests
+from sqlalchemy import select
+
+from service import events
+from service.config import Settings
+from service.job_resources import job_resource
+from service.runtime import Runtime
+from service.store.engine import transaction
+from service.store.models import Chain, Job
+from worker.problems import Problem
+
+log = logging.getLogger(__name__)
+
+SIGNATURE_HEADER = "X-Drawyard-Signature"
+TIMESTAMP_HEADER = "X-Drawyard-Timestamp"
+ATTEMPT_HEADER = "X-Drawyard-Attempt"
+POINTER = "/notify/url"
+# The task is sent by name so the API needs no task code imported (as in service/dispatch.py).
+DELIVER_CALLBACK = "drawyard.deliver_callback"
+
+
+def allowed_prefixes(settings: Settings) -> list[str]:
+    return [part for part in re.split(r"[\s,]+", settings.callback_allow) if part]
+
+
+def url_allowed(url: str, prefixes: list[str]) -> bool:
+    """True when ``url`` is http(s) and starts with a prefix at a boundary.
+
+    The boundary matters: the prefix "https://hooks.example" must not admit
+    "https://hooks.example.evil.net/", so after a prefix not ending in "/" the URL must end or
+    go on with "/", "?" or "#".
+    """
+    if urlsplit(url).scheme not in ("http", "https"):
+        return False
+    for prefix in prefixes:
+        if not url.startswith(prefix):
+            continue
+        rest = url[len(prefix) :]
+        if prefix.endswith("/") or rest == "" or rest[0] in "/?#":
+            return True
+    return False
+
+
+def notify_problems(body: Any, settings: Settings) -> list[Problem]:
+    """Problems with a submission's ``notify`` member (none when it has none)."""
+    if not isinstance(body, dict) or not isinstance(body.get("notify"), dict):
+        return []
+    url = body["notify"].get("url")
+    if not isinstance(url, str):
+        return []  # the schema reports the missing or mistyped URL
+    if not settings.callback_secret:
+        return [Problem(POINTER, "This service is not set up to send completion callbacks.")]
+    if not url_allowed(url, allowed_prefixes(settings)):
+        return [
+            Problem(
+                POINTER,
+                "This callback URL is not under any prefix this service may call; ask the "
+                "operator to add it to the allowed callback prefixes.",
+            )
+        ]
+    return []
+
+
+def sign(secret: str, timestamp: str, body: bytes) -> str:
+    """The signature header's value: ``sha256=`` and the hex HMAC of ``timestamp.body``."""
+    digest = hmac.new(secret.encode(), timestamp.encode() + b"." + body, hashlib.sha256)
+    return "sha256=" + digest.hexdigest()
+
+
+def callback_url(runtime: Runtime, job_id: str) -> str | None:
+    # Only the notify member of the stored body is read, not the data beside it.
+    with runtime.sessions() as session:
+        notify = session.scalar(select(Job.body["notify"]).where(Job.id == job_id))
+    return notify.get("url") if isinstance(notify, dict) else None
+
+
+def queue_callback(runtime: Runtime, job_id: str) -> None:
+    """Queue the delivery of a job's completion callback, if its submission asked for one."""
+    if callback_url(runtime, job_id) is None:
+        return
+    runtime.celery.send_task(
+        DELIVER_CALLBACK, args=[job_id], queue=runtime.settings.queue, retry=True
+    )
+
+
+def _job_and_chains(runtime: Runtime, job_id: str) -> tuple[Job, list[Chain]]:
+    # Read directly, not through the API's queries: a worker has no caller whose view applies.
+    with runtime.sessions() as session:
+        job = session.scalars(select(Job).where(Job.id == job_id)).one()
+        chains = session.scalars(
+            select(Chain).where(Chain.job_id == job_id).order_by(Chain.chain_index)
+        ).all()
+    return job, list(chains)
+
+
+def queue_callback_safely(runtime: Runtime, job_id: str) -> None:
+    """queue_callback for a job that has just closed: a broker failure is logged, not raised.
+
+    The job's final state is already committed and must stand; the event log says the callback
+    was never sent.
+    """
+    try:
+        queue_callback(runtime, job_id)
+    except Exception as error:
+        log.exception("completion callback of job %s could not be queued", job_id)
+        with transaction(runtime.sessions) as session:
+            detail = {"error": f"{type(error).__name__}: {error}"[:500]}
+            events.record(session, job_id, "callback_not_queued", detail=detail)
+
+
+@dataclass(frozen=True)
+class Outcome:
+    delivered: bool
+    retry_in: float | None  # seconds until the next attempt; None when there is none
+
+
+def retry_delay(settings: Settings, attempt: int) -> float:
+    """Exponential backoff: the base delay after the first attempt, doubling after each."""
+    return settings.callback_backoff * 2 ** (attempt - 1)
+
+
+def deliver(runtime: Runtime, job_id: str, attempt: int) -> Outcome:
+    """One attempt: POST the signed status; record the attempt; say whether to try again."""
+    settings = runtime.settings
+    url = callback_url(runtime, job_id)
+    if url is None:
+        return Outcome(False, None)
+    job, chains = _job_and_chains(runtime, job_id)
+    body = json.dumps(job_resource(job, chains), separators=(",", ":")).encode()
+    timestamp = str(int(time.time()))
+    headers = {
+        "Content-Type": "application/json",
+        SIGNATURE_HEADER: sign(settings.callback_secret, timestamp, body),
+        TIMESTAMP_HEADER: timestamp,
+        ATTEMPT_HEADER: str(attempt),
+    }
+    detail: dict[str, Any] = {"attempt": attempt, "url": url}
+    try:
+        # No redirects: a redirect could lead outside the allowed prefixes.
+        response = requests.post(
+            url,
+            data=body,
+            headers=headers,
+            timeout=settings.callback_timeout,
+            allow_redirects=False,
+        )
+        detail["status_code"] = response.status_code
+        delivered = 200 <= response.status_code < 300
+    except requests.RequestException as error:
+        detail["error"] = f"{type(error).__name__}: {error}"[:500]
+        delivered = False
+    detail["delivered"] = delivered
+    retry_in = None
+    if not delivered and attempt < settings.callback_attempts:
+        retry_in = retry_delay(settings, attempt)
+        detail["next_attempt_in_seconds"] = retry_in
+    with transaction(runtime.sessions) as session:
+        events.record(session, job_id, "callback_attempt", job.state, detail=detail)
+        if not delivered and retry_in is None:
+            events.record(
+                session, job_id, "callback_abandoned", job.state, detail={"attempts": attempt}
+            )
+    return Outcome(delivered, retry_in)
