@@ -4,7 +4,7 @@ VENV   := .venv
 PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 
-.PHONY: venv test bench demo lint services clean
+.PHONY: venv test bench soak demo lint services clean
 
 # Debian ships Python's venv support separately (python3-venv): install it when root may, else say so.
 $(STAMP): pyproject.toml
@@ -37,6 +37,11 @@ lint: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) -m tests.bench
+
+# The load run: 200 readers for 60 s while jobs run, then 500 jobs in a burst (tests/load/soak.py).
+soak: $(STAMP)
+	bash tests/harness/install_services.sh
+	$(PY) -m tests.load.soak
 
 demo: $(STAMP)
 	$(PY) -m service.demo

@@ -95,7 +95,7 @@ class StoreView:
 
     def job_states(self) -> dict[str, str]:
         with Session(self.engine) as session:
-            return dict(session.execute(select(Job.id, Job.state)).tuples().all())
+            return {job_id: state for job_id, state in session.execute(select(Job.id, Job.state))}
 
 
 def in_process_draws(body: dict) -> np.ndarray:
