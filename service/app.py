@@ -12,8 +12,10 @@ from service.access.authentication import install_access
 from service.config import load_settings
 from service.problem_details import ApiProblem, http_problem, problem_response
 from service.runtime import build_runtime
+from service.structured_logs import configure_logging, install_request_context
 from service.views.health import health
 from service.views.jobs import jobs
+from service.views.metrics import metrics
 from service.views.results import results
 from service.web import web
 
@@ -24,9 +26,11 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app = Flask(__name__)
     app.config["MAX_CONTENT_LENGTH"] = settings.max_body_bytes
     app.json.sort_keys = False
+    configure_logging(settings)
+    install_request_context(app)
     runtime = build_runtime(settings)
     app.extensions["drawyard"] = runtime
-    for blueprint in (jobs, results, health, web):
+    for blueprint in (jobs, results, health, metrics, web):
         app.register_blueprint(blueprint)
     install_access(app, runtime, (jobs, results))
 

@@ -12,6 +12,7 @@ from pathlib import Path
 from celery import Celery
 
 from service.config import Settings, load_settings
+from service.structured_logs import install_worker_logging
 
 
 def broker_options(settings: Settings) -> tuple[str, dict]:
@@ -69,6 +70,7 @@ def make_celery(settings: Settings | None = None) -> Celery:
         timezone="UTC",
     )
     app.conf.drawyard_settings = settings
+    install_worker_logging(app, settings)
     app.autodiscover_tasks(["worker"], related_name="tasks", force=True)
     app.autodiscover_tasks(["worker"], related_name="callback_tasks", force=True)
     return app
