@@ -45,9 +45,10 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
             detail = (
                 f"The body is larger than this service accepts ({settings.max_body_bytes} bytes)."
             )
-        response = problem_response(
-            http_problem(error.code or 500, error.name, detail), request.path
-        )
+        problem = http_problem(error.code or 500, error.name, detail)
+        if error.code == 413:
+            problem.errors = [{"pointer": "", "message": "The whole body is too large."}]
+        response = problem_response(problem, request.path)
         for name, value in error.get_headers():
             if name.lower() not in ("content-type", "content-length"):
                 response.headers[name] = value

@@ -10,6 +10,7 @@ import copy
 from functools import cache
 from typing import Any
 
+from service.access.authentication import ACCESS_STATUSES
 from service.schemas import BASE_URI, load_schemas
 
 PROBLEM = "application/problem+json"
@@ -120,7 +121,11 @@ def component_schemas() -> dict[str, Any]:
 
 def _operation(method: str, path: str) -> dict[str, Any]:
     responses = {}
-    for status, stem in RESPONSES[(method, path)].items():
+    declared = dict(RESPONSES[(method, path)])
+    if path.startswith("/v1/jobs"):
+        # service/access/: no or a wrong key, a missing scope, the rate or job cap reached.
+        declared.update({status: "problem" for status in ACCESS_STATUSES})
+    for status, stem in declared.items():
         if stem is None:
             responses[str(status)] = {"description": _status_text(status)}
             continue

@@ -119,7 +119,17 @@ def existing_for_key(runtime: Runtime, key: str, request_sha256: str) -> Job | N
 
 def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted:
     """Validate, store and queue a submission (or return the job its idempotency key made)."""
-    request_sha256 = sha256_of_json(body)
+    try:
+        request_sha256 = sha256_of_json(body)
+    except ValueError as error:
+        # NaN or infinity: the parser takes them, JSON has no such numbers. Validation names
+        # where they are; anywhere it does not look is refused as a whole.
+        validate(body, runtime.settings)
+        raise ApiProblem(
+            422, "invalid-submission", "The submission is not valid",
+            "The body holds NaN or infinity, which JSON has no way to write.",
+            [{"pointer": "", "message": "NaN and infinity are not JSON numbers."}],
+        ) from error
     idempotency_key = scoped_idempotency_key(idempotency_key)
     if idempotency_key is not None:
         job = existing_for_key(runtime, idempotency_key, request_sha256)

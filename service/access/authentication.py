@@ -23,6 +23,8 @@ from service.runtime import Runtime
 
 log = logging.getLogger(__name__)
 ACCESS_CHECK = "drawyard.access_check"
+# Statuses the access check may answer on any guarded path (the OpenAPI document lists them).
+ACCESS_STATUSES = (401, 403, 429)
 READ_METHODS = frozenset({"GET", "HEAD", "OPTIONS"})
 # RFC 6750 section 3: a 401 for a bearer-protected resource names the scheme.
 CHALLENGE = {"WWW-Authenticate": 'Bearer realm="drawyard"'}

@@ -23,13 +23,18 @@ def _json_body() -> Any:
             "unsupported-media-type",
             "Unsupported media type",
             f"Send the submission as application/json, not {request.mimetype or 'nothing'}.",
+            [{"pointer": "", "message": "The body must be sent as application/json."}],
         )
     data = request.get_data(cache=False)
     try:
         return json.loads(data)
     except (ValueError, UnicodeDecodeError) as error:
         raise ApiProblem(
-            400, "invalid-json", "The body is not JSON", f"The body could not be parsed: {error}."
+            400,
+            "invalid-json",
+            "The body is not JSON",
+            f"The body could not be parsed: {error}.",
+            [{"pointer": "", "message": "The body is not valid JSON."}],
         ) from error
 
 

@@ -79,13 +79,22 @@ class DimensionTable:
         return tuple(dims) if ok else None
 
 
+_is_number_or_null = np.frompyfunc(
+    lambda v: v is None or (isinstance(v, int | float | np.integer | np.floating)
+                            and not isinstance(v, bool)), 1, 1)
+
+
 def _as_array(raw: Any) -> np.ndarray | None:
     if raw is None or isinstance(raw, str | dict):
         return None
     try:
-        return np.array(raw, dtype=float)
+        array = np.array(raw, dtype=float)
     except (ValueError, TypeError):
         return None
+    # float() also takes "0.5" and True; data must hold JSON numbers (or null, reported below).
+    if not np.all(_is_number_or_null(np.array(raw, dtype=object))):
+        return None
+    return array
 
 
 def check_inputs(declarations: dict[str, dict], data: dict) -> tuple[

@@ -1,0 +1,191 @@
+"""The table of malformed submissions: what is sent, the status expected and the field blamed.
+
+The base is the normal-mean model of tests/service/bodies.py. Statuses follow RFC 9110 (400 a body
+that is not JSON, 413 content too large, 415 unsupported media type, 422 content that is JSON but
+not a valid submission; sections 15.5.1, 15.5.14, 15.5.16, 15.5.21).
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+from tests.service.bodies import normal_mean
+
+# The limits the table's app is built with (the oversized cases go just past them).
+LIMITS = {"max_chains": 8, "max_draws": 5_000, "max_body_bytes": 20_000, "max_unknowns": 100}
+
+
+@dataclass(frozen=True)
+class Case:
+    name: str
+    status: int
+    pointer: str               # an error's pointer must equal this or lie under it
+    body: bytes
+    content_type: str | None = "application/json"
+    says: tuple[str, ...] = ()  # words the answer's messages must contain
+
+
+def base() -> dict[str, Any]:
+    return normal_mean(chains=2, warmup=100, draws=100, seed=5)
+
+
+def changed(edit: Callable[[dict[str, Any]], Any]) -> bytes:
+    body = copy.deepcopy(base())
+    edit(body)
+    return json.dumps(body).encode()
+
+
+def with_location(expression: str) -> bytes:
+    def edit(body: dict) -> None:
+        body["model"]["likelihood"][0]["arguments"]["location"] = expression
+
+    return changed(edit)
+
+
+def set_in(path: tuple, value: Any) -> Callable[[dict], None]:
+    def edit(body: dict) -> None:
+        target = body
+        for step in path[:-1]:
+            target = target[step]
+        target[path[-1]] = value
+
+    return edit
+
+
+def raw_data_y(token: str) -> bytes:
+    """The base body with y[3] replaced by a bare token (NaN, Infinity: not JSON, but common)."""
+    text = json.dumps(base())
+    return text.replace('"y": [1.0, 2.0, 0.5,', f'"y": [1.0, 2.0, {token},', 1).encode()
+
+
+def cyclic(body: dict) -> None:
+    body["model"]["derived"] = {"a": "b + mu", "b": "2 * a"}
+    body["model"]["likelihood"][0]["arguments"]["location"] = "a"
+
+
+def count_model(body: dict) -> None:
+    body["model"]["inputs"]["k"] = {"type": "integer", "shape": ["n"], "lower": 0}
+    body["data"]["k"] = [1, 0, 2, -1, 3, 1, 0, 2]
+    body["model"]["likelihood"].append(
+        {"name": "counts", "observed": "k", "distribution": "poisson",
+         "arguments": {"log_rate": "mu"}}
+    )
+
+
+def many_unknowns(body: dict) -> None:
+    body["model"]["unknowns"]["extra"] = {"shape": [LIMITS["max_unknowns"] + 1]}
+    body["model"]["priors"].append(
+        {"on": "extra", "distribution": "normal", "arguments": {"location": 0, "scale": 1}}
+    )
+
+
+def nested(depth: int) -> str:
+    return "exp(" * depth + "mu" + ")" * depth
+
+
+LIK = "/model/likelihood/0"
+LOC = LIK + "/arguments/location"
+CASES = [
+    # Not JSON, or not sent as JSON.
+    Case("truncated_json", 400, "", b'{"model": {'),
+    Case("trailing_garbage", 400, "", b'{"model": {}} extra'),
+    Case("not_utf8", 400, "", b"\xff\xfe\x00{"),
+    Case("empty_body", 400, "", b""),
+    Case("text_plain", 415, "", json.dumps(base()).encode(), "text/plain"),
+    Case("form_encoded", 415, "", b"model=1", "application/x-www-form-urlencoded"),
+    Case("no_content_type", 415, "", json.dumps(base()).encode(), None),
+    Case("over_body_limit", 413, "", b'{"labels": {"x": "' + b"a" * 25_000 + b'"}}'),
+    # JSON, but of the wrong shape.
+    Case("body_is_array", 422, "", b"[]"),
+    Case("body_is_string", 422, "", b'"model"'),
+    Case("body_is_null", 422, "", b"null"),
+    Case("missing_model", 422, "/model", changed(lambda b: b.pop("model"))),
+    Case("unknown_top_member", 422, "/settings", changed(set_in(("settings",), {}))),
+    Case("model_is_list", 422, "/model", changed(set_in(("model",), []))),
+    Case("inputs_is_list", 422, "/model/inputs", changed(set_in(("model", "inputs"), []))),
+    Case("input_type_unknown", 422, "/model/inputs/y",
+         changed(set_in(("model", "inputs", "y", "type"), "complex"))),
+    Case("data_is_list", 422, "/data", changed(set_in(("data",), [1, 2]))),
+    Case("missing_data_value", 422, "/data/y", changed(lambda b: b["data"].pop("y"))),
+    Case("labels_not_strings", 422, "/labels", changed(set_in(("labels",), {"suite": 3}))),
+    Case("thresholds_wrong_type", 422, "/checks",
+         changed(set_in(("checks",), {"max_rhat": "low"}))),
+    # Distributions and names.
+    Case("unknown_prior_distribution", 422, "/model/priors/0",
+         changed(set_in(("model", "priors", 0, "distribution"), "gaussian")),
+         says=("normal", "half_cauchy", "poisson")),
+    Case("unknown_likelihood_distribution", 422, LIK,
+         changed(set_in(("model", "likelihood", 0, "distribution"), "gauss")),
+         says=("normal", "student_t")),
+    Case("wrong_argument_name", 422, LIK,
+         changed(set_in(("model", "likelihood", 0, "arguments"), {"mean": "mu", "scale": 1}))),
+    Case("undeclared_name", 422, LOC, with_location("mu + nu")),
+    Case("undeclared_observed", 422, LIK + "/observed",
+         changed(set_in(("model", "likelihood", 0, "observed"), "z"))),
+    Case("prior_on_undeclared", 422, "/model/priors/0/on",
+         changed(set_in(("model", "priors", 0, "on"), "sigma"))),
+    Case("cyclic_derived", 422, "/model/derived", changed(cyclic)),
+    Case("self_cyclic_derived", 422, "/model/derived",
+         changed(set_in(("model", "derived"), {"a": "a + 1"}))),
+    Case("unknown_without_prior", 422, "/model", changed(set_in(("model", "priors"), []))),
+    # Shapes.
+    Case("data_shorter_than_declared", 422, "/data/y",
+         changed(set_in(("data", "y"), [1.0, 2.0, 3.0]))),
+    Case("empty_array", 422, "/data/y", changed(set_in(("data", "y"), []))),
+    Case("scalar_for_vector", 422, "/data/y", changed(set_in(("data", "y"), 1.0))),
+    Case("nested_list_for_vector", 422, "/data/y",
+         changed(set_in(("data", "y"), [[1.0]] * 8))),
+    Case("expression_shape_mismatch", 422, LOC, with_location("mu + [1, 2, 3]")),
+    # Values inside data.
+    Case("nan_in_data", 422, "/data/y", raw_data_y("NaN")),
+    Case("infinity_in_data", 422, "/data/y", raw_data_y("Infinity")),
+    Case("minus_infinity_in_data", 422, "/data/y", raw_data_y("-Infinity")),
+    Case("null_in_data", 422, "/data/y", raw_data_y("null")),
+    Case("string_in_data", 422, "/data/y", raw_data_y('"0.5"')),
+    Case("boolean_in_data", 422, "/data/y", raw_data_y("true")),
+    Case("below_declared_lower", 422, "/data/k", changed(count_model)),
+    Case("above_declared_upper", 422, "/data/y", changed(
+        lambda b: b["model"]["inputs"]["y"].update({"upper": 2.0}))),
+    Case("real_for_integer_input", 422, "/data/n", changed(set_in(("data", "n"), 8.5))),
+    Case("count_observing_real", 422, LIK, changed(set_in(
+        ("model", "likelihood", 0), {"name": "obs", "observed": "y", "distribution": "poisson",
+                                      "arguments": {"rate": 1.0}}))),
+    Case("real_index", 422, LOC, with_location("[mu, mu][1.5]")),
+    Case("negative_constant_scale", 422, LIK + "/arguments/scale",
+         changed(set_in(("model", "likelihood", 0, "arguments", "scale"), -1.0))),
+    # Sampler settings and the deployment's limits.
+    Case("too_many_chains", 422, "/sampler/chains", changed(set_in(("sampler", "chains"), 9))),
+    Case("zero_chains", 422, "/sampler/chains", changed(set_in(("sampler", "chains"), 0))),
+    Case("chains_as_string", 422, "/sampler/chains",
+         changed(set_in(("sampler", "chains"), "two"))),
+    Case("too_many_draws", 422, "/sampler/draws", changed(set_in(("sampler", "draws"), 5_001))),
+    Case("warmup_plus_draws_over_limit", 422, "/sampler", changed(
+        lambda b: b["sampler"].update({"warmup_iterations": 3_000, "draws": 3_000}))),
+    Case("negative_seed", 422, "/sampler/seed", changed(set_in(("sampler", "seed"), -1))),
+    Case("fractional_seed", 422, "/sampler/seed", changed(set_in(("sampler", "seed"), 1.5))),
+    Case("unknown_method", 422, "/sampler/method",
+         changed(set_in(("sampler", "method"), "gibbs"))),
+    Case("too_many_unknowns", 422, "/model/unknowns", changed(many_unknowns)),
+    Case("initial_value_undeclared", 422, "/sampler/initial_values", changed(
+        set_in(("sampler", "initial_values"), {"nu": 1.0}))),
+    # Expressions that reach outside the language.
+    Case("deep_parentheses", 422, LOC, with_location("(" * 200 + "mu" + ")" * 200)),
+    Case("deep_calls", 422, LOC, with_location(nested(80))),
+    Case("attribute_access", 422, LOC, with_location("mu.real")),
+    Case("dunder_attribute", 422, LOC, with_location("mu.__class__")),
+    Case("underscore_name", 422, LOC, with_location("__import__")),
+    Case("import_call", 422, LOC, with_location("__import__('os').system('true')")),
+    Case("eval_call", 422, LOC, with_location("eval(mu)")),
+    Case("open_call", 422, LOC, with_location("open(mu)")),
+    Case("keyword_argument", 422, LOC, with_location("exp(x=mu)")),
+    Case("string_literal", 422, LOC, with_location("'mu'")),
+    Case("double_star_power", 422, LOC, with_location("mu ** 2")),
+    Case("lambda_syntax", 422, LOC, with_location("lambda: mu")),
+    Case("slice_syntax", 422, LOC, with_location("[mu, mu][1:2]")),
+    Case("comparison_outside_select", 422, LOC, with_location("mu < 1")),
+    Case("expression_too_long", 422, LOC, with_location(" + ".join(["mu"] * 2_600))),
+]
