@@ -92,6 +92,7 @@ def test_a_url_outside_the_allow_list_is_refused_at_submission(tmp_path, redis_u
     app.extensions["drawyard"].close()
 
 
+@pytest.mark.slow
 def test_signed_callbacks_retry_with_backoff_until_the_receiver_accepts(
     database_url, redis_url, live_service, receiver
 ) -> None:

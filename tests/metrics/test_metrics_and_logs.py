@@ -14,6 +14,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+import pytest
 import requests
 from prometheus_client.parser import text_string_to_metric_families
 from sqlalchemy import create_engine, select
@@ -60,6 +61,7 @@ def test_jobs_by_state_and_queue_depth_with_no_worker(tmp_path: Path, redis_url:
     app.extensions["drawyard"].close()
 
 
+@pytest.mark.slow
 def test_metrics_match_the_store_and_worker_logs_are_json_lines(
     database_url, redis_url, live_service
 ) -> None:
