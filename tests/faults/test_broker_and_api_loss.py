@@ -8,6 +8,7 @@ for the same body and seed, compared bit for bit.
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from service.local_stack import api_ready, start_api
 from service.local_stack import wait_until as wait_for_child
@@ -32,6 +33,7 @@ SWEEPING = {
 }
 
 
+@pytest.mark.slow
 def test_redis_restarted_empty_mid_job_the_sweeper_requeues_and_the_job_completes(
     sqlite_store: str, redis_server, redis_url: str, live_service
 ) -> None:
@@ -64,6 +66,7 @@ def test_redis_restarted_empty_mid_job_the_sweeper_requeues_and_the_job_complete
     store.close()
 
 
+@pytest.mark.slow
 def test_the_api_killed_and_restarted_mid_job_loses_nothing(
     sqlite_store: str, redis_url: str, live_service
 ) -> None:

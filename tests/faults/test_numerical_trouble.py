@@ -10,6 +10,8 @@ density must report as -inf, not raise (DEVELOPERS.md, compiled model contract).
 
 from __future__ import annotations
 
+import pytest
+
 from tests.faults.job_watch import get_json, job_ended, submit
 from tests.service.bodies import normal_mean
 
@@ -20,6 +22,7 @@ def _with_likelihood(arguments: dict, **sampler) -> dict:
     return body
 
 
+@pytest.mark.slow
 def test_hopeless_models_end_with_a_named_reason(sqlite_store: str, redis_url: str, live_service):
     service = live_service(sqlite_store, redis_url, workers=2)
     never_finite = submit(

@@ -12,6 +12,7 @@ from __future__ import annotations
 import time
 
 import numpy as np
+import pytest
 
 from service.config import load_settings
 from service.dispatch import RUN_CHAIN
@@ -35,6 +36,7 @@ FAST_LEASES = {
 }
 
 
+@pytest.mark.slow
 def test_a_killed_worker_chain_resumes_on_another_worker_from_a_timed_checkpoint(
     sqlite_store: str, redis_url: str, live_service
 ) -> None:
@@ -88,6 +90,7 @@ def _group(pid: int) -> set[int]:
     return {pid, *descendants_of(pid)}
 
 
+@pytest.mark.slow
 def test_the_same_chain_task_delivered_twice_records_one_result(
     sqlite_store: str, redis_url: str, live_service
 ) -> None:
@@ -133,6 +136,7 @@ def test_the_same_chain_task_delivered_twice_records_one_result(
     store.close()
 
 
+@pytest.mark.slow
 def test_a_chain_that_keeps_killing_its_worker_fails_after_bounded_attempts(
     sqlite_store: str, redis_url: str, live_service
 ) -> None:
