@@ -54,6 +54,8 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
     from worker import runner
 
     problems = schema_problems("submission", body)
+    if isinstance(body, dict) and (too_big := unknown_count_problems(body, settings)):
+        raise invalid(too_big)
     if isinstance(body, dict):
         # The engine checks the model against its schema and then semantically, reporting every
         # problem; ours would stop at the first layer, so the model part is left to it.

@@ -92,13 +92,17 @@ def unknown_count_problems(body: dict, settings: Settings) -> list[Problem]:
     Called on a submission the engine has accepted, so every shape entry is a whole number or the
     name of an integer input present in the data.
     """
-    unknowns = (body.get("model") or {}).get("unknowns") or {}
-    data = body.get("data") or {}
+    model = body.get("model")
+    unknowns = model.get("unknowns") if isinstance(model, dict) else None
+    data = body.get("data") if isinstance(body.get("data"), dict) else {}
     total = 0
-    for declaration in unknowns.values():
-        sizes = [entry if isinstance(entry, int) else data.get(entry, 0)
-                 for entry in (declaration or {}).get("shape", [])]
-        total += math.prod(int(size) for size in sizes)
+    # Also run before the engine's checks, so that a huge declared shape is refused before any
+    # array of that size is built; entries that are not whole numbers are left to the engine.
+    for declaration in (unknowns or {}).values() if isinstance(unknowns, dict) else ():
+        shape = declaration.get("shape", []) if isinstance(declaration, dict) else []
+        sizes = [entry if isinstance(entry, int) else data.get(entry, 0) if isinstance(entry, str)
+                 else 0 for entry in (shape if isinstance(shape, list) else [])]
+        total += math.prod(size if isinstance(size, int) and size > 0 else 0 for size in sizes)
     if total <= settings.max_unknowns:
         return []
     return [
