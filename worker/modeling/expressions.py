@@ -135,7 +135,10 @@ def tokenize(text: str) -> list[Token]:
         if c in " \t\r\n":
             i += 1
             continue
-        if c.isdigit() or (c == "." and i + 1 < n and text[i + 1].isdigit()):
+        # ASCII only: str.isdigit and str.isalpha also accept letters and digits of other scripts
+        # ("²", "٣"), which the number and name patterns do not match.
+        if (c.isascii() and c.isdigit()) or (
+                c == "." and i + 1 < n and text[i + 1].isascii() and text[i + 1].isdigit()):
             m = _NUMBER.match(text, i)
             assert m is not None
             end = m.end()
@@ -144,7 +147,7 @@ def tokenize(text: str) -> list[Token]:
             tokens.append(Token("number", m.group(), i))
             i = end
             continue
-        if c.isalpha() or c == "_":
+        if (c.isascii() and c.isalpha()) or c == "_":
             m = _NAME.match(text, i)
             assert m is not None
             word = m.group()
