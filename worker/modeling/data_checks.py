@@ -37,6 +37,10 @@ def element_pointer(root: tuple[str, ...], flat_index: int, shape: Shape) -> str
     return pointer(*root, *(int(p) for p in position))
 
 
+# Largest number of elements one declared input or unknown may have (400 MB of float64).
+MAX_ELEMENTS = 50_000_000
+
+
 class DimensionTable:
     """Sizes that shapes may name: scalar integer inputs with valid data."""
 
@@ -76,6 +80,12 @@ class DimensionTable:
                     ok = False
                 else:
                     dims.append(self.sizes[entry])
+        # A declared shape can be huge even when the body is small (a size input of 10**15); refuse
+        # it here, before any array of that size is built.
+        if ok and int(np.prod([max(d, 0) for d in dims], dtype=object)) > MAX_ELEMENTS:
+            problems.append(Problem(pointer(*at), f"{what}: the shape {list(dims)} has more than "
+                                                  f"{MAX_ELEMENTS:,} elements"))
+            ok = False
         return tuple(dims) if ok else None
 
 
