@@ -15,6 +15,7 @@ eta_j ~ N(0, 1), theta_j = mu + tau eta_j, y_j ~ N(theta_j, 1), j = 1..4. NUTS o
 
 from __future__ import annotations
 
+import multiprocessing
 from concurrent.futures import ProcessPoolExecutor
 
 import numpy as np
@@ -70,7 +71,10 @@ def _one_replication(index: int) -> list[int]:
 
 def rank_statistics() -> np.ndarray:
     """(replications, watched quantities) ranks, computed on two processes."""
-    with ProcessPoolExecutor(max_workers=2) as pool:
+    # Spawned, not forked: by this point the test process holds threads of earlier tests (log
+    # writers, HTTP clients), and a forked child can inherit one of their locks held and hang.
+    context = multiprocessing.get_context("spawn")
+    with ProcessPoolExecutor(max_workers=2, mp_context=context) as pool:
         return np.array(list(pool.map(_one_replication, range(REPLICATIONS))))
 
 
