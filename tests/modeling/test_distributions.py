@@ -18,7 +18,7 @@ import hypothesis.extra.numpy as hnp
 import numpy as np
 import pytest
 import scipy.stats as st
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as hs
 from scipy.optimize import approx_fprime
 from scipy.special import expit, softmax
@@ -330,6 +330,10 @@ GRADIENT_CASES = [c for c in CASES if c.name not in ("dirichlet",)]
 @given(data=hs.data())
 def test_gradients_match_central_differences(case: Case, data) -> None:
     x, args = draw_point(data, case)
+    if case.name == "laplace":
+        # |x - location| has a kink at 0 where no derivative exists, and a central difference
+        # straddling it averages the two sides (common practice: test smooth points only).
+        assume(np.all(np.abs(np.asarray(x) - np.asarray(args["location"])) > 1e-3))
     dist = find_distribution(case.name, set(args))
     keys = [k for k in args if k not in case.no_gradient and k != "trials"]
     wrt = frozenset(keys + ([] if dist.discrete else ["x"]))
