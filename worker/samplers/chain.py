@@ -297,7 +297,7 @@ class Chain:
         """The current (after warm-up: final) step size and metric, or proposal, as JSON values."""
         if self._metropolis:
             return self.proposal.as_json()
-        # The position lets a later job warm-start from this chain (samplers/warm_schedule.py).
+        # The position lets a later job warm-start from this chain (worker/samplers/warm_schedule.py).
         return {
             "step_size": self.step_size,
             **self.metric.as_json(),
