@@ -22,7 +22,6 @@ from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, SamplerSettings
 from worker.samplers.chain import sampling_sequence
 from worker.samplers.settings import INITIALISATIONS, METHODS, METRICS
-from worker.samplers.warm_schedule import WarmStart
 
 DEFAULT_CHAINS = 4
 DEFAULT_MAX_CHAINS = 16
@@ -364,28 +363,8 @@ def start_chain(body: dict, chain_index: int) -> ChainRun:
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
     values = _initial_values_for(resolved, chain_index)
     point = None if values is None else np.asarray(model.unconstrain(values), dtype=np.float64)
-    warm = _warm_start_for(body, chain_index)
-    chain = Chain(model, _chain_settings(resolved), seed, initial_point=point, warm_start=warm)
+    chain = Chain(model, _chain_settings(resolved), seed, initial_point=point)
     return ChainRun(model, chain, seed)
-
-
-def _warm_start_for(body: dict, chain_index: int) -> WarmStart | None:
-    """Chain ``chain_index``'s earlier adapted state from the body's ``warm_start`` member.
-
-    The service fills ``warm_start.chains`` (one record per earlier chain: ``step_size``,
-    ``inverse_metric``, ``position``) from the job it names; chains beyond the earlier job's
-    count reuse its records in turn.
-    """
-    records = (body.get("warm_start") or {}).get("chains") or []
-    if not records:
-        return None
-    record = records[chain_index % len(records)]
-    position = record.get("position")
-    return WarmStart(
-        step_size=float(record["step_size"]),
-        inverse_metric=np.asarray(record["inverse_metric"], dtype=np.float64),
-        position=None if position is None else np.asarray(position, dtype=np.float64),
-    )
 
 
 def resume_chain(body: dict, chain_index: int, blob: bytes) -> ChainRun:

@@ -85,33 +85,6 @@ class Job(Base):
     diagnostics: Mapped[dict[str, Any] | None] = mapped_column(JSON)
     verdict: Mapped[dict[str, Any] | None] = mapped_column(JSON)
     error: Mapped[str | None] = mapped_column(Text)
-    # Result reuse and warm starts (service/reuse.py, service/warm_start.py): the fingerprint of
-    # everything that fixes the draws, the job whose result this one reuses, the job it started
-    # from, and the registered model it referenced.
-    run_sha256: Mapped[str | None] = mapped_column(String(64), index=True)
-    reused_from: Mapped[str | None] = mapped_column(String(32))
-    warm_start_from: Mapped[str | None] = mapped_column(String(32))
-    model_name: Mapped[str | None] = mapped_column(String(64))
-    model_version: Mapped[int | None] = mapped_column(Integer)
-
-
-class ModelVersion(Base):
-    """One immutable registration of a model spec under a name (service/registry.py)."""
-
-    __tablename__ = "model_versions"
-    __table_args__ = (
-        UniqueConstraint("tenant", "name", "version", name="uq_model_versions_number"),
-        UniqueConstraint("tenant", "name", "spec_sha256", name="uq_model_versions_content"),
-    )
-
-    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
-    tenant: Mapped[str] = mapped_column(String(64))  # "" in open mode
-    name: Mapped[str] = mapped_column(String(64))
-    version: Mapped[int] = mapped_column(Integer)
-    spec_sha256: Mapped[str] = mapped_column(String(64))
-    spec: Mapped[dict[str, Any]] = mapped_column(JSON)
-    created_at: Mapped[datetime] = mapped_column(UtcDateTime)
-    created_by: Mapped[str | None] = mapped_column(String(64))
 
 
 class JobLabel(Base):

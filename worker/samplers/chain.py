@@ -23,7 +23,6 @@ from worker.samplers.nuts import NutsTransition
 from worker.samplers.settings import SamplerSettings
 from worker.samplers.static_hmc import StaticHmcTransition
 from worker.samplers.target import Target
-from worker.samplers.warm_schedule import WarmStart, refreshed, warm_schedule
 
 STAT_TYPES: dict[str, dict[str, type]] = {
     "nuts": {
@@ -79,20 +78,10 @@ class Chain:
         settings: SamplerSettings,
         seed: np.random.SeedSequence,
         initial_point: np.ndarray | None = None,
-        warm_start: WarmStart | None = None,
     ):
-        """``warm_start`` (NUTS and static HMC only) begins from an earlier chain's step size,
-        metric and position, with the shorter warm-up of worker/samplers/warm_schedule.py."""
         if int(target.dimension) < 1:
             raise ValueError(f"the target must have dimension >= 1, got {target.dimension}")
         self._setup(target, settings)
-        self.warm_inverse: np.ndarray | None = None
-        if warm_start is not None:
-            if settings.method == "metropolis":
-                raise ValueError("a warm start needs a Hamiltonian method (nuts or hmc)")
-            self._warm(np.asarray(warm_start.inverse_metric, dtype=np.float64))
-            if initial_point is None:
-                initial_point = warm_start.position
         self.rng = np.random.default_rng(sampling_sequence(seed, 0))
         self.iteration = 0
         self.divergences = {"warmup": 0, "sampling": 0}
@@ -111,10 +100,6 @@ class Chain:
                 self.scale_updates = 0
                 self.average_sum = 0.0
                 self.average_count = 0
-            elif warm_start is not None:
-                self.metric = Metric(settings.metric, self.warm_inverse)
-                self.step_size = float(warm_start.step_size)
-                self.dual = DualAveraging.start(self.step_size, self.goal)
             else:
                 self.metric = Metric.identity(settings.metric, self.dimension)
                 self.step_size = initial_step_size(target, self.metric, self.state, 1.0, self.rng)
@@ -132,20 +117,6 @@ class Chain:
         self._types = STAT_TYPES[settings.method]
         # A unit metric has nothing to estimate, so its warm-up is step size (or scale) only.
         self._windows = self.schedule.window_ends if settings.metric != "unit" else frozenset()
-
-    def _warm(self, inverse: np.ndarray) -> None:
-        """Switch to the warm-start schedule, keeping the earlier inverse metric to refresh."""
-        expected = (self.dimension,) * (2 if self.settings.metric == "dense" else 1)
-        if self.settings.metric != "unit" and inverse.shape != expected:
-            raise ValueError(
-                f"the warm start's inverse metric has shape {inverse.shape}; this chain's "
-                f"{self.settings.metric} metric needs {expected}"
-            )
-        if self.settings.metric == "unit":
-            inverse = np.ones(self.dimension)
-        self.warm_inverse = inverse
-        self.schedule = warm_schedule(self.settings.warmup_iterations)
-        self._windows = self.schedule.window_ends if self.settings.metric != "unit" else frozenset()
 
     def _allocate(self) -> None:
         s = self.settings
@@ -239,8 +210,6 @@ class Chain:
         if i + 1 in self._windows:
             estimate = self.estimator.regularised()
             self.estimator.reset()
-            if estimate is not None and self.warm_inverse is not None:
-                estimate = refreshed(self.warm_inverse, estimate)
             if estimate is not None:
                 self.metric = Metric(self.settings.metric, estimate)
             # A new metric changes the scale of every direction: search a fresh step size and
@@ -297,12 +266,7 @@ class Chain:
         """The current (after warm-up: final) step size and metric, or proposal, as JSON values."""
         if self._metropolis:
             return self.proposal.as_json()
-        # The position lets a later job warm-start from this chain (worker/samplers/warm_schedule.py).
-        return {
-            "step_size": self.step_size,
-            **self.metric.as_json(),
-            "position": self.state.position.tolist(),
-        }
+        return {"step_size": self.step_size, **self.metric.as_json()}
 
     # ---- snapshot / restore --------------------------------------------------------------------
 
@@ -339,9 +303,6 @@ class Chain:
         else:
             header.update(step_size=self.step_size, dual_averaging=self.dual.as_dict())
             arrays["inverse_metric"] = self.metric.inverse
-            if self.warm_inverse is not None:
-                header["warm_start"] = True
-                arrays["warm_inverse_metric"] = self.warm_inverse
         return snapshot_format.encode(header, arrays)
 
     @classmethod
@@ -356,7 +317,6 @@ class Chain:
             )
         chain = cls.__new__(cls)
         chain._setup(target, settings)
-        chain.warm_inverse = None
         chain._allocate()
         bit_generator = getattr(np.random, header["generator"]["bit_generator"])()
         bit_generator.state = header["generator"]
@@ -383,8 +343,6 @@ class Chain:
             chain.average_sum = float(header["average_sum"])
             chain.average_count = int(header["average_count"])
         else:
-            if header.get("warm_start"):
-                chain._warm(np.array(arrays["warm_inverse_metric"], dtype=np.float64))
             chain.metric = Metric(settings.metric, arrays["inverse_metric"])
             chain.step_size = float(header["step_size"])
             chain.dual = DualAveraging(**header["dual_averaging"])
