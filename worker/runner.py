@@ -28,8 +28,12 @@ DEFAULT_MAX_CHAINS = 16
 DEFAULT_MAX_DRAWS = 100_000
 MAX_SEED = 2**63 - 1  # seeds travel through JSON and SQL as signed 64-bit integers
 TREE_DEPTH_LIMIT = 30
-# "notify" (a completion callback) belongs to the service, which checks it; the engine ignores it.
-TOP_LEVEL_MEMBERS = ("model", "data", "sampler", "checks", "labels", "notify")
+# "notify" (a completion callback), "model_ref" (a registered model, resolved to "model" before the
+# engine sees it) and "reuse" (whether an earlier identical result may be returned) belong to the
+# service, which checks them; the engine ignores them. The engine checks and uses "warm_start".
+TOP_LEVEL_MEMBERS = (
+    "model", "data", "sampler", "checks", "labels", "notify", "model_ref", "reuse", "warm_start"
+)
 # settings of the runner itself, beside those of one chain (SamplerSettings)
 JOB_SETTINGS = ("chains", "seed", "initial_values")
 CHAIN_SETTINGS = tuple(f.name for f in dataclasses.fields(SamplerSettings))
