@@ -176,6 +176,32 @@ def wait_until(
         time.sleep(0.05)
 
 
+def start_on_port(
+    port: int,
+    launch: Callable[[int], ChildProcess],
+    ready: Callable[[], bool],
+    timeout: float,
+    what: str,
+) -> ChildProcess:
+    """Start a server with ``launch(port)`` and wait until ``ready()``.
+
+    ``port`` 0 means a free one; free_port() cannot reserve it, so someone else may bind it before
+    the server does: then try again on another, up to three ports in all.
+    """
+    attempts = 1 if port else 3
+    for attempt in range(attempts):
+        chosen = port or free_port()
+        child = launch(chosen)
+        try:
+            wait_until(ready, [child], timeout, f"{what} on port {chosen}")
+            return child
+        except StartupError:
+            child.stop()
+            if attempt == attempts - 1:
+                raise
+    raise AssertionError("unreachable: the last attempt returns or raises")
+
+
 # --- Redis ------------------------------------------------------------------------------------
 
 
@@ -197,11 +223,10 @@ class RedisServer:
 
     def start(self, timeout: float = 20.0) -> RedisServer:
         self.directory.mkdir(parents=True, exist_ok=True)
-        # A port picked by free_port() can be taken by someone else before redis binds it: retry.
-        attempts = 1 if self.port else 3
-        for attempt in range(attempts):
-            port = self.port or free_port()
-            self.child = start_child(
+
+        def launch(port: int) -> ChildProcess:
+            self.port = port
+            return start_child(
                 "redis-server",
                 [
                     "redis-server", "--port", str(port), "--bind", "127.0.0.1",
@@ -210,15 +235,8 @@ class RedisServer:
                 self.directory / "redis.log",
                 grace_seconds=5.0,
             )
-            self.port = port
-            try:
-                wait_until(self.ping, [self.child], timeout, f"redis-server on port {port}")
-                return self
-            except StartupError:
-                self.child.stop()
-                if attempt == attempts - 1:
-                    raise
-                self.port = 0
+
+        self.child = start_on_port(self.port, launch, self.ping, timeout, "redis-server")
         return self
 
     def ping(self) -> bool:

@@ -19,7 +19,7 @@ import uuid
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from service.local_stack import ChildProcess, StartupError, free_port, start_child, wait_until
+from service.local_stack import ChildProcess, StartupError, start_child, start_on_port
 
 DEDICATED_USER = "drawyard-pg"
 
@@ -116,11 +116,9 @@ class PostgresServer:
             )
             if init.returncode != 0:
                 raise StartupError(f"initdb failed:\n{init.stdout}\n{init.stderr}")
-        attempts = 1 if self.port else 3
-        for attempt in range(attempts):
-            port = self.port or free_port()
+        def launch(port: int) -> ChildProcess:
             self.port = port
-            self.child = start_child(
+            return start_child(
                 "postgres",
                 [
                     str(bin_dir / "postgres"), "-D", str(data), "-p", str(port),
@@ -136,14 +134,8 @@ class PostgresServer:
                 grace_seconds=15.0,
                 user=self.user,
             )
-            try:
-                wait_until(self.answers, [self.child], timeout, f"PostgreSQL on port {port}")
-                return self
-            except StartupError:
-                self.child.stop()
-                if attempt == attempts - 1:
-                    raise
-                self.port = 0
+
+        self.child = start_on_port(self.port, launch, self.answers, timeout, "PostgreSQL")
         return self
 
     def answers(self) -> bool:
