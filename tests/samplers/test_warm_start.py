@@ -86,20 +86,27 @@ def test_the_earlier_position_is_the_first_state(initialisation: str) -> None:
     assert chain.state.position.tolist() == given.tolist()
 
 
+@pytest.mark.parametrize("method", ["nuts", "metropolis"])
 @pytest.mark.parametrize("metric", ["diagonal", "dense"])
-def test_the_refresh_shrinks_the_window_covariance_toward_the_earlier_metric(metric: str) -> None:
-    settings = SamplerSettings(metric=metric, warmup_iterations=200, draws=10)
-    start = warm(metric)
+def test_the_refresh_shrinks_the_window_covariance_toward_the_earlier_metric(
+    metric, method
+) -> None:
+    settings = SamplerSettings(method=method, metric=metric, warmup_iterations=200, draws=10)
+    start = warm(metric, method=method)
     chain = Chain(target(), settings, np.random.SeedSequence(6), warm_start=start)
     window = RunningCovariance(3, metric == "dense")
     chain.run(should_stop=lambda: chain.iteration >= 50)
     while chain.iteration < 160:
         chain.step()
         window.add(chain.state.position)
+        if chain.iteration < 160:
+            current = chain.proposal.covariance if method == "metropolis" else chain.metric.inverse
+            assert current.tolist() == start.covariance.tolist()
     assert window.count == 110
     weight = 110 / (110 + EARLIER_COUNT)
     expected = weight * window.covariance() + (1 - weight) * start.covariance
-    np.testing.assert_allclose(chain.metric.inverse, expected, rtol=1e-12)
+    refreshed = chain.proposal.covariance if method == "metropolis" else chain.metric.inverse
+    np.testing.assert_allclose(refreshed, expected, rtol=1e-12)
 
 
 @pytest.mark.parametrize(
