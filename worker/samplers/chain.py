@@ -111,7 +111,8 @@ class Chain:
                 needs_gradient=not self._metropolis,
             )
             if self._metropolis:
-                if warm_start is not None and warm_start.proposal_scale is not None:
+                if warm_start is not None:
+                    assert warm_start.proposal_scale is not None  # _check_warm_start
                     self.proposal = RandomWalkProposal(
                         settings.metric, self.warm_covariance, math.log(warm_start.proposal_scale)
                     )
@@ -120,7 +121,8 @@ class Chain:
                 self.scale_updates = 0
                 self.average_sum = 0.0
                 self.average_count = 0
-            elif warm_start is not None and warm_start.step_size is not None:
+            elif warm_start is not None:
+                assert warm_start.step_size is not None  # _check_warm_start
                 self.metric = Metric(settings.metric, self.warm_covariance)
                 self.step_size = float(warm_start.step_size)
                 if warm_start.metric != settings.metric:
