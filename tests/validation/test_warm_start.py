@@ -7,8 +7,7 @@ form, and the default verdict must pass. Closed forms: Gelman et al. (2013), Bay
 Analysis, 3rd ed. (BDA3), chapter 2 (normal mean with known variance: precision-weighted mean;
 Poisson data with a gamma prior: Gamma(a + sum y, b + n)); reference values from scipy.stats.
 A record whose step size (or proposal scale) is 100 times too large or too small must end just
-as right:
-a warm start is a start, not a fixed setting. The data are invented with fixed seeds.
+as right: a warm start is a start, not a fixed setting. The data are invented with fixed seeds.
 """
 
 from __future__ import annotations
