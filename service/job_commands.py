@@ -187,6 +187,7 @@ def _report_final(job: Job, as_json: bool) -> int:
     elif job.state == "timed_out":
         _say(f"job {job.id} timed out: {job.error or 'it stopped at its wall-time limit'}")
         _say(f"  the draws made so far can be fetched (partial): drawyard fetch {job.id} draws")
+    else:
         reason = f": {job.error}" if job.error else ""
         _say(f"job {job.id} {job.state}{reason}")
     return job_exit_code(job)
