@@ -12,12 +12,14 @@ common prefix of the reference draws (arithmetic, to rounding).
 
 from __future__ import annotations
 
+import io
 import os
 import subprocess
 import sys
 from pathlib import Path
 
 import numpy as np
+import pyarrow.parquet as pq
 import pytest
 import requests
 
@@ -128,6 +130,15 @@ def test_a_job_stopped_in_sampling_keeps_the_first_draws_of_the_full_run(
         assert record["time_limit_seconds"] == LIMIT_SECONDS
         assert record["iteration"] == chain["iteration"]
         assert record["draws_shape"] == [chain["iteration"] - 100, 1]
+
+    # The download formats that carry metadata say it too (Parquet key-value metadata).
+    parquet = requests.get(job_url + "/draws?format=parquet", timeout=120)
+    assert parquet.status_code == 200
+    assert pq.read_schema(io.BytesIO(parquet.content)).metadata[b"drawyard.partial"] == b"true"
+    page = requests.get(f"{service.base_url}/jobs/{job_id}", timeout=60)
+    assert page.status_code == 200 and "Stopped at the wall-time limit" in page.text
+    metrics = requests.get(service.base_url + "/metrics", timeout=60).text
+    assert 'drawyard_jobs{state="timed_out"} 1' in metrics
 
     store = StoreView(sqlite_store)
     try:
