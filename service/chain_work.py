@@ -301,10 +301,10 @@ def run_chain(
             outcome = "cancelled"
             ended = end_chain(runtime, lease, "cancelled", None, monitor)
         elif monitor.stop_reason == "time_limit":
-            outcome = "failed"
-            limit = runtime.settings.chain_time_limit
-            reason = f"the chain ran past its time limit of {limit} s"
-            ended = end_chain(runtime, lease, "failed", reason, monitor)
+            # Stopped cleanly between iterations: what it drew so far is kept, marked partial.
+            outcome = "timed_out"
+            stop = TimeLimitStop.of(result, runtime.settings.chain_time_limit)
+            ended = store_result(runtime, lease, result, monitor, stop)
         else:
             outcome = "failed"
             reason = "the sampler stopped before the last draw"
@@ -369,11 +369,82 @@ def end_chain(
     return bool(done)
 
 
-def store_result(runtime: Runtime, lease: Lease, result: Any, monitor: ChainMonitor) -> bool:
-    """Store a finished chain's draws and statistics, only while this delivery holds the lease."""
+@dataclass(frozen=True)
+class TimeLimitStop:
+    """Where a chain stood when its wall-time limit stopped it."""
+
+    limit_seconds: int
+    iteration: int  # iterations finished, warm-up included
+    warmup_iterations: int  # warm-up iterations finished
+    draws: int  # sampling-phase draws kept
+    divergences: int  # in the phase it stopped in, as progress reports count them
+
+    @classmethod
+    def of(cls, result: Any, limit_seconds: int) -> TimeLimitStop:
+        # The engine keeps one row of statistics per finished iteration in each phase, so their
+        # lengths say exactly where it stopped (progress reports are only every 1% or so).
+        warmup = max((len(v) for v in dict(result.warmup_stats).values()), default=0)
+        draws = int(np.asarray(result.values).shape[0])
+        phase_stats = dict(result.stats) if draws else dict(result.warmup_stats)
+        divergent = phase_stats.get("divergent")
+        divergences = 0 if divergent is None else int(np.count_nonzero(divergent))
+        return cls(int(limit_seconds), warmup + draws, warmup, draws, divergences)
+
+    @property
+    def phase(self) -> str:
+        return "sampling" if self.draws else "warmup"
+
+    def reason(self, iterations_total: int) -> str:
+        where = (
+            f"in sampling, with {self.draws} draws kept"
+            if self.draws
+            else "during warm-up, before any draw"
+        )
+        return (
+            f"the chain reached its wall-time limit of {self.limit_seconds} s at iteration "
+            f"{self.iteration} of {iterations_total} ({where})"
+        )
+
+    def detail(self, iterations_total: int) -> dict[str, Any]:
+        return {
+            "time_limit_seconds": self.limit_seconds,
+            "iteration": self.iteration,
+            "iterations_total": iterations_total,
+            "draws": self.draws,
+        }
+
+
+def store_result(
+    runtime: Runtime,
+    lease: Lease,
+    result: Any,
+    monitor: ChainMonitor,
+    stopped: TimeLimitStop | None = None,
+) -> bool:
+    """Store a chain's draws and statistics, only while this delivery holds the lease.
+
+    ``stopped`` is set for a chain its wall-time limit stopped: its draws so far are stored the
+    same way and the chain ends ``timed_out`` at the iteration it reached.
+    """
     draws = encode_array(np.asarray(result.values, dtype=np.float64))
     stats = {name: encode_array(np.asarray(v)) for name, v in dict(result.stats).items()}
     now = utc_now()
+    state = "succeeded" if stopped is None else "timed_out"
+    ending: dict[str, Any] = {
+        "iteration": Chain.iterations_total,
+        "phase": monitor.phase,
+        "divergences": monitor.divergences,
+    }
+    detail: dict[str, Any] = {"draws_sha256": draws.sha256}
+    if stopped is not None:
+        total = _iterations_total(runtime, lease)
+        ending = {
+            "iteration": stopped.iteration,
+            "phase": stopped.phase,
+            "divergences": stopped.divergences,
+            "error": stopped.reason(total),
+        }
+        detail.update(stopped.detail(total))
     with transaction(runtime.sessions) as session:
         done = session.execute(
             update(Chain)
@@ -383,12 +454,10 @@ def store_result(runtime: Runtime, lease: Lease, result: Any, monitor: ChainMoni
                 Chain.state == "running",
             )
             .values(
-                state="succeeded",
+                state=state,
                 finished_at=now,
                 updated_at=now,
-                iteration=Chain.iterations_total,
-                phase=monitor.phase,
-                divergences=monitor.divergences,
+                **ending,
                 adapted=_json_ready(result.adapted),
                 checkpoint=None,
             )
@@ -417,11 +486,18 @@ def store_result(runtime: Runtime, lease: Lease, result: Any, monitor: ChainMoni
             session,
             lease.job_id,
             "chain_state",
-            "succeeded",
+            state,
             lease.chain_index,
-            {"draws_sha256": draws.sha256},
+            detail,
         )
     return True
+
+
+def _iterations_total(runtime: Runtime, lease: Lease) -> int:
+    with runtime.sessions() as session:
+        return int(
+            session.scalar(select(Chain.iterations_total).where(Chain.id == lease.chain_id)) or 0
+        )
 
 
 def _json_ready(value: Any) -> Any:

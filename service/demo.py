@@ -33,7 +33,7 @@ TRUE_SPREAD = 0.30
 TRUE_PROMOTION_EFFECT = 0.15
 DATA_SEED = 20261201
 JOB_SEED = 7
-TERMINAL = {"succeeded", "failed", "cancelled"}
+TERMINAL = {"succeeded", "failed", "cancelled", "timed_out"}
 CAUTION = (
     "Caution: passing convergence checks does not prove the model right. They say the sampler "
     "explored the posterior of the model as written, not that the model fits the bakery."

@@ -85,8 +85,9 @@ def stream_json(
     column_key: str,
     selection: Selection,
     load_chain: Callable[[int], np.ndarray],
+    partial: bool = False,
 ) -> Iterator[str]:
-    head = {"job": job_id, column_key: selection.names, "thin": selection.thin}
+    head = {"job": job_id, column_key: selection.names, "thin": selection.thin, "partial": partial}
     yield json.dumps(head)[:-1] + ',"chains":['
     for position, chain_index in enumerate(selection.chains):
         values = load_chain(chain_index)[:: selection.thin, selection.columns]

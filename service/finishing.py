@@ -10,6 +10,7 @@ from sqlalchemy.orm import undefer
 
 from service import events
 from service.callbacks import queue_callback_safely
+from service.partial_results import summarise_partial
 from service.runtime import Runtime
 from service.store.arrays import decode_array
 from service.store.engine import transaction
@@ -72,7 +73,7 @@ def finish(runtime: Runtime, job_id: str) -> str:
     if job.cancel_requested_at is not None:
         _close(runtime, job_id, "cancelled")
         return "cancelled"
-    failed = [chain for chain in chains if chain.state != "succeeded"]
+    failed = [chain for chain in chains if chain.state not in ("succeeded", "timed_out")]
     if failed:
         reasons = "; ".join(
             f"chain {c.chain_index + 1} {c.state}: {c.error or 'no reason recorded'}"
@@ -80,6 +81,8 @@ def finish(runtime: Runtime, job_id: str) -> str:
         )
         _close(runtime, job_id, "failed", error=reasons)
         return "failed"
+    if any(chain.state == "timed_out" for chain in chains):
+        return _finish_partial(runtime, job, chains)
     try:
         results = [load_chain_result(runtime, c.id, c.adapted) for c in chains]
         outcome = runner.finish_job(job.body, results)
@@ -97,3 +100,16 @@ def finish(runtime: Runtime, job_id: str) -> str:
         verdict=outcome.get("verdict"),
     )
     return "succeeded"
+
+
+def _finish_partial(runtime: Runtime, job: Job, chains: list[Chain]) -> str:
+    """Close a job a chain of which hit its wall-time limit: ``timed_out``, with what it drew."""
+    try:
+        results = [load_chain_result(runtime, c.id, c.adapted) for c in chains]
+        closing = summarise_partial(runtime, job, chains, results)
+    except Exception as error:
+        log.exception("finishing timed-out job %s failed", job.id)
+        _close(runtime, job.id, "failed", error=f"{type(error).__name__}: {error}")
+        return "failed"
+    _close(runtime, job.id, "timed_out", **closing)
+    return "timed_out"

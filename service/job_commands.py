@@ -29,6 +29,7 @@ EXIT_JOB_FAILED = 4
 EXIT_BAD_INPUT = 5
 EXIT_UNREACHABLE = 6
 EXIT_STILL_RUNNING = 7
+EXIT_TIMED_OUT = 8
 
 EXIT_CODES_HELP = f"""\
 exit codes:
@@ -40,12 +41,14 @@ exit codes:
      found problems, or a spec, data or settings file could not be read
   {EXIT_UNREACHABLE}  the service could not be reached, timed out, or answered with a server error
   {EXIT_STILL_RUNNING}  --timeout ran out while the job was still queued or running
+  {EXIT_TIMED_OUT}  the job stopped at its wall-time limit (state timed_out): its draws so far
+     can be fetched but are partial, and its verdict fails
 
 The service URL comes from --url, else the DRAWYARD_URL environment variable, else
 {DEFAULT_URL}; an API key from --api-key, else DRAWYARD_API_KEY."""
 
 FETCHABLE = ("summary", "draws", "sampler-stats", "diagnostics", "audit")
-STATES = ("queued", "running", "succeeded", "failed", "cancelled")
+STATES = ("queued", "running", "succeeded", "failed", "cancelled", "timed_out")
 
 
 class InputProblem(Exception):
@@ -158,7 +161,17 @@ def job_exit_code(job: Job) -> int:
         if job.verdict is not None and not job.verdict.passed:
             return EXIT_CHECKS_FAILED
         return EXIT_PASSED
+    if job.state == "timed_out":
+        # Not a success, and not a plain failure either: a pipeline may still want the draws.
+        return EXIT_TIMED_OUT
     return EXIT_JOB_FAILED
+
+
+def _warn_partial(job_id: str) -> None:
+    _say(
+        f"drawyard: warning: job {job_id} stopped at its wall-time limit; these results are "
+        "partial (the draws made so far), so its diagnostics describe an incomplete run"
+    )
 
 
 def _report_final(job: Job, as_json: bool) -> int:
@@ -171,6 +184,9 @@ def _report_final(job: Job, as_json: bool) -> int:
                 _say(f"  {check.check}: {check.message}")
         else:
             _say(f"job {job.id} succeeded and passed its quality checks")
+    elif job.state == "timed_out":
+        _say(f"job {job.id} timed out: {job.error or 'it stopped at its wall-time limit'}")
+        _say(f"  the draws made so far can be fetched (partial): drawyard fetch {job.id} draws")
     else:
         reason = f": {job.error}" if job.error else ""
         _say(f"job {job.id} {job.state}{reason}")
@@ -247,6 +263,9 @@ def run_fetch(args: argparse.Namespace) -> int:
         if what in ("draws", "sampler-stats"):
             columns = _names(args.quantities)
             chains = _chains(args.chains)
+            # CSV and .npz carry no metadata, so the job record says whether the draws are partial.
+            if client.job(args.job).partial:
+                _warn_partial(args.job)
             if args.output is None:
                 return _download(client, args, sys.stdout.buffer, columns, chains)
             try:
@@ -261,6 +280,8 @@ def run_fetch(args: argparse.Namespace) -> int:
             "diagnostics": client.diagnostics,
             "audit": client.audit,
         }[what](args.job)
+        if document.get("partial"):
+            _warn_partial(args.job)
         text = json.dumps(document, indent=2) + "\n"
         if args.output is None:
             sys.stdout.write(text)

@@ -51,6 +51,8 @@ def job_resource(job: Job, chains: Sequence[Chain]) -> dict[str, Any]:
         "elapsed_seconds": elapsed,
         "labels": dict(job.labels),
         "cancel_requested": job.cancel_requested_at is not None,
+        # Stopped at the wall-time limit: whatever results exist cover the draws made so far.
+        "partial": job.state == "timed_out",
         "chains": [chain_resource(c) for c in sorted(chains, key=lambda c: c.chain_index)],
         "verdict": job.verdict,
         "error": job.error,

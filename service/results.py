@@ -11,6 +11,7 @@ from sqlalchemy import select
 
 from service.draw_export import Selection
 from service.job_queries import bad_parameter, load_job
+from service.partial_results import partial_record, stop_details
 from service.problem_details import ApiProblem
 from service.runtime import Runtime
 from service.store.arrays import decode_array
@@ -20,24 +21,58 @@ from service.timestamps import rfc3339
 DIAGNOSTIC_FIELDS = ("name", "rhat", "bulk_ess", "tail_ess", "note")
 
 
-def finished_job(runtime: Runtime, job_id: str) -> tuple[Job, list[Chain]]:
+def _readable(job: Job, what: str) -> bool:
+    """Whether ``what`` ("summary", "arrays" or "complete") exists: all once succeeded; for a job
+    stopped at its wall-time limit, the arrays once any chain drew and the summary once one was
+    made, never "complete" (plots, which assume chains of one length)."""
+    if job.state == "succeeded":
+        return True
+    record = partial_record(job)
+    if record is None or what == "complete":
+        return False
+    if what == "summary":
+        return job.summary is not None
+    return any(record.get("draws_per_chain") or [])
+
+
+def finished_job(
+    runtime: Runtime, job_id: str, what: str = "complete"
+) -> tuple[Job, list[Chain]]:
     """The job if its results are readable; 409 (with Retry-After while it runs) otherwise."""
     with runtime.sessions() as session:
         job, chains = load_job(session, job_id)
-    if job.state != "succeeded":
+    if not _readable(job, what):
         headers = {"Retry-After": "2"} if job.state in ("queued", "running") else {}
+        if job.state == "timed_out":
+            detail = f"Job {job_id} timed out with nothing to show: {job.error}."
+        else:
+            detail = f"Job {job_id} is {job.state}; results exist only once it has succeeded."
         raise ApiProblem(
-            409,
-            "results-not-available",
-            "Results are not available",
-            f"Job {job_id} is {job.state}; results exist only once it has succeeded.",
-            headers=headers,
+            409, "results-not-available", "Results are not available", detail, headers=headers
         )
     return job, chains
 
 
+def is_partial(job: Job) -> bool:
+    """True for the results of a job stopped at its wall-time limit (draws so far only)."""
+    return job.state == "timed_out"
+
+
+def _partial_members(job: Job) -> dict[str, Any]:
+    record = partial_record(job)
+    members: dict[str, Any] = {"partial": is_partial(job)}
+    if record is not None:
+        members["summarised_draws_per_chain"] = record.get("summarised_draws_per_chain")
+    return members
+
+
 def summary_document(job: Job) -> dict[str, Any]:
-    return {"job": job.id, "quantities": job.summary or [], "verdict": job.verdict}
+    return {
+        "job": job.id,
+        **_partial_members(job),
+        "quantities": job.summary or [],
+        "verdict": job.verdict,
+    }
 
 
 def diagnostics_document(job: Job) -> dict[str, Any]:
@@ -46,7 +81,13 @@ def diagnostics_document(job: Job) -> dict[str, Any]:
     quantities = [
         {key: record.get(key) for key in DIAGNOSTIC_FIELDS} for record in (job.summary or [])
     ]
-    return {"job": job.id, "quantities": quantities, "sampler": sampler, "verdict": job.verdict}
+    return {
+        "job": job.id,
+        **_partial_members(job),
+        "quantities": quantities,
+        "sampler": sampler,
+        "verdict": job.verdict,
+    }
 
 
 # A comma separates names except inside brackets, where it separates indices ("L[2,1]").
@@ -176,6 +217,7 @@ def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
     for row in arrays:
         if row.kind == "stat":
             stats.setdefault(row.chain_id, {})[row.name] = row.sha256
+    stops = stop_details(runtime, job_id)
     thresholds = (job.verdict or {}).get("thresholds")
     if thresholds is None:
         with runtime.sessions() as session:
@@ -206,6 +248,7 @@ def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
         "settings": job.settings,
         "checks": thresholds,
         "software": {"api": job.api_software, "finish": job.finish_software},
+        "partial": is_partial(job),
         "chains": [
             {
                 "chain": chain.chain_index + 1,
@@ -219,6 +262,10 @@ def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
                 },
                 "started_at": rfc3339(chain.started_at),
                 "finished_at": rfc3339(chain.finished_at),
+                "iteration": chain.iteration,
+                "iterations_total": chain.iterations_total,
+                # The limit the worker applied when it stopped the chain; null unless it did.
+                "time_limit_seconds": stops.get(chain.chain_index, {}).get("time_limit_seconds"),
                 "draws_sha256": draws[chain.id].sha256 if chain.id in draws else None,
                 "draws_shape": draws[chain.id].shape if chain.id in draws else None,
                 "stats_sha256": stats.get(chain.id, {}),

@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any, TypedDict
 
-TERMINAL_STATES = frozenset({"succeeded", "failed", "cancelled"})
+TERMINAL_STATES = frozenset({"succeeded", "failed", "cancelled", "timed_out"})
 
 
 @dataclass(frozen=True)
@@ -108,6 +108,11 @@ class Job:
     @property
     def finished(self) -> bool:
         return self.state in TERMINAL_STATES
+
+    @property
+    def partial(self) -> bool:
+        """True when the job stopped at its wall-time limit: its results cover the draws so far."""
+        return bool(self.raw.get("partial", self.state == "timed_out"))
 
     @property
     def progress(self) -> float:

@@ -48,8 +48,13 @@ def download(
     load: Callable[[int], np.ndarray],
     format_name: str,
     layout: str,
+    partial: bool = False,
 ) -> Response:
-    """A 304 when the client's copy is current, else the streamed file with its strong ETag."""
+    """A 304 when the client's copy is current, else the streamed file with its strong ETag.
+
+    ``partial`` marks the draws of a job stopped at its wall-time limit, in the formats that carry
+    metadata (JSON, Parquet); CSV and .npz have none, so for them the job record says it.
+    """
     kind, column_key, value_label = RESOURCES[resource]
     chosen = [c for c in chains if c.chain_index in set(selection.chains)]
     hashes, lengths = _stored(runtime, chosen, kind)
@@ -59,11 +64,11 @@ def download(
         response.headers["ETag"] = tag
         return response
     if format_name == "json":
-        body = stream_json(job_id, column_key, selection, load)
+        body = stream_json(job_id, column_key, selection, load, partial)
     elif format_name == "csv":
         body = stream_csv(selection, load, selection.names)
     elif format_name == "parquet":
-        body = stream_parquet(selection, load, layout, value_label)
+        body = stream_parquet(selection, load, layout, value_label, partial)
     else:
         body = stream_npz(selection, load, lengths, layout, value_label, column_key)
     response = Response(stream_with_context(body), mimetype=MEDIA_TYPES[format_name])

@@ -14,7 +14,7 @@ from collections.abc import Sequence
 from service.draw_export import Selection
 
 # Bumped when the bytes written for the same arrays and query would change.
-ENCODING_VERSION = "1"
+ENCODING_VERSION = "2"  # 2: JSON and Parquet say whether the draws are partial
 
 
 def download_tag(

@@ -14,12 +14,20 @@ from service.formats.layouts import chain_block, long_columns
 from service.formats.spool import Spool
 
 MEDIA_TYPE = "application/vnd.apache.parquet"
+# File key-value metadata: "true" when the job stopped at its wall-time limit (draws so far only).
+PARTIAL_KEY = "drawyard.partial"
 
 
-def parquet_schema(names: list[str], layout: str, value_label: str) -> pa.Schema:
+def parquet_schema(
+    names: list[str], layout: str, value_label: str, partial: bool = False
+) -> pa.Schema:
+    metadata = {PARTIAL_KEY: "true" if partial else "false"}
     if layout == "wide":
         fields = [pa.field(name, pa.float64()) for name in names]
-        return pa.schema([pa.field("chain", pa.int32()), pa.field("draw", pa.int64()), *fields])
+        return pa.schema(
+            [pa.field("chain", pa.int32()), pa.field("draw", pa.int64()), *fields],
+            metadata=metadata,
+        )
     return pa.schema(
         [
             pa.field("chain", pa.int32()),
@@ -27,7 +35,8 @@ def parquet_schema(names: list[str], layout: str, value_label: str) -> pa.Schema
             # Dictionary-encoded: a name repeats once per draw, the file stores it once per group.
             pa.field(value_label, pa.dictionary(pa.int32(), pa.string())),
             pa.field("value", pa.float64()),
-        ]
+        ],
+        metadata=metadata,
     )
 
 
@@ -50,10 +59,11 @@ def stream_parquet(
     load_chain: Callable[[int], np.ndarray],
     layout: str,
     value_label: str = "quantity",
+    partial: bool = False,
 ) -> Iterator[bytes]:
     """The file's bytes: header, then one row group per chain as it is written, then the footer."""
     names = list(selection.names)
-    schema = parquet_schema(names, layout, value_label)
+    schema = parquet_schema(names, layout, value_label, partial)
     spool = Spool()
     with pq.ParquetWriter(pa.PythonFile(spool, mode="w"), schema, compression="zstd") as writer:
         for chain_index in selection.chains:

@@ -5,7 +5,7 @@
   const section = document.getElementById("job");
   if (!section || section.dataset.terminal === "yes") return;
   const url = section.dataset.statusUrl;
-  const terminal = new Set(["succeeded", "failed", "cancelled"]);
+  const terminal = new Set(["succeeded", "failed", "cancelled", "timed_out"]);
   const stateBadge = document.getElementById("job-state");
   let delay = 1000;
 

@@ -20,8 +20,9 @@ from sqlalchemy import (
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 from sqlalchemy.types import TypeDecorator
 
-JOB_STATES = ("queued", "running", "succeeded", "failed", "cancelled")
-TERMINAL_STATES = ("succeeded", "failed", "cancelled")
+# "timed_out": stopped at the wall-time limit (DRAWYARD_CHAIN_TIME_LIMIT), draws so far kept.
+JOB_STATES = ("queued", "running", "succeeded", "failed", "cancelled", "timed_out")
+TERMINAL_STATES = ("succeeded", "failed", "cancelled", "timed_out")
 
 
 class UtcDateTime(TypeDecorator):

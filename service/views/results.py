@@ -12,6 +12,7 @@ from service.results import (
     draw_columns,
     draw_loader,
     finished_job,
+    is_partial,
     select_columns,
     stat_loader,
     stat_names,
@@ -24,13 +25,13 @@ results = Blueprint("results", __name__, url_prefix="/v1/jobs/<job_id>")
 
 @results.get("/summary")
 def summary(job_id: str) -> Response:
-    job, _ = finished_job(runtime(), job_id)
+    job, _ = finished_job(runtime(), job_id, "summary")
     return jsonify(summary_document(job))
 
 
 @results.get("/diagnostics")
 def diagnostics(job_id: str) -> Response:
-    job, _ = finished_job(runtime(), job_id)
+    job, _ = finished_job(runtime(), job_id, "summary")
     return jsonify(diagnostics_document(job))
 
 
@@ -38,7 +39,7 @@ def diagnostics(job_id: str) -> Response:
 def draws(job_id: str) -> Response:
     format_name = chosen_format(request)
     layout = chosen_layout(request, format_name)
-    _, chains = finished_job(runtime(), job_id)
+    job, chains = finished_job(runtime(), job_id, "arrays")
     names = draw_columns(runtime(), chains)
     selection = select_columns(
         names,
@@ -49,7 +50,8 @@ def draws(job_id: str) -> Response:
     )
     load = draw_loader(runtime(), chains)
     return download(
-        runtime(), request, "draws", job_id, chains, selection, load, format_name, layout
+        runtime(), request, "draws", job_id, chains, selection, load, format_name, layout,
+        is_partial(job),
     )
 
 
@@ -57,7 +59,7 @@ def draws(job_id: str) -> Response:
 def sampler_stats(job_id: str) -> Response:
     format_name = chosen_format(request)
     layout = chosen_layout(request, format_name)
-    _, chains = finished_job(runtime(), job_id)
+    job, chains = finished_job(runtime(), job_id, "arrays")
     names = stat_names(runtime(), chains)
     selection = select_columns(
         names,
@@ -69,7 +71,8 @@ def sampler_stats(job_id: str) -> Response:
     )
     load = stat_loader(runtime(), chains, names)
     return download(
-        runtime(), request, "sampler-stats", job_id, chains, selection, load, format_name, layout
+        runtime(), request, "sampler-stats", job_id, chains, selection, load, format_name, layout,
+        is_partial(job),
     )
 
 

@@ -51,6 +51,14 @@ ADVICE: dict[str, Advice] = {
         "acceptance (for example to 0.95) so the sampler takes smaller steps. The scatter plot "
         "marks the divergent draws: where they cluster is where the geometry is hard.",
     ),
+    "wall_time_limit": Advice(
+        "Stopped at the wall-time limit",
+        "At least one chain ran out of time before its last draw, so the draws are partial and "
+        "every diagnostic above describes a shorter run than the one asked for.",
+        "Run the job again with fewer warm-up iterations or draws, or ask the operator for a "
+        "higher DRAWYARD_CHAIN_TIME_LIMIT; a model that is slow per iteration may also gain from "
+        "reparameterisation.",
+    ),
     "min_ebfmi": Advice(
         "Low energy fraction of missing information (E-BFMI)",
         "Between trajectories the sampler's energy changes too little compared with its spread, "

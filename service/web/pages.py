@@ -10,6 +10,7 @@ from werkzeug.wrappers import Response
 from service.demo import demo_submission
 from service.job_queries import JobFilter, cancel_job, get_job, list_jobs
 from service.job_resources import job_resource
+from service.partial_results import partial_record
 from service.plots.job_arrays import quantity_names
 from service.problem_details import ApiProblem
 from service.store.models import JOB_STATES, TERMINAL_STATES, Chain, Job
@@ -106,7 +107,18 @@ def job_page(job_id: str) -> str:
             y_name=_pick(names, request.args.get("y"), second),
             downloads=DOWNLOADS,
         )
+    elif job.state == "timed_out":
+        context["partial_downloads"] = partial_downloads(job)
     return render_template("job.html", **context)
+
+
+def partial_downloads(job: Job) -> list[tuple[str, str, str | None]]:
+    """The downloads a timed-out job has: its draws so far, and a summary when one was made."""
+    record = partial_record(job) or {}
+    if not any(record.get("draws_per_chain") or []):
+        return [item for item in DOWNLOADS if item[1] == "audit"]
+    summarised = job.summary is not None
+    return [i for i in DOWNLOADS if summarised or i[1] not in ("summary", "diagnostics")]
 
 
 @web.post("/jobs/<job_id>/cancel")
