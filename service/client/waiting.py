@@ -10,7 +10,7 @@ from typing import TextIO
 
 from service.client.errors import ClientError
 from service.client.http import DrawyardClient
-from service.client.records import Job
+from service.client.records import TERMINAL_STATES, Job
 
 BAR_WIDTH = 30
 
@@ -29,7 +29,8 @@ def progress_line(job: Job) -> str:
     filled = round(share * BAR_WIDTH)
     phases = sorted({c.phase for c in job.chains if c.phase})
     divergences = sum(c.divergences for c in job.chains)
-    done = sum(1 for c in job.chains if c.state == "succeeded")
+    # A chain that stopped (at the time limit, say) is done too: it will not move the bar again.
+    done = sum(1 for c in job.chains if c.state in TERMINAL_STATES)
     return (
         f"[{'#' * filled}{'.' * (BAR_WIDTH - filled)}] {share:4.0%} {job.state:<9} "
         f"chains {done}/{len(job.chains)} done  {'/'.join(phases) or '-':<15} "
