@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from typing import Any
+
 from flask import Blueprint, Response, jsonify, request
 
 from service.formats.downloads import download
@@ -37,42 +40,44 @@ def diagnostics(job_id: str) -> Response:
 
 @results.get("/draws")
 def draws(job_id: str) -> Response:
-    format_name = chosen_format(request)
-    layout = chosen_layout(request, format_name)
-    job, chains = finished_job(runtime(), job_id, "arrays")
-    names = draw_columns(runtime(), chains)
-    selection = select_columns(
-        names,
-        chains,
-        request.args.get("quantities"),
-        request.args.get("chains"),
-        request.args.get("thin"),
-    )
-    load = draw_loader(runtime(), chains)
-    return download(
-        runtime(), request, "draws", job_id, chains, selection, load, format_name, layout,
-        is_partial(job),
+    return _array_download(
+        job_id, "draws", "quantities", draw_columns,
+        lambda chains, names: draw_loader(runtime(), chains),
     )
 
 
 @results.get("/sampler-stats")
 def sampler_stats(job_id: str) -> Response:
+    return _array_download(
+        job_id, "sampler-stats", "statistics", stat_names,
+        lambda chains, names: stat_loader(runtime(), chains, names),
+    )
+
+
+def _array_download(
+    job_id: str,
+    kind: str,
+    parameter: str,
+    columns_of: Callable[[Any, list[Any]], list[str]],
+    loader_of: Callable[[list[Any], list[str]], Any],
+) -> Response:
+    """A finished job's per-chain arrays in the format, layout and selection the request asks for;
+    ``parameter`` is the query parameter that picks the columns."""
     format_name = chosen_format(request)
     layout = chosen_layout(request, format_name)
     job, chains = finished_job(runtime(), job_id, "arrays")
-    names = stat_names(runtime(), chains)
+    names = columns_of(runtime(), chains)
     selection = select_columns(
         names,
         chains,
-        request.args.get("statistics"),
+        request.args.get(parameter),
         request.args.get("chains"),
         request.args.get("thin"),
-        parameter="statistics",
+        parameter=parameter,
     )
-    load = stat_loader(runtime(), chains, names)
     return download(
-        runtime(), request, "sampler-stats", job_id, chains, selection, load, format_name, layout,
-        is_partial(job),
+        runtime(), request, kind, job_id, chains, selection, loader_of(chains, names),
+        format_name, layout, is_partial(job),
     )
 
 
