@@ -87,13 +87,12 @@ def registration_problems(body: Any, settings: Any) -> list[Problem]:
     """
     from worker.modeling import check_model
 
-    problems = [
-        p
-        for p in schema_problems("model_registration", body)
-        if not (p.pointer == "/model" or p.pointer.startswith("/model/"))
-    ]
+    problems = schema_problems("model_registration", body)
     if not isinstance(body, dict):
         return problems
+    # The spec itself is the engine's to check (its messages are the ones a job would get), and
+    # a missing spec is reported at /model rather than at the root.
+    problems = [p for p in problems if p.pointer != "" and not p.pointer.startswith("/model")]
     if "model" not in body:
         return problems + [Problem("/model", "The registration has no model spec.")]
     too_big = unknown_count_problems(body, settings)
