@@ -22,6 +22,15 @@ from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, SamplerSettings
 from worker.samplers.chain import sampling_sequence
 from worker.samplers.settings import INITIALISATIONS, METHODS, METRICS
+from worker.warm_start import (
+    chain_state,
+    member_problems,
+    missing_chains_problem,
+    record_problems,
+    warm_start_from,
+)
+
+__all__ = ["warm_start_from"]  # re-exported: in-process users build a warm start from a result
 
 DEFAULT_CHAINS = 4
 DEFAULT_MAX_CHAINS = 16
@@ -238,9 +247,29 @@ def check_submission(
     sampler_found = sampler_problems(body.get("sampler"), max_chains, max_draws)
     problems.extend(sampler_found)
     problems.extend(check_thresholds(body.get("checks")))
+    problems.extend(member_problems(body.get("warm_start"), max_chains))
     if not problems:
         problems.extend(_initial_value_problems(body))
+    if not problems:
+        problems.extend(warm_start_problems(body))
     return problems
+
+
+def warm_start_problems(body: dict, model: Any = None) -> list[Problem]:
+    """Problems with the records of ``body["warm_start"]["chains"]`` against the body's model.
+
+    ``check_submission`` calls it; the service calls it again after it fills ``chains`` from the
+    earlier job (those records fail here when that job's model differs in dimension, or the new
+    data make its positions impossible). ``model`` saves a compilation when the caller has one.
+    """
+    member = body.get("warm_start")
+    if not isinstance(member, dict) or not member.get("chains"):
+        return []
+    structural = member_problems(member)
+    if structural:
+        return structural
+    method = (body.get("sampler") or {}).get("method", SamplerSettings().method)
+    return record_problems(member, method, model if model is not None else _compile(body))
 
 
 # ---- settings and seeds ----------------------------------------------------------------------
@@ -367,8 +396,23 @@ def start_chain(body: dict, chain_index: int) -> ChainRun:
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
     values = _initial_values_for(resolved, chain_index)
     point = None if values is None else np.asarray(model.unconstrain(values), dtype=np.float64)
-    chain = Chain(model, _chain_settings(resolved), seed, initial_point=point)
+    warm = None
+    if body.get("warm_start") is not None:
+        _require_warm_records(body, model)
+        warm = chain_state(body["warm_start"], chain_index, resolved["method"])
+    chain = Chain(model, _chain_settings(resolved), seed, initial_point=point, warm_start=warm)
     return ChainRun(model, chain, seed)
+
+
+def _require_warm_records(body: dict, model: Any = None) -> None:
+    """Refuse a warm start without records, or with records that do not fit the model."""
+    member = body["warm_start"]
+    if isinstance(member, dict) and "chains" not in member:
+        raise InvalidSubmission([missing_chains_problem()])
+    # the deployment's limit on the number of records was applied when the body was checked
+    problems = member_problems(member) or warm_start_problems(body, model)
+    if problems:
+        raise InvalidSubmission(problems)
 
 
 def resume_chain(body: dict, chain_index: int, blob: bytes) -> ChainRun:
@@ -424,6 +468,8 @@ def run_in_process(body: dict) -> dict:
     problems = check_submission(body)
     if problems:
         raise InvalidSubmission(problems)
+    if body.get("warm_start") is not None:
+        _require_warm_records(body)
     resolved = resolve_sampler(body.get("sampler"))
     job = {**body, "sampler": {k: v for k, v in resolved.items() if v is not None}}
     results = [start_chain(job, i).run() for i in range(resolved["chains"])]

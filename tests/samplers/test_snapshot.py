@@ -16,6 +16,7 @@ import pytest
 from tests.samplers.targets import Gaussian
 from worker.samplers import Chain, SamplerSettings, SnapshotError
 from worker.samplers.metric_adaptation import warmup_schedule
+from worker.samplers.warm_schedule import WarmStart, warm_schedule
 
 STOPS = [0, 1, 17, 29, 30, 31, 39, 40, 41, 99, 100, 101, 179, 180, 181, 199, 200, 201, 263]
 
@@ -81,3 +82,32 @@ def test_restore_rejects_foreign_bytes_and_wrong_dimension() -> None:
     blob = Chain(target(), SamplerSettings(), np.random.SeedSequence(2)).snapshot()
     with pytest.raises(SnapshotError, match="dimension"):
         Chain.restore(Gaussian(np.zeros(2), np.eye(2)), blob)
+
+
+# A warm start's schedule for 200 iterations has one refresh window, [50, 160).
+WARM_STOPS = [0, 1, 49, 50, 51, 159, 160, 161, 199, 200, 201, 263]
+
+
+@pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
+@pytest.mark.parametrize("metric", ["diagonal", "dense", "unit"])
+def test_a_warm_started_chain_resumes_anywhere_with_identical_draws(method, metric) -> None:
+    assert warm_schedule(200).windows == ((50, 160),)
+    covariance = target().covariance
+    metropolis = method == "metropolis"
+    start = WarmStart(
+        metric="dense",
+        covariance=covariance * 1.2,
+        step_size=None if metropolis else 0.6,
+        proposal_scale=1.4 if metropolis else None,
+        position=np.array([0.3, -1.2, 2.2]),
+    )
+    settings = SamplerSettings(method=method, metric=metric, warmup_iterations=200, draws=100)
+    seed = np.random.SeedSequence(79)
+    reference = Chain(target(), settings, seed, warm_start=start).run()
+    for stop in WARM_STOPS:
+        first = Chain(target(), settings, seed, warm_start=start)
+        partial = first.run(should_stop=lambda c=first, s=stop: c.iteration >= s)
+        assert partial.completed is False
+        resumed = Chain.restore(target(), first.snapshot())
+        assert resumed.schedule == first.schedule
+        assert same_output(resumed.run(), reference), f"{method}/{metric}: differs after {stop}"

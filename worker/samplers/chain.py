@@ -23,6 +23,13 @@ from worker.samplers.nuts import NutsTransition
 from worker.samplers.settings import SamplerSettings
 from worker.samplers.static_hmc import StaticHmcTransition
 from worker.samplers.target import Target
+from worker.samplers.warm_schedule import (
+    WarmStart,
+    converted,
+    refreshed,
+    warm_dual_averaging,
+    warm_schedule,
+)
 
 STAT_TYPES: dict[str, dict[str, type]] = {
     "nuts": {
@@ -78,10 +85,19 @@ class Chain:
         settings: SamplerSettings,
         seed: np.random.SeedSequence,
         initial_point: np.ndarray | None = None,
+        warm_start: WarmStart | None = None,
     ):
+        """``warm_start`` begins from an earlier chain's adapted state and final position, with
+        the shorter warm-up of worker/samplers/warm_schedule.py; ``initial_point``, when given,
+        wins over the earlier position."""
         if int(target.dimension) < 1:
             raise ValueError(f"the target must have dimension >= 1, got {target.dimension}")
         self._setup(target, settings)
+        if warm_start is not None:
+            self._check_warm_start(warm_start)
+            self._warm(converted(warm_start.covariance, settings.metric, self.dimension))
+            if initial_point is None:
+                initial_point = warm_start.position
         self.rng = np.random.default_rng(sampling_sequence(seed, 0))
         self.iteration = 0
         self.divergences = {"warmup": 0, "sampling": 0}
@@ -96,10 +112,27 @@ class Chain:
                 needs_gradient=not self._metropolis,
             )
             if self._metropolis:
-                self.proposal = RandomWalkProposal.initial(settings.metric, self.dimension)
+                if warm_start is not None and warm_start.proposal_scale is not None:
+                    self.proposal = RandomWalkProposal(
+                        settings.metric, self.warm_covariance, math.log(warm_start.proposal_scale)
+                    )
+                else:
+                    self.proposal = RandomWalkProposal.initial(settings.metric, self.dimension)
                 self.scale_updates = 0
                 self.average_sum = 0.0
                 self.average_count = 0
+            elif warm_start is not None and warm_start.step_size is not None:
+                self.metric = Metric(settings.metric, self.warm_covariance)
+                self.step_size = float(warm_start.step_size)
+                if warm_start.metric == settings.metric:
+                    self.dual = warm_dual_averaging(self.step_size, self.goal)
+                else:
+                    # Another kind of metric changes the units of the step size: search from the
+                    # earlier one as a cold start searches from 1.
+                    self.step_size = initial_step_size(
+                        target, self.metric, self.state, self.step_size, self.rng
+                    )
+                    self.dual = DualAveraging.start(self.step_size, self.goal)
             else:
                 self.metric = Metric.identity(settings.metric, self.dimension)
                 self.step_size = initial_step_size(target, self.metric, self.state, 1.0, self.rng)
@@ -117,6 +150,29 @@ class Chain:
         self._types = STAT_TYPES[settings.method]
         # A unit metric has nothing to estimate, so its warm-up is step size (or scale) only.
         self._windows = self.schedule.window_ends if settings.metric != "unit" else frozenset()
+        self.warm_covariance: np.ndarray | None = None
+
+    def _check_warm_start(self, warm: WarmStart) -> None:
+        # The runner reports these as problems with pointers first; this guards direct callers.
+        needed = "proposal_scale" if self._metropolis else "step_size"
+        if getattr(warm, needed) is None:
+            raise ValueError(f"a {self.settings.method} chain's warm start needs a {needed}")
+        d = self.dimension
+        if np.shape(warm.covariance) not in ((d,), (d, d)):
+            raise ValueError(
+                f"the warm start's metric has shape {np.shape(warm.covariance)}; the target has "
+                f"dimension {d}"
+            )
+        if warm.position is not None and np.shape(warm.position) != (d,):
+            raise ValueError(
+                f"the warm start's position has shape {np.shape(warm.position)}; expected ({d},)"
+            )
+
+    def _warm(self, covariance: np.ndarray) -> None:
+        """Switch to the warm-start schedule, keeping the earlier metric to refresh toward."""
+        self.warm_covariance = np.array(covariance, dtype=np.float64)
+        self.schedule = warm_schedule(self.settings.warmup_iterations)
+        self._windows = self.schedule.window_ends if self.settings.metric != "unit" else frozenset()
 
     def _allocate(self) -> None:
         s = self.settings
@@ -207,7 +263,16 @@ class Chain:
         self.step_size = self.dual.update(acceptance)
         if self._windows and self.schedule.in_window(i):
             self.estimator.add(self.state.position)
-        if i + 1 in self._windows:
+        if i + 1 in self._windows and self.warm_covariance is not None:
+            estimate = refreshed(self.warm_covariance, self.estimator)
+            self.estimator.reset()
+            if estimate is not None:
+                self.metric = Metric(self.settings.metric, estimate)
+            # The refreshed metric is close to the one the step size was adapted to, so the
+            # averaged step size so far is a better start than a fresh one-step search.
+            self.step_size = self.dual.final_step_size()
+            self.dual = warm_dual_averaging(self.step_size, self.goal)
+        elif i + 1 in self._windows:
             estimate = self.estimator.regularised()
             self.estimator.reset()
             if estimate is not None:
@@ -228,7 +293,15 @@ class Chain:
         proposal.log_scale = min(max(proposal.log_scale, -LOG_SCALE_LIMIT), LOG_SCALE_LIMIT)
         if self._windows and self.schedule.in_window(i):
             self.estimator.add(self.state.position)
-        if i + 1 in self._windows:
+        if i + 1 in self._windows and self.warm_covariance is not None:
+            estimate = refreshed(self.warm_covariance, self.estimator)
+            self.estimator.reset()
+            if estimate is not None:
+                # A refresh changes the shape a little: the adapted scale still fits it.
+                self.proposal = RandomWalkProposal(
+                    self.settings.metric, estimate, self.proposal.log_scale
+                )
+        elif i + 1 in self._windows:
             estimate = self.estimator.regularised()
             self.estimator.reset()
             if estimate is not None:
@@ -263,10 +336,12 @@ class Chain:
         )
 
     def adapted(self) -> dict:
-        """The current (after warm-up: final) step size and metric, or proposal, as JSON values."""
+        """The current (after warm-up: final) step size and metric, or proposal, and position, as
+        JSON values; a later job can warm-start from it (worker/samplers/warm_schedule.py)."""
+        position = self.state.position.tolist()
         if self._metropolis:
-            return self.proposal.as_json()
-        return {"step_size": self.step_size, **self.metric.as_json()}
+            return {**self.proposal.as_json(), "position": position}
+        return {"step_size": self.step_size, **self.metric.as_json(), "position": position}
 
     # ---- snapshot / restore --------------------------------------------------------------------
 
@@ -292,6 +367,9 @@ class Chain:
             **{f"stat_{k}": v[:done_draws] for k, v in self.stats.items()},
             **{f"warmup_stat_{k}": v[:done_warmup] for k, v in self.warmup_stats.items()},
         }
+        if self.warm_covariance is not None:
+            header["warm_start"] = True
+            arrays["warm_covariance"] = self.warm_covariance
         if self._metropolis:
             header.update(
                 log_scale=self.proposal.log_scale,
@@ -317,6 +395,8 @@ class Chain:
             )
         chain = cls.__new__(cls)
         chain._setup(target, settings)
+        if header.get("warm_start"):
+            chain._warm(arrays["warm_covariance"])
         chain._allocate()
         bit_generator = getattr(np.random, header["generator"]["bit_generator"])()
         bit_generator.state = header["generator"]

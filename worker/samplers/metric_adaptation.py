@@ -99,13 +99,11 @@ class RunningCovariance:
         None when fewer than two draws were seen or the chain did not move (zero or non-finite
         spread); the caller then keeps the metric it had.
         """
-        if self.count < 2:
+        covariance = self.covariance()
+        if covariance is None:
             return None
-        covariance = self.scatter / (self.count - 1)
         variances = np.diag(covariance) if self.dense else covariance
         scale = float(np.mean(variances))
-        if not np.isfinite(scale) or scale <= 0.0 or not np.all(np.isfinite(covariance)):
-            return None
         weight = self.count / (self.count + SHRINKAGE_COUNT)
         if self.dense:
             shrunk = weight * covariance + (1.0 - weight) * scale * np.eye(len(self.mean))
@@ -117,6 +115,21 @@ class RunningCovariance:
             return shrunk
         shrunk = weight * covariance + (1.0 - weight) * scale
         return shrunk if np.all(shrunk > 0.0) else None
+
+    def covariance(self) -> np.ndarray | None:
+        """The window's sample covariance (variances when diagonal), or None if unusable.
+
+        None when fewer than two draws were seen or the chain did not move (zero or non-finite
+        spread).
+        """
+        if self.count < 2:
+            return None
+        covariance = self.scatter / (self.count - 1)
+        variances = np.diag(covariance) if self.dense else covariance
+        scale = float(np.mean(variances))
+        if not np.isfinite(scale) or scale <= 0.0 or not np.all(np.isfinite(covariance)):
+            return None
+        return covariance
 
     def arrays(self, prefix: str) -> dict[str, np.ndarray]:
         return {f"{prefix}mean": self.mean, f"{prefix}scatter": self.scatter}
