@@ -27,7 +27,7 @@ from service.schemas import schema_problems
 from service.store.engine import transaction
 from service.store.models import Chain, Job, JobLabel, utc_now
 from service.versions import software_versions
-from service.warm_start import WarmStart, resolve_warm_start
+from service.warm_start import DEFAULT_WARM_WARMUP, WarmStart, resolve_warm_start
 from worker.problems import Problem, escape_token
 
 JOB_ID = re.compile(r"[0-9a-f]{32}")
@@ -112,6 +112,8 @@ def validate(
         first = model_source_problems(body) if earlier is None else list(earlier)
         problems = _merged(first, problems)
         engine_found = runner.check_submission(body, settings.max_chains, settings.max_draws)
+        if earlier is not None:
+            engine_found = [_about_the_earlier_job(p) for p in engine_found]
         if "model_ref" in body and "model" not in body:
             # An unresolved reference is already reported at /model_ref.
             engine_found = [p for p in engine_found if p.pointer != "/model"]
@@ -128,6 +130,19 @@ def validate(
     if problems:
         raise invalid(problems)
     return stored, resolved
+
+
+def _about_the_earlier_job(problem: Problem) -> Problem:
+    """An engine problem with the filled-in warm_start.chains, said of the job the body named.
+
+    The submitter sent only ``warm_start.job``; a pointer into records they never saw would not
+    tell them what to change.
+    """
+    if not _under(problem.pointer, "/warm_start/chains"):
+        return problem
+    parts = problem.pointer.split("/")
+    chain = f"chain {int(parts[3]) + 1}" if len(parts) > 3 and parts[3].isdigit() else "chains"
+    return Problem("/warm_start/job", f"The earlier job's {chain}: {problem.message}")
 
 
 def _under(where: str, root: str) -> bool:
@@ -218,6 +233,10 @@ def prepare(runtime: Runtime, body: Any) -> Prepared:
             if isinstance(outcome, WarmStart):
                 warm = outcome
                 engine_body["warm_start"] = {"job": warm.source, "chains": warm.chains}
+                if "warmup_iterations" not in sampler:
+                    # The shorter warm-up is the point of a warm start; it is recorded like
+                    # any setting (and is part of the reuse fingerprint).
+                    engine_body["sampler"] = {**sampler, "warmup_iterations": DEFAULT_WARM_WARMUP}
             else:
                 problems.extend(outcome)
     stored, resolved = validate(engine_body, runtime.settings, problems)

@@ -1,7 +1,8 @@
 """Warm starts, the service's side: check the earlier job a submission names, hand its state on.
 
 A submission's ``"warm_start": {"job": id}`` names an earlier job of the same tenant. It must have
-succeeded, be of the same model, and the new job's method must be one the engine can warm-start.
+succeeded, be of the same model, and have used a method of the new job's family (see
+METHOD_FAMILIES).
 "Same model" means the same spec hash, or, when both jobs ran registered models, the same model
 name with the same ``unknowns`` declarations (a new version may change priors or the likelihood,
 the nightly-refit case, but the parameter layout must be the one the adapted state belongs to;
@@ -24,8 +25,15 @@ from service.store.models import Chain, Job, ModelVersion
 from worker.problems import Problem
 
 POINTER = "/warm_start/job"
-# Methods whose adapted state (step size and inverse metric) a new chain can start from.
-WARM_START_METHODS = ("nuts", "hmc")
+# What an earlier chain's adapted state holds depends on the method's family: a step size and an
+# inverse metric (NUTS, static HMC) or a proposal covariance and scale (adaptive Metropolis). The
+# engine (worker/warm_start.py) starts a chain from a record of its own family only.
+METHOD_FAMILIES = {"nuts": "Hamiltonian", "hmc": "Hamiltonian", "metropolis": "Metropolis"}
+WARM_START_METHODS = tuple(METHOD_FAMILIES)
+# The warm-up a warm-started job gets when its submission sets none: a fifth of the cold default
+# (1000). The earlier state is close for a refit; the engine's warm schedule (settle, one metric
+# refresh, final step size) needs at least 20 iterations to refresh the metric at all.
+DEFAULT_WARM_WARMUP = 200
 
 
 @dataclass(frozen=True)
@@ -93,12 +101,13 @@ def resolve_warm_start(
                     )
                 ]
         source_method = (source.settings or {}).get("method")
-        if source_method not in WARM_START_METHODS:
+        if METHOD_FAMILIES.get(source_method) != METHOD_FAMILIES[method]:
             return [
                 Problem(
                     POINTER,
                     f"Job {job_id} used the method {source_method!r}, whose adapted state a "
-                    f"warm start cannot use ({', '.join(WARM_START_METHODS)} can).",
+                    f"{method} job cannot start from; warm-start from a job of the "
+                    f"{METHOD_FAMILIES[method]} family.",
                 )
             ]
         records = session.scalars(

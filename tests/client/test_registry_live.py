@@ -18,6 +18,7 @@ import requests
 
 from service.client import DrawyardClient
 from service.job_commands import EXIT_BAD_INPUT, EXIT_PASSED
+from service.warm_start import DEFAULT_WARM_WARMUP
 from tests.client.test_client_cli import drawyard
 from tests.security.access_helpers import create_key
 from tests.service.bodies import Y, normal_mean, posterior_mean_sd
@@ -42,8 +43,10 @@ def write_files(folder: Path) -> dict[str, Path]:
     paths["y.csv"].write_text("y\n" + "\n".join(repr(v) for v in Y) + "\n")
     paths["n.json"].write_text(json.dumps({"n": len(Y)}))
     paths["settings.json"].write_text(
-        json.dumps({"sampler": {"chains": 2, "warmup_iterations": 200, "draws": 300}})
+        json.dumps({"sampler": {"chains": 2, "warmup_iterations": 1000, "draws": 300}})
     )
+    paths["refit.json"] = folder / "refit.json"
+    paths["refit.json"].write_text(json.dumps({"sampler": {"chains": 2, "draws": 300}}))
     return paths
 
 
@@ -110,13 +113,22 @@ def test_register_submit_by_name_reuse_and_warm_start_with_keys(
 
     # Version 2 (another prior, the same unknowns) starts from the run of version 1.
     warm = cli("submit", "--model", "demand", str(files["y.csv"]), "--data", str(files["n.json"]),
-               "--settings", str(files["settings.json"]), "--seed", "32", *CHECKS,
+               "--settings", str(files["refit.json"]), "--seed", "32", *CHECKS,
                "--warm-start", ran_id, "--wait", "--interval", "0.2")  # fmt: skip
     assert warm.returncode == EXIT_PASSED, warm.stderr + service.logs()
     warm_job = client.job(warm.stdout.splitlines()[0])
     assert warm_job.raw["warm_start_from"] == ran_id
     assert warm_job.raw["model_ref"]["version"] == 2
-    assert client.audit(warm_job.id)["warm_start_from"] == ran_id
+    warm_audit = client.audit(warm_job.id)
+    assert warm_audit["warm_start_from"] == ran_id
+    # The shorter warm-up: the service's default for warm starts, against 1000 for the cold run.
+    assert warm_audit["settings"]["warmup_iterations"] == DEFAULT_WARM_WARMUP
+    assert client.audit(ran_id)["settings"]["warmup_iterations"] == 1000
+    assert all(c.iterations_total == DEFAULT_WARM_WARMUP + 300 for c in warm_job.chains)
+    record = next(q for q in client.summary(warm_job.id)["quantities"] if q["name"] == "mu")
+    # BDA3 section 2.5 with version 2's prior N(0, 5^2): precision 1/25 + n, mean sum(y)/precision.
+    refit_mean = sum(Y) / (1 / 25 + len(Y))
+    assert abs(record["mean"] - refit_mean) < 5 * record["mcse_mean"]
 
     # A warm start from a job this tenant cannot see is bad input, and nothing is made.
     other = create_key(database_url, "elsewhere").secret

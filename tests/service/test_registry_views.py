@@ -20,6 +20,7 @@ from sqlalchemy import func, select
 from service.chain_work import run_chain
 from service.finishing import finish
 from service.store.models import ChainArray, Job, ModelVersion
+from service.warm_start import DEFAULT_WARM_WARMUP
 from tests.security.access_helpers import create_key
 from tests.service.bodies import normal_mean
 from tests.service.response_contract import check_flask
@@ -320,7 +321,13 @@ def test_warm_start_checks_and_fills_in_the_earlier_chains_adapted_state(app, qu
         stored = session.scalar(select(Job.body).where(Job.id == job["id"]))
     assert stored["warm_start"] == {"job": earlier["id"], "chains": list(adapted)}
     inline = {**normal_mean(seed=15), "warm_start": {"job": earlier["id"]}}
-    assert call(client, "POST", "/v1/jobs", inline)[0].status_code == 202  # same spec hash
+    del inline["sampler"]["warmup_iterations"]
+    response, job = call(client, "POST", "/v1/jobs", inline)  # the same spec hash
+    assert response.status_code == 202
+    # Without a warm-up length of its own a warm start gets the shorter default, recorded.
+    _, audit = call(client, "GET", f"/v1/jobs/{job['id']}/audit")
+    assert audit["settings"]["warmup_iterations"] == DEFAULT_WARM_WARMUP < 1000
+    assert all(c["iterations_total"] == DEFAULT_WARM_WARMUP + 300 for c in job["chains"])
     other_model = copy.deepcopy(SPEC)
     other_model["unknowns"]["mu"] = {"lower": -100}
     refusals = [
@@ -329,7 +336,7 @@ def test_warm_start_checks_and_fills_in_the_earlier_chains_adapted_state(app, qu
         ({**normal_mean(), "warm_start": {"job": pending["id"]}}, "is queued"),
         ({**normal_mean(), "warm_start": {"job": stepping["id"]}}, "is queued"),
         ({**normal_mean(method="metropolis"), "warm_start": {"job": earlier["id"]}},
-         "offered for the methods"),
+         "cannot start from"),
     ]  # fmt: skip
     counts = row_counts(app)
     for body, words in refusals:
@@ -338,3 +345,17 @@ def test_warm_start_checks_and_fills_in_the_earlier_chains_adapted_state(app, qu
         assert problem["errors"][0]["pointer"] == "/warm_start/job"
         assert words in problem["errors"][0]["message"], problem
     assert row_counts(app) == counts and queue.length() == 2 + 2
+    # Records that do not fit the new job (here a position of the wrong length) are the
+    # engine's to find; the service reports them against the job the submission named.
+    with app.extensions["drawyard"].sessions() as session, session.begin():
+        from service.store.models import Chain
+
+        chain = session.scalars(
+            select(Chain).where(Chain.job_id == earlier["id"], Chain.chain_index == 0)
+        ).one()
+        chain.adapted = {**chain.adapted, "position": [0.0, 1.0, 2.0]}
+    response, problem = call(client, "POST", "/v1/jobs", inline)
+    assert response.status_code == 422
+    assert {e["pointer"] for e in problem["errors"]} == {"/warm_start/job"}
+    assert problem["errors"][0]["message"].startswith("The earlier job's chain 1: ")
+    assert row_counts(app) == counts
