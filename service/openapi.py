@@ -57,6 +57,7 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
         200: "model_version",
         201: "model_version",
         400: "problem",
+        404: "problem",
         413: "problem",
         415: "problem",
         422: "problem",

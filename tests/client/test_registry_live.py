@@ -70,7 +70,7 @@ def test_register_submit_by_name_reuse_and_warm_start_with_keys(
     assert second.stdout.strip() == "2"
     names = cli("models", "list")
     assert names.returncode == EXIT_PASSED and names.stdout.startswith("demand  latest 2")
-    versions = cli("models", "list", "demand", "--json")
+    versions = cli("models", "list", "demand", "--json", "--limit", "1")  # follows the pages
     listed = json.loads(versions.stdout)["versions"]
     assert [v["version"] for v in listed] == [2, 1]
     assert listed[1]["sha256"] == canonical_sha256(json.loads(files["spec.json"].read_text()))
