@@ -12,11 +12,12 @@ from __future__ import annotations
 
 import hashlib
 import json
+import time
 from pathlib import Path
 
 import requests
 
-from service.client import DrawyardClient
+from service.client import DrawyardClient, wait_for_job
 from service.job_commands import EXIT_BAD_INPUT, EXIT_PASSED
 from service.warm_start import DEFAULT_WARM_WARMUP
 from tests.client.test_client_cli import drawyard
@@ -145,3 +146,36 @@ def test_register_submit_by_name_reuse_and_warm_start_with_keys(
     assert inline.status_code == 422
     assert inline.json()["errors"][0]["pointer"] == "/warm_start/job"
     assert [j.id for j in client.list_jobs(limit=50).jobs] == [j.id for j in before]
+
+
+def test_a_reused_job_sends_its_completion_callback_at_once(tmp_path: Path, redis_url: str,
+                                                             live_service):
+    """A reused result is final from the start, so its own callback (signed, HMAC-SHA256 as in
+    RFC 2104, checked by the loopback receiver) names the new job as succeeded."""
+    from service.store import migrate
+    from tests.callbacks.receiver import Receiver
+
+    store = f"sqlite:///{(tmp_path / 'reuse.sqlite').resolve()}"
+    migrate(store)
+    receiver = Receiver("reuse-secret").start()
+    try:
+        service = live_service(store, redis_url, workers=1, env={
+            "DRAWYARD_CALLBACK_ALLOW": receiver.base_url + "/",
+            "DRAWYARD_CALLBACK_SECRET": "reuse-secret",
+        })  # fmt: skip
+        client = DrawyardClient(service.base_url)
+        body = normal_mean(chains=2, warmup=100, draws=100, seed=41)
+        first = client.submit(body)
+        assert wait_for_job(client, first.id, interval=0.2, timeout=300).state == "succeeded"
+        reused = client.submit({**body, "notify": {"url": receiver.base_url + "/nightly"}})
+        assert reused.state == "succeeded" and reused.raw["reused_from"] == first.id
+        deadline = time.monotonic() + 60
+        while not receiver.for_path("/nightly"):
+            assert time.monotonic() < deadline, service.logs()
+            time.sleep(0.2)
+        (delivery,) = receiver.for_path("/nightly")
+        assert delivery.signature_valid and delivery.answered == 200
+        (document,) = receiver.documents("/nightly")
+        assert document["id"] == reused.id and document["state"] == "succeeded"
+    finally:
+        receiver.stop()
