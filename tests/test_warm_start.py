@@ -267,3 +267,23 @@ def test_a_position_impossible_under_the_new_data_is_a_problem() -> None:
     problems = runner.check_submission(body)
     assert [p.pointer for p in problems] == ["/warm_start/chains/0/position"], problems
     assert "not finite" in problems[0].message
+
+
+def test_a_record_without_a_position_starts_as_the_settings_say() -> None:
+    """Records stored before positions were recorded still start a chain, from a random point."""
+    body = _bad("position", ...)
+    assert runner.check_submission(body) == []
+    cold = location_scale_body(Y_DAY_2)
+    warm_position = runner.start_chain(body, 0).chain.state.position
+    assert warm_position.tolist() == runner.start_chain(cold, 0).chain.state.position.tolist()
+    assert warm_position.tolist() != body["warm_start"]["chains"][1]["position"]
+
+
+def test_a_dense_job_starts_from_diagonal_records() -> None:
+    body = warm_body(metric="dense")
+    assert runner.check_submission(body) == []
+    chain = runner.start_chain(body, 0).chain
+    record = body["warm_start"]["chains"][0]
+    np.testing.assert_array_equal(chain.metric.inverse, np.diag(record["inverse_metric"]))
+    outcome = runner.run_in_process(body)
+    assert all(a["metric"] == "dense" for a in outcome["adapted"])

@@ -6,8 +6,8 @@ warm-up. The day-2 posterior mean, sd and 5/50/95% quantiles must lie within 4 M
 form, and the default verdict must pass. Closed forms: Gelman et al. (2013), Bayesian Data
 Analysis, 3rd ed. (BDA3), chapter 2 (normal mean with known variance: precision-weighted mean;
 Poisson data with a gamma prior: Gamma(a + sum y, b + n)); reference values from scipy.stats.
-A record whose step size (or proposal scale) is 100 times too large must end just as right:
-a warm start is a start, not a fixed setting. The data are invented with fixed seeds.
+A record whose step size (or proposal scale) is 100 times too large or too small must end just
+as right: a warm start is a start, not a fixed setting. The data are invented with fixed seeds.
 """
 
 from __future__ import annotations
@@ -105,10 +105,11 @@ def test_a_warm_refit_matches_the_closed_form(case: str, method: str) -> None:
 
 
 @pytest.mark.slow
+@pytest.mark.parametrize("spoil", [100.0, 0.01])
 @pytest.mark.parametrize("method", METHODS)
-def test_a_bad_record_is_adapted_away(method: str) -> None:
+def test_a_bad_record_is_adapted_away(method: str, spoil: float) -> None:
     truth = CASES["normal mean"]()[3][1]
-    outcome = _warm_refit("normal mean", method, spoil=100.0)
+    outcome = _warm_refit("normal mean", method, spoil=spoil)
     found = mismatches(record_of(outcome, "mu"), from_scipy(truth["mu"]))
     assert not found, found
     assert outcome["verdict"]["passed"], outcome["verdict"]["failed_checks"]

@@ -20,12 +20,10 @@ of 0 samples with the earlier state as it is.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
 
-from worker.samplers.dual_averaging import DualAveraging
 from worker.samplers.metric_adaptation import MIN_WINDOWED_WARMUP, RunningCovariance, WarmupSchedule
 
 SETTLE_FRACTION = 0.25
@@ -86,14 +84,3 @@ def refreshed(earlier: np.ndarray, window: RunningCovariance) -> np.ndarray | No
     if result.ndim == 2:
         result = 0.5 * (result + result.T)
     return result
-
-
-def warm_dual_averaging(step_size: float, goal: float) -> DualAveraging:
-    """Dual averaging that shrinks toward ``step_size`` itself.
-
-    Hoffman & Gelman (2014, section 3.2) shrink toward mu = log(10 eps0) because a cold start's
-    eps0 is only a one-step guess and larger steps are cheaper to try; an adapted step size from an
-    earlier fit is already the best guess, so it is the point to shrink toward.
-    """
-    log_step = math.log(step_size)
-    return DualAveraging(target=goal, mu=log_step, log_step=log_step, log_step_average=log_step)
