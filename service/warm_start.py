@@ -30,10 +30,11 @@ POINTER = "/warm_start/job"
 # engine (worker/warm_start.py) starts a chain from a record of its own family only.
 METHOD_FAMILIES = {"nuts": "Hamiltonian", "hmc": "Hamiltonian", "metropolis": "Metropolis"}
 WARM_START_METHODS = tuple(METHOD_FAMILIES)
-# The warm-up a warm-started job gets when its submission sets none: a fifth of the cold default
-# (1000). The earlier state is close for a refit; the engine's warm schedule (settle, one metric
-# refresh, final step size) needs at least 20 iterations to refresh the metric at all.
-DEFAULT_WARM_WARMUP = 200
+# The warm-up a warm-started job gets when its submission sets none: a quarter of the cold
+# default (1000), the length the nightly-refit benchmark measures (tests/bench/RESULTS.md, "Warm
+# starts"). The engine runs whatever length the body holds; the service picks the shorter one
+# here because a warm start without it would save nothing.
+DEFAULT_WARM_WARMUP = 250
 
 
 @dataclass(frozen=True)
