@@ -90,22 +90,20 @@ def copy_result(session: Session, source_id: str, job_id: str) -> None:
         )
         .execution_options(synchronize_session=False)
     )
-    # Chains: where and by which software the draws were made is kept; the timings are this
-    # job's, and attempts 0 says no worker ran it.
+    # Chains: where and by which software the draws were made is kept; no start or finish time
+    # and attempts 0 say that no worker ran them (so the monitoring's chain durations and
+    # gradient rates count only chains that ran).
     copied = (
         "chain_index", "state", "iteration", "iterations_total", "divergences", "phase",
         "adapted", "worker_host", "worker_pid", "worker_software",
     )  # fmt: skip
     session.execute(
         insert(Chain).from_select(
-            ["job_id", *copied, "attempts", "duplicate_deliveries", "requeues",
-             "started_at", "finished_at", "updated_at"],
+            ["job_id", *copied, "attempts", "duplicate_deliveries", "requeues", "updated_at"],
             select(
                 literal(job_id),
                 *(getattr(Chain, name) for name in copied),
                 literal(0), literal(0), literal(0),
-                literal(now, Chain.started_at.type),
-                literal(now, Chain.finished_at.type),
                 literal(now, Chain.updated_at.type),
             ).where(Chain.job_id == source_id),
         )  # fmt: skip

@@ -238,6 +238,12 @@ def test_a_repeat_with_the_same_seed_reuses_the_result_and_queues_nothing(app, q
     _, source = call(client, "GET", f"/v1/jobs/{first['id']}")
     assert again["verdict"] == source["verdict"]
     assert [c["state"] for c in again["chains"]] == ["succeeded"] * 2
+    assert all(c["attempts"] == 0 and c["started_at"] is None for c in again["chains"])
+    assert again["started_at"] == again["finished_at"] is not None
+    # The web page and its plots read a reused job like any other.
+    assert client.get(f"/jobs/{again['id']}").status_code == 200
+    plot = client.get(f"/jobs/{again['id']}/plots/trace.svg?quantity=mu")
+    assert plot.status_code == 200 and plot.mimetype == "image/svg+xml"
     for resource in ("summary", "diagnostics"):
         _, copied = call(client, "GET", f"/v1/jobs/{again['id']}/{resource}")
         _, original = call(client, "GET", f"/v1/jobs/{first['id']}/{resource}")
