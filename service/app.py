@@ -16,6 +16,7 @@ from service.structured_logs import configure_logging, install_request_context
 from service.views.health import health
 from service.views.jobs import jobs
 from service.views.metrics import metrics
+from service.views.models import models
 from service.views.results import results
 from service.web import web
 
@@ -30,9 +31,9 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     install_request_context(app)
     runtime = build_runtime(settings)
     app.extensions["drawyard"] = runtime
-    for blueprint in (jobs, results, health, metrics, web):
+    for blueprint in (jobs, results, models, health, metrics, web):
         app.register_blueprint(blueprint)
-    install_access(app, runtime, (jobs, results))
+    install_access(app, runtime, (jobs, results, models))
 
     @app.errorhandler(ApiProblem)
     def api_problem(problem: ApiProblem):

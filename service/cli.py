@@ -108,6 +108,9 @@ def build_parser() -> argparse.ArgumentParser:
     from service.job_commands import add_job_commands
 
     add_job_commands(commands)
+    from service.model_commands import add_models_command
+
+    add_models_command(commands)
     return parser
 
 

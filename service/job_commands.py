@@ -92,6 +92,18 @@ def _member(body: dict[str, Any], name: str, source: Path | None) -> dict[str, A
     return dict(value)
 
 
+def parse_model_ref(text: str) -> dict[str, Any]:
+    """``NAME`` (the latest version) or ``NAME:VERSION``, as the submission's model_ref."""
+    name, _, version = text.partition(":")
+    if not name:
+        raise InputProblem(f"--model '{text}': expected NAME or NAME:VERSION")
+    if not version:
+        return {"name": name}
+    if not version.isdigit():
+        raise InputProblem(f"--model '{text}': the version after ':' is a whole number")
+    return {"name": name, "version": int(version)}
+
+
 def build_submission(args: argparse.Namespace) -> dict[str, Any]:
     """The body of POST /v1/jobs from the spec file, data files, settings file and options.
 
@@ -107,9 +119,19 @@ def build_submission(args: argparse.Namespace) -> dict[str, Any]:
                 "'sampler', 'checks' and 'labels'"
             )
         body.update(settings)
-    body["model"] = _read_json(args.spec, "spec file")
+    data_paths = [*args.data, *args.data_files]
+    if getattr(args, "model", None):
+        # With a registered model the first positional file is data, not a spec.
+        body["model_ref"] = parse_model_ref(args.model)
+        data_paths.insert(0, args.spec)
+    else:
+        body["model"] = _read_json(args.spec, "spec file")
+    if getattr(args, "no_reuse", False):
+        body["reuse"] = False
+    if getattr(args, "warm_start", None):
+        body["warm_start"] = {"job": args.warm_start}
     try:
-        body["data"] = read_data_files([*args.data, *args.data_files])
+        body["data"] = read_data_files(data_paths)
     except DataFileError as error:
         raise InputProblem(str(error)) from error
     sampler = _member(body, "sampler", args.settings)
@@ -356,6 +378,11 @@ def run_check(args: argparse.Namespace) -> int:
     from service.problem_details import ApiProblem
     from service.submissions import validate
 
+    if args.model:
+        raise InputProblem(
+            "check needs the spec itself; write a registered version to a file first: "
+            "drawyard models show NAME VERSION > spec.json"
+        )
     body = build_submission(args)
     overrides = {
         name: value
@@ -420,13 +447,24 @@ def _waiting_options() -> argparse.ArgumentParser:
 
 def _submission_options() -> argparse.ArgumentParser:
     common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("spec", type=Path, help="the model spec, a JSON file")
+    common.add_argument("spec", type=Path,
+                        help="the model spec, a JSON file (with --model: the first data file)")
     common.add_argument("data", type=Path, nargs="*",
                         help="data files: JSON objects of input names to values, or CSV files "
                              "whose header names the inputs and whose columns are their vectors "
                              "(integer columns stay integers); several are merged")
     common.add_argument("--data", dest="data_files", type=Path, action="append", default=[],
                         metavar="FILE", help="another data file (may be repeated)")
+    registry = common.add_argument_group("registered models, reuse and warm starts")
+    registry.add_argument("--model", default=None, metavar="NAME[:VERSION]",
+                          help="run a registered model (see `drawyard models`) instead of a spec "
+                               "file; without :VERSION the latest, which the job records")
+    registry.add_argument("--no-reuse", action="store_true",
+                          help="always run, even when an earlier job with the same model, data, "
+                               "settings and seed succeeded (default: return that result at once)")
+    registry.add_argument("--warm-start", default=None, metavar="JOB",
+                          help="start from this earlier succeeded job of the same model: its "
+                               "adapted step size, metric and final positions")
     group = common.add_argument_group("sampler and checks")
     group.add_argument("--settings", type=Path, default=None, metavar="FILE",
                        help="a JSON file with any of the submission members 'sampler', 'checks' "

@@ -57,4 +57,21 @@ def job_resource(job: Job, chains: Sequence[Chain]) -> dict[str, Any]:
         "verdict": job.verdict,
         "error": job.error,
         "links": job_links(job.id),
+        **provenance(job),
+    }
+
+
+def provenance(job: Job) -> dict[str, Any]:
+    """Where a job's model and result came from: the registry, a reused job, a warm start."""
+    model_ref = None
+    if job.model_name is not None:
+        model_ref = {
+            "name": job.model_name,
+            "version": job.model_version,
+            "sha256": job.spec_sha256,
+        }
+    return {
+        "model_ref": model_ref,
+        "reused_from": job.reused_from,
+        "warm_start_from": job.warm_start_from,
     }

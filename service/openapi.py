@@ -52,6 +52,23 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
     ("get", "/v1/jobs/{job_id}/audit"): {200: "audit", 404: "problem"},
     ("get", "/v1/health/live"): {200: "health"},
     ("get", "/v1/health/ready"): {200: "health", 503: "health"},
+    ("get", "/v1/models"): {200: "model_list", 400: "problem"},
+    ("post", "/v1/models/{name}/versions"): {
+        200: "model_version",
+        201: "model_version",
+        400: "problem",
+        404: "problem",
+        413: "problem",
+        415: "problem",
+        422: "problem",
+        503: "problem",
+    },
+    ("get", "/v1/models/{name}/versions"): {
+        200: "model_version_list",
+        400: "problem",
+        404: "problem",
+    },
+    ("get", "/v1/models/{name}/versions/{version}"): {200: "model_version", 404: "problem"},
 }
 
 SUMMARIES = {
@@ -66,12 +83,26 @@ SUMMARIES = {
     ("get", "/v1/jobs/{job_id}/audit"): "Who, when, hashes, seeds, settings and software",
     ("get", "/v1/health/live"): "The API process is up",
     ("get", "/v1/health/ready"): "The database and the broker are reachable",
+    ("get", "/v1/models"): "Registered model names, each with its latest version",
+    ("post", "/v1/models/{name}/versions"): (
+        "Register a spec as the next version of a name (identical content: the existing version)"
+    ),
+    ("get", "/v1/models/{name}/versions"): "A model's versions, newest first, with hash and time",
+    ("get", "/v1/models/{name}/versions/{version}"): "One version of a model, with its spec",
 }
 
 QUERY_PARAMETERS = {
     ("get", "/v1/jobs"): [
         ("state", "Comma-separated states to include."),
         ("label", "key:value; repeat for several (all must match)."),
+        ("limit", "Page size."),
+        ("cursor", "next_cursor of the previous page."),
+    ],
+    ("get", "/v1/models"): [
+        ("limit", "Page size."),
+        ("cursor", "next_cursor of the previous page."),
+    ],
+    ("get", "/v1/models/{name}/versions"): [
         ("limit", "Page size."),
         ("cursor", "next_cursor of the previous page."),
     ],
@@ -122,7 +153,7 @@ def component_schemas() -> dict[str, Any]:
 def _operation(method: str, path: str) -> dict[str, Any]:
     responses = {}
     declared = dict(RESPONSES[(method, path)])
-    if path.startswith("/v1/jobs"):
+    if path.startswith(("/v1/jobs", "/v1/models")):
         # service/access/: no or a wrong key, a missing scope, the rate or job cap reached.
         declared.update({status: "problem" for status in ACCESS_STATUSES})
     for status, stem in declared.items():
@@ -145,6 +176,24 @@ def _operation(method: str, path: str) -> dict[str, Any]:
                 "in": "path",
                 "required": True,
                 "schema": {"$ref": "#/components/schemas/common/$defs/job_id"},
+            }
+        )
+    if "{name}" in path:
+        parameters.append(
+            {
+                "name": "name",
+                "in": "path",
+                "required": True,
+                "schema": {"$ref": "#/components/schemas/model_version/$defs/name"},
+            }
+        )
+    if "{version}" in path:
+        parameters.append(
+            {
+                "name": "version",
+                "in": "path",
+                "required": True,
+                "schema": {"$ref": "#/components/schemas/model_version/$defs/number"},
             }
         )
     parameters += [
@@ -171,6 +220,15 @@ def _operation(method: str, path: str) -> dict[str, Any]:
             "required": True,
             "content": {
                 "application/json": {"schema": {"$ref": "#/components/schemas/submission"}}
+            },
+        }
+    if (method, path) == ("post", "/v1/models/{name}/versions"):
+        operation["requestBody"] = {
+            "required": True,
+            "content": {
+                "application/json": {
+                    "schema": {"$ref": "#/components/schemas/model_registration"}
+                }
             },
         }
     if parameters:

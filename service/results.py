@@ -11,6 +11,7 @@ from sqlalchemy import select
 
 from service.draw_export import Selection
 from service.job_queries import bad_parameter, load_job
+from service.job_resources import provenance
 from service.partial_results import partial_record, stop_details
 from service.problem_details import ApiProblem
 from service.runtime import Runtime
@@ -242,7 +243,9 @@ def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
             "request": job.request_sha256,
             "model": job.spec_sha256,
             "data": job.data_sha256,
+            "run": job.run_sha256,
         },
+        **provenance(job),
         "seed": job.seed,
         "chain_seeds": _seed_records(job.seed, job.chain_count),
         "settings": job.settings,

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import re
 import uuid
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -13,23 +15,38 @@ from sqlalchemy.exc import IntegrityError
 from service import events
 from service.access.limits import check_active_jobs, unknown_count_problems
 from service.access.tenancy import current_key_id, current_tenant, scoped_idempotency_key
-from service.callbacks import notify_problems
+from service.callbacks import notify_problems, queue_callback_safely
 from service.canonical import sha256_of_json
 from service.config import Settings
 from service.dispatch import send_chain_tasks
 from service.problem_details import ApiProblem
+from service.registry import ModelReference, reference_problems, resolve_reference
+from service.reuse import copy_result, find_source, run_fingerprint, wants_reuse
 from service.runtime import Runtime
 from service.schemas import schema_problems
 from service.store.engine import transaction
 from service.store.models import Chain, Job, JobLabel, utc_now
 from service.versions import software_versions
-from worker.problems import Problem
+from service.warm_start import DEFAULT_WARM_WARMUP, WarmStart, resolve_warm_start
+from worker.problems import Problem, escape_token
+
+JOB_ID = re.compile(r"[0-9a-f]{32}")
 
 
 @dataclass(frozen=True)
 class Accepted:
     job: Job
     created: bool  # False when an Idempotency-Key replay returned an existing job
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """A valid submission as it will be stored, with what the service resolved for it."""
+
+    stored: dict[str, Any]  # model filled in from model_ref, warm_start.chains filled, seed set
+    resolved: dict[str, Any]  # every sampler setting
+    reference: ModelReference | None
+    warm_start_from: str | None
 
 
 def invalid(problems: list[Problem]) -> ApiProblem:
@@ -49,8 +66,35 @@ def fresh_seed() -> int:
     return int(state >> np.uint64(1))
 
 
-def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, Any]]:
-    """The body as stored (seed filled in) and the resolved sampler settings, or ApiProblem."""
+def model_source_problems(body: dict[str, Any]) -> list[Problem]:
+    """Exactly one of ``model`` (a spec) and ``model_ref`` (a registered model)."""
+    if "model" in body and "model_ref" in body:
+        return [
+            Problem(
+                "/model_ref",
+                "Give either a spec in 'model' or a registered model in 'model_ref', not both.",
+            )
+        ]
+    if "model" not in body and "model_ref" not in body:
+        return [
+            Problem(
+                "/model",
+                "The submission needs a model: a spec in 'model', or a registered model in "
+                "'model_ref'.",
+            )
+        ]
+    return reference_problems(body["model_ref"]) if "model_ref" in body else []
+
+
+def validate(
+    body: Any, settings: Settings, earlier: Sequence[Problem] | None = None
+) -> tuple[dict[str, Any], dict[str, Any]]:
+    """The body as stored (seed filled in) and the resolved sampler settings, or ApiProblem.
+
+    Called by ``prepare`` with the service's resolutions already in ``body`` (the registered
+    spec beside ``model_ref``, ``warm_start.chains``) and the problems found while resolving
+    them in ``earlier``; called alone (the CLI's local check) it checks the members as sent.
+    """
     from worker import runner
 
     problems = schema_problems("submission", body)
@@ -59,10 +103,21 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
     if isinstance(body, dict):
         # The engine checks the model against its schema and then semantically, reporting every
         # problem; ours would stop at the first layer, so the model part is left to it.
-        problems = [p for p in problems if not _under(p.pointer, "/model")]
-        problems = _merged(
-            problems, runner.check_submission(body, settings.max_chains, settings.max_draws)
-        )
+        # warm_start.chains is filled in by the service (service/warm_start.py), not sent.
+        problems = [
+            p
+            for p in problems
+            if not _under(p.pointer, "/model") and not _under(p.pointer, "/warm_start/chains")
+        ]
+        first = model_source_problems(body) if earlier is None else list(earlier)
+        problems = _merged(first, problems)
+        engine_found = runner.check_submission(body, settings.max_chains, settings.max_draws)
+        if earlier is not None:
+            engine_found = [_about_the_earlier_job(p) for p in engine_found]
+        if "model_ref" in body and "model" not in body:
+            # An unresolved reference is already reported at /model_ref.
+            engine_found = [p for p in engine_found if p.pointer != "/model"]
+        problems = _merged(problems, engine_found)
         problems = _merged(problems, notify_problems(body, settings))
     if problems:
         raise invalid(problems)
@@ -75,6 +130,19 @@ def validate(body: Any, settings: Settings) -> tuple[dict[str, Any], dict[str, A
     if problems:
         raise invalid(problems)
     return stored, resolved
+
+
+def _about_the_earlier_job(problem: Problem) -> Problem:
+    """An engine problem with the filled-in warm_start.chains, said of the job the body named.
+
+    The submitter sent only ``warm_start.job``; a pointer into records they never saw would not
+    tell them what to change.
+    """
+    if not _under(problem.pointer, "/warm_start/chains"):
+        return problem
+    parts = problem.pointer.split("/")
+    chain = f"chain {int(parts[3]) + 1}" if len(parts) > 3 and parts[3].isdigit() else "chains"
+    return Problem("/warm_start/job", f"The earlier job's {chain}: {problem.message}")
 
 
 def _under(where: str, root: str) -> bool:
@@ -119,6 +187,75 @@ def existing_for_key(runtime: Runtime, key: str, request_sha256: str) -> Job | N
     return job
 
 
+def _warm_start_member_problems(member: Any) -> list[Problem]:
+    # The schema would say the same, but these members must be right before the store is asked.
+    if not isinstance(member, dict):
+        return [Problem("/warm_start", "The warm start is an object naming an earlier job.")]
+    problems = [
+        Problem(f"/warm_start/{escape_token(key)}", f"Unknown member '{key}' of the warm start.")
+        for key in member
+        if key != "job"
+    ]
+    if not isinstance(member.get("job"), str) or JOB_ID.fullmatch(member["job"]) is None:
+        problems.append(Problem("/warm_start/job", "The job is an id of 32 lower-case hex digits."))
+    return problems
+
+
+def prepare(runtime: Runtime, body: Any) -> Prepared:
+    """Resolve ``model_ref`` and ``warm_start`` against the store, then validate the whole."""
+    if not isinstance(body, dict):
+        stored, resolved = validate(body, runtime.settings)
+        return Prepared(stored, resolved, None, None)
+    problems = model_source_problems(body)
+    engine_body = dict(body)
+    reference = None
+    if not problems and "model_ref" in body:
+        found = resolve_reference(runtime, body["model_ref"])
+        if isinstance(found, Problem):
+            problems.append(found)
+        else:
+            spec, reference = found
+            engine_body["model"] = spec
+            # The version actually used is recorded, also when the submission left it out.
+            engine_body["model_ref"] = {"name": reference.name, "version": reference.version}
+    warm: WarmStart | None = None
+    if "warm_start" in body:
+        member_problems = _warm_start_member_problems(body["warm_start"])
+        problems.extend(member_problems)
+        model = engine_body.get("model")
+        if not member_problems and isinstance(model, dict):
+            sampler = body.get("sampler") if isinstance(body.get("sampler"), dict) else {}
+            method = sampler.get("method", _default_method())
+            outcome = resolve_warm_start(
+                runtime, body["warm_start"]["job"], model, _model_hash(model), method,
+                reference, current_tenant(),
+            )  # fmt: skip
+            if isinstance(outcome, WarmStart):
+                warm = outcome
+                engine_body["warm_start"] = {"job": warm.source, "chains": warm.chains}
+                if "warmup_iterations" not in sampler:
+                    # The shorter warm-up is the point of a warm start; it is recorded like
+                    # any setting (and is part of the reuse fingerprint).
+                    engine_body["sampler"] = {**sampler, "warmup_iterations": DEFAULT_WARM_WARMUP}
+            else:
+                problems.extend(outcome)
+    stored, resolved = validate(engine_body, runtime.settings, problems)
+    return Prepared(stored, resolved, reference, warm.source if warm else None)
+
+
+def _default_method() -> str:
+    from worker.samplers.settings import SamplerSettings
+
+    return SamplerSettings().method
+
+
+def _model_hash(model: Any) -> str:
+    try:
+        return sha256_of_json(model)
+    except ValueError:
+        return ""  # NaN in the spec: validation refuses it with a pointer
+
+
 def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted:
     """Validate, store and queue a submission (or return the job its idempotency key made)."""
     try:
@@ -137,14 +274,28 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
         job = existing_for_key(runtime, idempotency_key, request_sha256)
         if job is not None:
             return Accepted(job, created=False)
-    stored, resolved = validate(body, runtime.settings)
-    check_active_jobs(runtime, current_tenant())
+    prepared = prepare(runtime, body)
+    stored, resolved = prepared.stored, prepared.resolved
+    tenant = current_tenant()
+    spec_sha256 = sha256_of_json(stored["model"])
+    data_sha256 = sha256_of_json(stored.get("data") or {})
+    run_sha256 = run_fingerprint(
+        spec_sha256, data_sha256, resolved, stored.get("checks"), prepared.warm_start_from
+    )
+    source = None
+    if wants_reuse(body):
+        with runtime.sessions() as session:
+            source = find_source(session, run_sha256, tenant)
+    if source is None:
+        # A reused result occupies no worker, so only jobs that will run count against the cap.
+        check_active_jobs(runtime, tenant)
     chains = int(resolved["chains"])
     iterations_total = int(resolved.get("warmup_iterations", 0)) + int(resolved.get("draws", 0))
     now = utc_now()
+    reference = prepared.reference
     job = Job(
         id=uuid.uuid4().hex,
-        state="queued",
+        state="queued" if source is None else "succeeded",
         created_at=now,
         chain_count=chains,
         seed=int(stored["sampler"]["seed"]),
@@ -152,33 +303,43 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
         settings=resolved,
         labels=dict(body.get("labels") or {}),
         request_sha256=request_sha256,
-        spec_sha256=sha256_of_json(body["model"]),
-        data_sha256=sha256_of_json(body.get("data") or {}),
+        spec_sha256=spec_sha256,
+        data_sha256=data_sha256,
         idempotency_key=idempotency_key,
         submitted_by=current_key_id(),
-        tenant=current_tenant(),
+        tenant=tenant,
         api_software=software_versions(),
+        model_name=reference.name if reference else None,
+        model_version=reference.version if reference else None,
+        run_sha256=run_sha256,
+        reused_from=source,
+        warm_start_from=prepared.warm_start_from,
     )
+    if source is not None:
+        job.started_at = job.finished_at = job.finish_enqueued_at = now
     try:
         with transaction(runtime.sessions) as session:
             session.add(job)
             session.flush()
             session.add_all(JobLabel(job_id=job.id, key=k, value=v) for k, v in job.labels.items())
-            session.add_all(
-                Chain(
-                    job_id=job.id,
-                    chain_index=index,
-                    state="queued",
-                    attempts=0,
-                    duplicate_deliveries=0,
-                    iteration=0,
-                    divergences=0,
-                    iterations_total=iterations_total,
-                    updated_at=now,
+            if source is not None:
+                copy_result(session, source, job.id)
+            else:
+                session.add_all(
+                    Chain(
+                        job_id=job.id,
+                        chain_index=index,
+                        state="queued",
+                        attempts=0,
+                        duplicate_deliveries=0,
+                        iteration=0,
+                        divergences=0,
+                        iterations_total=iterations_total,
+                        updated_at=now,
+                    )
+                    for index in range(chains)
                 )
-                for index in range(chains)
-            )
-            events.record(session, job.id, "job_state", "queued")
+                events.record(session, job.id, "job_state", "queued")
     except IntegrityError:
         # Two requests with the same new key raced; the other one stored its job first.
         if idempotency_key is None:
@@ -187,6 +348,10 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
         if existing is None:
             raise
         return Accepted(existing, created=False)
+    if source is not None:
+        # Final from the start: a completion callback, if asked for, goes out now.
+        queue_callback_safely(runtime, job.id)
+        return Accepted(job, created=True)
     try:
         send_chain_tasks(runtime.celery, runtime.settings.queue, job.id, chains)
     except Exception as error:

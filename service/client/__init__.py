@@ -2,6 +2,7 @@
 
 from service.client.errors import ClientError, ProblemError, ServiceUnreachable
 from service.client.http import DrawyardClient
+from service.client.model_records import ModelPage, ModelVersion, RegisteredModel, VersionPage
 from service.client.records import ChainProgress, FailedCheck, Job, JobPage, Verdict
 from service.client.retrying import RetryPolicy
 from service.client.waiting import WaitTimedOut, wait_for_job
@@ -13,10 +14,14 @@ __all__ = [
     "FailedCheck",
     "Job",
     "JobPage",
+    "ModelPage",
+    "ModelVersion",
     "ProblemError",
+    "RegisteredModel",
     "RetryPolicy",
     "ServiceUnreachable",
     "Verdict",
+    "VersionPage",
     "WaitTimedOut",
     "wait_for_job",
 ]

@@ -13,6 +13,7 @@ import numpy as np
 import requests
 
 from service.client.errors import ProblemError, ServiceUnreachable
+from service.client.model_records import ModelPage, ModelVersion, RegisteredModel, VersionPage
 from service.client.records import Job, JobPage, SummaryDocument
 from service.client.retrying import RETRY_STATUSES, RetryPolicy, parse_retry_after
 
@@ -64,13 +65,39 @@ class DrawyardClient:
 
     # ---- jobs ---------------------------------------------------------------------------------
 
-    def submit(self, body: Mapping[str, Any], idempotency_key: str | None = None) -> Job:
+    def submit(
+        self,
+        body: Mapping[str, Any],
+        idempotency_key: str | None = None,
+        *,
+        model_ref: tuple[str, int | None] | None = None,
+        reuse: bool | None = None,
+        warm_start: str | None = None,
+    ) -> Job:
         """POST /v1/jobs. A fresh uuid4 key is made when none is given, and every retry of this
         submission sends the same one, so a repeat the service already accepted returns that job
-        instead of queuing a second."""
+        instead of queuing a second.
+
+        `model_ref` (name, version or None for the latest) sends a registered model instead of
+        the body's `model`; `reuse=False` forces a new run even when an identical earlier job
+        succeeded; `warm_start` is the id of an earlier job to start from. A reused result comes
+        back as a job like any other, already succeeded (its `raw["reused_from"]` names the
+        source)."""
+        payload = dict(body)
+        if model_ref is not None:
+            name, version = model_ref
+            payload.pop("model", None)
+            reference: dict[str, Any] = {"name": name}
+            if version is not None:
+                reference["version"] = version
+            payload["model_ref"] = reference
+        if reuse is not None:
+            payload["reuse"] = reuse
+        if warm_start is not None:
+            payload["warm_start"] = {"job": warm_start}
         key = idempotency_key or uuid.uuid4().hex
         response = self._request(
-            "POST", "/v1/jobs", json=dict(body), headers={"Idempotency-Key": key}, repeatable=True
+            "POST", "/v1/jobs", json=payload, headers={"Idempotency-Key": key}, repeatable=True
         )
         return Job.from_json(response.json())
 
@@ -119,6 +146,54 @@ class DrawyardClient:
             if not page.next_cursor:
                 return
             cursor = page.next_cursor
+
+    # ---- the model registry -------------------------------------------------------------------
+
+    def register_model(self, name: str, spec: Mapping[str, Any]) -> ModelVersion:
+        """POST /v1/models/{name}/versions: the new version, or the one already holding this
+        exact spec (`created` False). Safe to repeat, so a lost answer is asked again."""
+        response = self._request(
+            "POST", f"/v1/models/{_segment(name)}/versions", json={"model": dict(spec)},
+            repeatable=True,
+        )  # fmt: skip
+        return ModelVersion.from_json(response.json(), created=response.status_code == 201)
+
+    def list_models(self, limit: int | None = None, cursor: str | None = None) -> ModelPage:
+        """GET /v1/models: registered names in name order, each with its latest version."""
+        params = _page(limit, cursor)
+        return ModelPage.from_json(self._request("GET", "/v1/models", params=params).json())
+
+    def iter_models(self, page_size: int | None = None) -> Iterator[RegisteredModel]:
+        cursor = None
+        while True:
+            page = self.list_models(page_size, cursor)
+            yield from page.models
+            if not page.next_cursor:
+                return
+            cursor = page.next_cursor
+
+    def list_versions(
+        self, name: str, limit: int | None = None, cursor: str | None = None
+    ) -> VersionPage:
+        """GET /v1/models/{name}/versions: newest first, with hash, time and key id."""
+        response = self._request(
+            "GET", f"/v1/models/{_segment(name)}/versions", params=_page(limit, cursor)
+        )
+        return VersionPage.from_json(response.json())
+
+    def iter_versions(self, name: str, page_size: int | None = None) -> Iterator[ModelVersion]:
+        cursor = None
+        while True:
+            page = self.list_versions(name, page_size, cursor)
+            yield from page.versions
+            if not page.next_cursor:
+                return
+            cursor = page.next_cursor
+
+    def model_version(self, name: str, version: int) -> ModelVersion:
+        """GET /v1/models/{name}/versions/{version}, with the spec."""
+        path = f"/v1/models/{_segment(name)}/versions/{int(version)}"
+        return ModelVersion.from_json(self._request("GET", path).json())
 
     # ---- results ------------------------------------------------------------------------------
 
@@ -230,6 +305,20 @@ class DrawyardClient:
                 attempt += 1
                 continue
             raise _problem(response, wait)
+
+
+def _segment(name: str) -> str:
+    # A name that is not a valid model name is still sent, escaped, so the service can say why.
+    return requests.utils.quote(name, safe="")
+
+
+def _page(limit: int | None, cursor: str | None) -> list[tuple[str, str]]:
+    params = []
+    if limit is not None:
+        params.append(("limit", str(limit)))
+    if cursor:
+        params.append(("cursor", cursor))
+    return params
 
 
 def _selection(

@@ -1,4 +1,5 @@
-"""Tables of the results store: jobs, their chains, stored arrays, labels and the event log."""
+"""Tables of the results store: jobs, their chains, stored arrays, labels, the event log and the
+model registry."""
 
 from __future__ import annotations
 
@@ -86,6 +87,34 @@ class Job(Base):
     diagnostics: Mapped[dict[str, Any] | None] = mapped_column(JSON)
     verdict: Mapped[dict[str, Any] | None] = mapped_column(JSON)
     error: Mapped[str | None] = mapped_column(Text)
+    # The registry, result reuse and warm starts (migration 0004): the registered model a
+    # submission named by model_ref, the fingerprint of everything that fixes the draws
+    # (service/reuse.py), the job whose result this one copied, and the job it started from.
+    model_name: Mapped[str | None] = mapped_column(String(64))
+    model_version: Mapped[int | None] = mapped_column(Integer)
+    run_sha256: Mapped[str | None] = mapped_column(String(64), index=True)
+    reused_from: Mapped[str | None] = mapped_column(String(32))
+    warm_start_from: Mapped[str | None] = mapped_column(String(32))
+
+
+class ModelVersion(Base):
+    """One immutable registration of a model spec under a name (service/registry.py)."""
+
+    __tablename__ = "model_versions"
+    __table_args__ = (
+        UniqueConstraint("tenant", "name", "version", name="uq_model_versions_number"),
+        UniqueConstraint("tenant", "name", "spec_sha256", name="uq_model_versions_content"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    # "" in open mode: NULLs never collide in a unique constraint, so numbering needs a value.
+    tenant: Mapped[str] = mapped_column(String(64))
+    name: Mapped[str] = mapped_column(String(64))
+    version: Mapped[int] = mapped_column(Integer)
+    spec_sha256: Mapped[str] = mapped_column(String(64))
+    spec: Mapped[dict[str, Any]] = mapped_column(JSON)
+    created_at: Mapped[datetime] = mapped_column(UtcDateTime)
+    created_by: Mapped[str | None] = mapped_column(String(64))
 
 
 class JobLabel(Base):

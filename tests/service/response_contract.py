@@ -20,6 +20,10 @@ JSON_TYPES = ("application/json", "application/problem+json")
 def _route(path: str) -> str:
     path = path.split("?", 1)[0]
     path = re.sub(r"^https?://[^/]+", "", path)
+    path = re.sub(
+        r"^/v1/models/[^/]+/versions/[^/]+$", "/v1/models/{name}/versions/{version}", path
+    )
+    path = re.sub(r"^/v1/models/[^/]+/versions$", "/v1/models/{name}/versions", path)
     return re.sub(r"^/v1/jobs/[^/]+", "/v1/jobs/{job_id}", path)
 
 

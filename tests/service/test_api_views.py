@@ -10,6 +10,7 @@ document). No worker runs here, so every job stays queued unless it is cancelled
 from __future__ import annotations
 
 import json
+import re
 
 import pytest
 from jsonschema import Draft202012Validator
@@ -253,7 +254,7 @@ def test_openapi_document_is_served_and_self_consistent(app) -> None:
 
     walk(document)
     routes = {
-        (method.lower(), rule.rule.replace("<job_id>", "{job_id}"))
+        (method.lower(), re.sub(r"<(?:\w+:)?(\w+)>", r"{\1}", rule.rule))
         for rule in app.url_map.iter_rules()
         if rule.rule.startswith("/v1/") and rule.rule != "/v1/openapi.json"
         for method in rule.methods - {"HEAD", "OPTIONS"}
