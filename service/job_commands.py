@@ -30,6 +30,8 @@ EXIT_BAD_INPUT = 5
 EXIT_UNREACHABLE = 6
 EXIT_STILL_RUNNING = 7
 EXIT_TIMED_OUT = 8
+# 128 + SIGINT, what shells report for a command stopped by Ctrl-C.
+EXIT_INTERRUPTED = 130
 
 EXIT_CODES_HELP = f"""\
 exit codes:
@@ -43,6 +45,7 @@ exit codes:
   {EXIT_STILL_RUNNING}  --timeout ran out while the job was still queued or running
   {EXIT_TIMED_OUT}  the job stopped at its wall-time limit (state timed_out): its draws so far
      can be fetched but are partial, and its verdict fails
+  {EXIT_INTERRUPTED}  interrupted (Ctrl-C): the command stopped; a submitted job runs on
 
 The service URL comes from --url, else the DRAWYARD_URL environment variable, else
 {DEFAULT_URL}; an API key from --api-key, else DRAWYARD_API_KEY."""
@@ -242,6 +245,13 @@ def _guarded(command: str, action: Callable[[argparse.Namespace], int]) -> Calla
         except WaitTimedOut as error:
             _say(f"drawyard {command}: {error}")
             return EXIT_STILL_RUNNING
+        except KeyboardInterrupt:
+            # Stopping the command does not stop the job: say so instead of a traceback.
+            _say(
+                f"\ndrawyard {command}: interrupted; a job already submitted keeps running on the"
+                " service (drawyard cancel JOB_ID stops it)"
+            )
+            return EXIT_INTERRUPTED
 
     return run
 
@@ -281,6 +291,8 @@ def run_fetch(args: argparse.Namespace) -> int:
         )
     if args.output is None and args.format in ("parquet", "npz"):
         raise InputProblem(f"--format {args.format} is binary: give a file with -o")
+    if args.if_changed and (args.output is None or what not in ("draws", "sampler-stats")):
+        raise InputProblem("--if-changed needs draws or sampler-stats written to a file with -o")
     with _client(args) as client:
         if what in ("draws", "sampler-stats"):
             columns = _names(args.quantities)
@@ -290,6 +302,8 @@ def run_fetch(args: argparse.Namespace) -> int:
                 _warn_partial(args.job)
             if args.output is None:
                 return _download(client, args, sys.stdout.buffer, columns, chains)
+            if args.if_changed:
+                return _download_if_changed(client, args, columns, chains)
             try:
                 with _output_file(args.output) as out:
                     return _download(client, args, out, columns, chains)
@@ -325,6 +339,24 @@ def _download(client, args, out, columns, chains) -> int:
         args.job, args.what, out, args.format, columns, chains, args.thin, args.layout
     )
     out.flush()
+    return EXIT_PASSED
+
+
+def _download_if_changed(client, args, columns, chains) -> int:
+    """Download only when the result differs from the copy in the file, as told by the entity tag
+    kept beside it in FILE.etag (written after each complete download)."""
+    tag_file = args.output.with_name(args.output.name + ".etag")
+    known = tag_file.read_text().strip() if tag_file.exists() and args.output.exists() else None
+    outcome = client.download_if_changed(
+        args.job, args.what, args.output, known or None, args.format, columns, chains, args.thin,
+        args.layout,
+    )
+    if outcome.etag:
+        tag_file.write_text(outcome.etag + "\n")
+    else:
+        tag_file.unlink(missing_ok=True)
+    if not outcome.changed:
+        _say(f"drawyard fetch: {args.output} is up to date (the service sent nothing)")
     return EXIT_PASSED
 
 
@@ -548,6 +580,10 @@ def add_job_commands(commands: argparse._SubParsersAction) -> None:
                             "sampler-stats")
     fetch.add_argument("--chains", default=None, metavar="1,2", help="only these chains (from 1)")
     fetch.add_argument("--thin", type=int, default=None, metavar="N", help="every N-th draw")
+    fetch.add_argument("--if-changed", action="store_true",
+                       help="draws and sampler-stats with -o: keep the entity tag in FILE.etag "
+                            "and download again only when the result differs (the service "
+                            "answers 304 otherwise); the file is replaced only when complete")
 
     cancel = add(
         "cancel", "cancel a job",

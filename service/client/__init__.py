@@ -3,7 +3,14 @@
 from service.client.errors import ClientError, ProblemError, ServiceUnreachable
 from service.client.http import DrawyardClient
 from service.client.model_records import ModelPage, ModelVersion, RegisteredModel, VersionPage
-from service.client.records import ChainProgress, FailedCheck, Job, JobPage, Verdict
+from service.client.records import (
+    ChainProgress,
+    FailedCheck,
+    FileDownload,
+    Job,
+    JobPage,
+    Verdict,
+)
 from service.client.retrying import RetryPolicy
 from service.client.waiting import WaitTimedOut, wait_for_job
 
@@ -12,6 +19,7 @@ __all__ = [
     "ClientError",
     "DrawyardClient",
     "FailedCheck",
+    "FileDownload",
     "Job",
     "JobPage",
     "ModelPage",

@@ -14,7 +14,7 @@ import requests
 
 from service.client.errors import ProblemError, ServiceUnreachable
 from service.client.model_records import ModelPage, ModelVersion, RegisteredModel, VersionPage
-from service.client.records import Job, JobPage, SummaryDocument
+from service.client.records import FileDownload, Job, JobPage, SummaryDocument
 from service.client.retrying import RETRY_STATUSES, RetryPolicy, parse_retry_after
 
 DEFAULT_URL = "http://127.0.0.1:8000"
@@ -244,12 +244,7 @@ class DrawyardClient:
 
         The body is copied in chunks as it arrives, so a large result never sits in memory.
         """
-        if resource not in ("draws", "sampler-stats"):
-            raise ValueError("resource is 'draws' or 'sampler-stats'")
-        member = "quantities" if resource == "draws" else "statistics"
-        params = [*_selection(member, columns, chains, thin), ("format", format)]
-        if layout is not None:
-            params.append(("layout", layout))
+        params = _download_params(resource, format, columns, chains, thin, layout)
         response = self._request(
             "GET", f"/v1/jobs/{job_id}/{resource}", params=params, stream=True
         )
@@ -258,6 +253,43 @@ class DrawyardClient:
                 with destination.open("wb") as out:
                     return _copy(response, out)
             return _copy(response, destination)
+
+    def download_if_changed(
+        self,
+        job_id: str,
+        resource: str,
+        path: Path,
+        etag: str | None,
+        format: str = "json",
+        columns: Sequence[str] | None = None,
+        chains: Sequence[int] | None = None,
+        thin: int | None = None,
+        layout: str | None = None,
+    ) -> FileDownload:
+        """Stream `draws` or `sampler-stats` into `path` unless the service's copy still has
+        `etag`, the entity tag of an earlier download of the same selection.
+
+        The tag goes out as If-None-Match (RFC 9110 section 13.1.2); a 304 answer leaves the file
+        as it is. A changed result is written to a temporary file beside `path` and renamed over
+        it only when complete, so a download that breaks off never replaces a good file.
+        """
+        params = _download_params(resource, format, columns, chains, thin, layout)
+        headers = {"If-None-Match": etag} if etag else {}
+        response = self._request(
+            "GET", f"/v1/jobs/{job_id}/{resource}", params=params, stream=True, headers=headers
+        )
+        with response:
+            current = response.headers.get("ETag")
+            if response.status_code == 304:
+                return FileDownload(changed=False, etag=current or etag, bytes_written=0)
+            partial = path.with_name(f".{path.name}.{uuid.uuid4().hex[:8]}.part")
+            try:
+                with partial.open("wb") as out:
+                    written = _copy(response, out)
+                partial.replace(path)
+            finally:
+                partial.unlink(missing_ok=True)
+        return FileDownload(changed=True, etag=current, bytes_written=written)
 
     # ---- transport ----------------------------------------------------------------------------
 
@@ -305,6 +337,23 @@ class DrawyardClient:
                 attempt += 1
                 continue
             raise _problem(response, wait)
+
+
+def _download_params(
+    resource: str,
+    format: str,
+    columns: Sequence[str] | None,
+    chains: Sequence[int] | None,
+    thin: int | None,
+    layout: str | None,
+) -> list[tuple[str, str]]:
+    if resource not in ("draws", "sampler-stats"):
+        raise ValueError("resource is 'draws' or 'sampler-stats'")
+    member = "quantities" if resource == "draws" else "statistics"
+    params = [*_selection(member, columns, chains, thin), ("format", format)]
+    if layout is not None:
+        params.append(("layout", layout))
+    return params
 
 
 def _segment(name: str) -> str:

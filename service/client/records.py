@@ -151,3 +151,13 @@ class SummaryDocument(TypedDict):
     job: str
     quantities: list[QuantitySummary]
     verdict: dict[str, Any] | None
+
+
+@dataclass(frozen=True)
+class FileDownload:
+    """What `DrawyardClient.download_if_changed` did: `changed` is false when the service answered
+    304 Not Modified and the file was left alone; `etag` is the tag to send next time."""
+
+    changed: bool
+    etag: str | None
+    bytes_written: int

@@ -12,6 +12,7 @@ from service.job_resources import job_resource
 from service.problem_details import ApiProblem
 from service.submissions import submit
 from service.views.context import runtime
+from service.views.paging import requested_limit
 
 jobs = Blueprint("jobs", __name__, url_prefix="/v1/jobs")
 
@@ -55,14 +56,7 @@ def create() -> Response:
 
 @jobs.get("")
 def index() -> Response:
-    settings = runtime().settings
-    raw_limit = request.args.get("limit")
-    try:
-        limit = settings.page_limit if raw_limit is None else int(raw_limit)
-    except ValueError as error:
-        raise bad_parameter("limit", "The limit is a whole number.") from error
-    if not 1 <= limit <= settings.max_page_limit:
-        raise bad_parameter("limit", f"The limit is between 1 and {settings.max_page_limit}.")
+    limit = requested_limit()
     where = JobFilter.parse(request.args.getlist("state"), request.args.getlist("label"))
     page, cursor = list_jobs(runtime(), where, limit, request.args.get("cursor"))
     return jsonify({"jobs": [job_resource(j, c) for j, c in page], "next_cursor": cursor})

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from flask import Blueprint, Response, jsonify, request
 
-from service.job_queries import bad_parameter
 from service.registry import (
     get_version,
     list_models,
@@ -15,25 +14,14 @@ from service.registry import (
 )
 from service.views.context import runtime
 from service.views.jobs import _json_body
+from service.views.paging import requested_limit
 
 models = Blueprint("models", __name__, url_prefix="/v1/models")
 
 
-def _limit() -> int:
-    settings = runtime().settings
-    raw = request.args.get("limit")
-    try:
-        limit = settings.page_limit if raw is None else int(raw)
-    except ValueError as error:
-        raise bad_parameter("limit", "The limit is a whole number.") from error
-    if not 1 <= limit <= settings.max_page_limit:
-        raise bad_parameter("limit", f"The limit is between 1 and {settings.max_page_limit}.")
-    return limit
-
-
 @models.get("")
 def index() -> Response:
-    rows, cursor = list_models(runtime(), _limit(), request.args.get("cursor"))
+    rows, cursor = list_models(runtime(), requested_limit(), request.args.get("cursor"))
     return jsonify({"models": [model_resource(row) for row in rows], "next_cursor": cursor})
 
 
@@ -51,7 +39,7 @@ def create(name: str) -> Response:
 
 @models.get("/<name>/versions")
 def versions(name: str) -> Response:
-    rows, cursor = list_versions(runtime(), name, _limit(), request.args.get("cursor"))
+    rows, cursor = list_versions(runtime(), name, requested_limit(), request.args.get("cursor"))
     return jsonify(
         {"name": name, "versions": [version_resource(row) for row in rows], "next_cursor": cursor}
     )

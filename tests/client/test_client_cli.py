@@ -14,6 +14,7 @@ import csv
 import io
 import json
 import os
+import signal
 import subprocess
 import sys
 import time
@@ -23,10 +24,11 @@ import numpy as np
 import pytest
 import requests
 
-from service.client import DrawyardClient
+from service.client import DrawyardClient, wait_for_job
 from service.job_commands import (
     EXIT_BAD_INPUT,
     EXIT_CHECKS_FAILED,
+    EXIT_INTERRUPTED,
     EXIT_JOB_FAILED,
     EXIT_PASSED,
     EXIT_STILL_RUNNING,
@@ -275,3 +277,76 @@ def test_a_failed_job_has_the_same_code_as_a_cancelled_one() -> None:
         done = drawyard("watch", "cd" * 16, url=server.url)
     assert done.returncode == EXIT_JOB_FAILED
     assert "failed: chain 2: no finite starting point" in done.stderr
+
+
+def test_ctrl_c_while_waiting_exits_130_without_a_traceback_and_leaves_the_job_running(
+    shared_service: LiveService, files: dict[str, Path]
+) -> None:
+    """SIGINT (Ctrl-C) stops the command, not the job: exit 128 + 2, as shells report it."""
+    url = shared_service.base_url
+    files["settings"].write_text(
+        json.dumps({"sampler": {"chains": 1, "warmup_iterations": 500, "draws": 99_500}})
+    )
+    env = {k: v for k, v in os.environ.items() if not k.startswith("DRAWYARD_")}
+    env["DRAWYARD_URL"] = url
+    waiting = subprocess.Popen(
+        [DRAWYARD, "submit", *job_files(files), "--settings", str(files["settings"]), "--wait"],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env, cwd=REPO_ROOT,
+    )
+    # The id comes out alone and flushed once the job is accepted: the command is now waiting.
+    job_id = waiting.stdout.readline().strip()
+    assert len(job_id) == 32, waiting.stderr.read()
+    waiting.send_signal(signal.SIGINT)
+    out, err = waiting.communicate(timeout=60)
+    assert waiting.returncode == EXIT_INTERRUPTED, err
+    assert "interrupted" in err and "drawyard cancel" in err
+    assert "Traceback" not in err
+    client = DrawyardClient(url)
+    assert client.job(job_id).state in ("queued", "running")
+    client.cancel(job_id)
+
+
+def test_fetch_if_changed_keeps_the_entity_tag_and_skips_an_unchanged_download(
+    shared_service: LiveService, tmp_path: Path
+) -> None:
+    """RFC 9110 section 13.1.2 (If-None-Match) and section 15.4.5 (304 Not Modified)."""
+    url = shared_service.base_url
+    client = DrawyardClient(url)
+    job = client.submit(normal_mean(chains=2, warmup=200, draws=300, seed=11))
+    assert wait_for_job(client, job.id, interval=0.2, timeout=300).state == "succeeded"
+    target = tmp_path / "draws.csv"
+    tag_file = tmp_path / "draws.csv.etag"
+
+    first = drawyard("fetch", job.id, "draws", "--format", "csv", "-o", str(target),
+                     "--if-changed", url=url)
+    assert first.returncode == EXIT_PASSED, first.stderr
+    served = requests.get(f"{url}/v1/jobs/{job.id}/draws", params={"format": "csv"}, timeout=30)
+    assert tag_file.read_text().strip() == served.headers["ETag"]
+    assert target.read_bytes() == served.content
+    before = target.stat()
+
+    again = drawyard("fetch", job.id, "draws", "--format", "csv", "-o", str(target),
+                     "--if-changed", url=url)
+    assert again.returncode == EXIT_PASSED, again.stderr
+    assert "up to date" in again.stderr
+    after = target.stat()
+    assert (after.st_ino, after.st_mtime_ns) == (before.st_ino, before.st_mtime_ns)
+
+    # Another selection has another tag: the kept one no longer matches, so it downloads again.
+    narrower = drawyard("fetch", job.id, "draws", "--format", "csv", "--chains", "1",
+                        "-o", str(target), "--if-changed", url=url)
+    assert narrower.returncode == EXIT_PASSED, narrower.stderr
+    assert "up to date" not in narrower.stderr
+    assert len(target.read_text().splitlines()) == 1 + 300
+    assert tag_file.read_text().strip() != served.headers["ETag"]
+    outcome = client.download_if_changed(
+        job.id, "draws", target, tag_file.read_text().strip(), "csv", chains=[1]
+    )
+    assert not outcome.changed and outcome.bytes_written == 0
+    assert not list(tmp_path.glob(".*.part"))
+
+
+def test_if_changed_is_refused_without_an_output_file() -> None:
+    refused = drawyard("fetch", "ab" * 16, "draws", "--if-changed", url=closed_port_url())
+    assert refused.returncode == EXIT_BAD_INPUT
+    assert "--if-changed needs" in refused.stderr

@@ -17,14 +17,16 @@ from pathlib import Path
 import pytest
 import requests
 from playwright.sync_api import Browser, Page, expect, sync_playwright
+from playwright.sync_api import TimeoutError as PlaywrightTimeoutError
 
 from service.store import migrate
 from tests.conftest import sqlite_url
 from tests.harness.live_service import LiveService
 from tests.web.browser import CHROMIUM, CHROMIUM_ARGS, VIEWPORT, screenshot
 
-# Small settings so that the demo finishes in seconds on two cores.
-CHAINS, WARMUP, DRAWS = 4, 150, 150
+# Settings that finish in well under a minute on two cores, yet keep the job running for several of
+# the page's 1 s polls, so the test sees the table move before the job ends and the page reloads.
+CHAINS, WARMUP, DRAWS = 4, 150, 1500
 FINISH_TIMEOUT_MS = 240_000
 PLOT_KINDS = ("trace", "ranks", "density", "scatter")
 
@@ -90,12 +92,16 @@ def test_demo_submitted_followed_and_read(
     # cells as rendered are kept in the page's own window object, which a reload would replace.
     table = "() => [...document.querySelectorAll('#chains [data-field]')].map(c => c.textContent)"
     page.evaluate(f"window.renderedCells = ({table})()")
-    page.wait_for_function(
-        f"""() => window.renderedCells !== undefined
-              && document.querySelector('#job').dataset.terminal === 'no'
-              && ({table})().some((text, i) => text !== window.renderedCells[i])""",
-        timeout=FINISH_TIMEOUT_MS,
-    )
+    try:
+        page.wait_for_function(
+            f"""() => window.renderedCells !== undefined
+                  && document.querySelector('#job').dataset.terminal === 'no'
+                  && ({table})().some((text, i) => text !== window.renderedCells[i])""",
+            timeout=FINISH_TIMEOUT_MS,
+        )
+    except PlaywrightTimeoutError:
+        status = requests.get(f"{base}/v1/jobs/{job_id}", timeout=30).json()
+        pytest.fail(f"the table never moved while the job ran; status {status}\n{service.logs()}")
     screenshot(page, "job-running")
 
     # The page polls the status and reloads itself when the job ends; then the verdict appears.
