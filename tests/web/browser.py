@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import os
+import tempfile
 from pathlib import Path
 
 from playwright.sync_api import Page
@@ -23,13 +25,22 @@ SCREENSHOTS = Path(__file__).resolve().parent / "screenshots"
 VIEWPORT = {"width": 1200, "height": 900}
 
 
+def screenshot_folder() -> Path:
+    """tests/web/screenshots/ (committed; the README shows them) when DRAWYARD_SCREENSHOTS=update,
+    else a scratch folder: every run still renders each page, without dirtying the checkout."""
+    if os.environ.get("DRAWYARD_SCREENSHOTS") == "update":
+        return SCREENSHOTS
+    return Path(tempfile.gettempdir()) / "drawyard-screenshots"
+
+
 def screenshot(page: Page, name: str, full_page: bool = True) -> Path:
-    """A PNG in tests/web/screenshots/ (committed; the README shows them).
+    """A PNG of the page in screenshot_folder().
 
     ``full_page=False`` for an image opened on its own: Chromium cannot measure the full height
     of a bare SVG document, and the capture waits until it times out.
     """
-    SCREENSHOTS.mkdir(exist_ok=True)
-    path = SCREENSHOTS / f"{name}.png"
+    folder = screenshot_folder()
+    folder.mkdir(exist_ok=True)
+    path = folder / f"{name}.png"
     page.screenshot(path=str(path), full_page=full_page)
     return path
