@@ -187,20 +187,28 @@ def _encode(prefix: str, value: str) -> str:
     return base64.urlsafe_b64encode(f"{prefix}{value}".encode()).decode().rstrip("=")
 
 
-def _decode(prefix: str, cursor: str) -> str:
+def _decode(prefix: str, cursor: str, shape: re.Pattern[str]) -> str:
+    """The value a cursor of ours carries; 400 unless it has the ``shape`` we give out.
+
+    Checking the shape, not just the prefix, keeps a forged value (a NUL, which PostgreSQL
+    refuses in a text parameter; a non-ASCII digit, which ``int`` refuses) from the database.
+    """
     from service.job_queries import bad_parameter
 
     try:
         text = base64.urlsafe_b64decode((cursor + "=" * (-len(cursor) % 4)).encode()).decode()
     except (ValueError, binascii.Error, UnicodeDecodeError) as error:
         raise bad_parameter("cursor", "The cursor is not one this service gave out.") from error
-    if not text.startswith(prefix):
+    value = text.removeprefix(prefix)
+    if not text.startswith(prefix) or shape.fullmatch(value) is None:
         raise bad_parameter("cursor", "The cursor is not one this service gave out.")
-    return text.removeprefix(prefix)
+    return value
 
 
 VERSIONS_CURSOR = "versions-before:"
 NAMES_CURSOR = "models-after:"
+# A versions cursor holds a version number (ASCII digits: str.isdigit also accepts "²").
+VERSION_NUMBER = re.compile(r"[0-9]{1,10}")
 
 
 def list_versions(
@@ -216,12 +224,12 @@ def list_versions(
         .limit(limit + 1)
     )
     if cursor:
-        before = _decode(VERSIONS_CURSOR, cursor)
-        if not before.isdigit() or int(before) > MAX_VERSION + 1:
+        before = int(_decode(VERSIONS_CURSOR, cursor, VERSION_NUMBER))
+        if before > MAX_VERSION + 1:
             from service.job_queries import bad_parameter
 
             raise bad_parameter("cursor", "The cursor is not one this service gave out.")
-        query = query.where(ModelVersion.version < int(before))
+        query = query.where(ModelVersion.version < before)
     with runtime.sessions() as session:
         rows = list(session.scalars(query).all())
         exists = bool(rows) or session.scalar(
@@ -259,7 +267,7 @@ def list_models(
         .limit(limit + 1)
     )
     if cursor:
-        query = query.where(ModelVersion.name > _decode(NAMES_CURSOR, cursor))
+        query = query.where(ModelVersion.name > _decode(NAMES_CURSOR, cursor, NAME_PATTERN))
     with runtime.sessions() as session:
         rows = list(session.scalars(query).all())
     more = len(rows) > limit
