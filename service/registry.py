@@ -29,7 +29,8 @@ from service.store.models import ModelVersion, utc_now
 from service.timestamps import rfc3339
 from worker.problems import Problem
 
-NAME_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
+# Used with fullmatch: re.match with a "$" anchor would also accept a trailing newline.
+NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
 NAME_RULE = "1 to 64 letters, digits, '_', '.' or '-', starting with a letter or digit"
 # Version numbers are stored as 32-bit integers; a larger number in a URL simply names no version.
 MAX_VERSION = 2**31 - 1
@@ -59,7 +60,7 @@ def _tenant() -> str:
 
 
 def valid_name(name: Any) -> bool:
-    return isinstance(name, str) and NAME_PATTERN.match(name) is not None
+    return isinstance(name, str) and NAME_PATTERN.fullmatch(name) is not None
 
 
 def model_not_found(name: str, version: int | None = None) -> ApiProblem:
