@@ -36,13 +36,22 @@ def run_fingerprint(
             "model": spec_sha256,
             "data": data_sha256,
             "settings": resolved,
-            "checks": checks or {},
+            "checks": verdict_thresholds(checks),
             "warm_start_from": warm_start_from,
             # An upgrade of drawyard or of the numerical libraries may change the draws; a
             # result made by other code is not reused.
             "software": software_versions(),
         }
     )
+
+
+def verdict_thresholds(checks: Any) -> dict[str, float | None]:
+    """The thresholds the verdict will use, as numbers: checks left out, given at their defaults
+    or written 400.0 instead of 400 give the same verdict, so they give the same fingerprint."""
+    from worker.diagnostics import resolve_thresholds
+
+    resolved = resolve_thresholds(checks if isinstance(checks, dict) else None)
+    return {name: None if value is None else float(value) for name, value in resolved.items()}
 
 
 def wants_reuse(body: dict[str, Any]) -> bool:
