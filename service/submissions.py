@@ -224,7 +224,8 @@ def prepare(runtime: Runtime, body: Any) -> Prepared:
         problems.extend(member_problems)
         model = engine_body.get("model")
         if not member_problems and isinstance(model, dict):
-            sampler = body.get("sampler") if isinstance(body.get("sampler"), dict) else {}
+            given = body.get("sampler", {})
+            sampler = given if isinstance(given, dict) else {}
             method = sampler.get("method", _default_method())
             outcome = resolve_warm_start(
                 runtime, body["warm_start"]["job"], model, _model_hash(model), method,
@@ -233,7 +234,8 @@ def prepare(runtime: Runtime, body: Any) -> Prepared:
             if isinstance(outcome, WarmStart):
                 warm = outcome
                 engine_body["warm_start"] = {"job": warm.source, "chains": warm.chains}
-                if "warmup_iterations" not in sampler:
+                # Settings that are not an object are left as sent, for validation to refuse.
+                if isinstance(given, dict) and "warmup_iterations" not in given:
                     # The shorter warm-up is the point of a warm start; it is recorded like
                     # any setting (and is part of the reuse fingerprint).
                     engine_body["sampler"] = {**sampler, "warmup_iterations": DEFAULT_WARM_WARMUP}
