@@ -22,6 +22,10 @@ RESOURCES = {
     "sampler-stats": ("stat", "statistics", "statistic"),
 }
 
+# The formats whose bytes hold the job id (stream_json writes "job"); the others hold only the
+# arrays, so a reused job's download is byte for byte, and tag for tag, its source's.
+NAMES_THE_JOB = frozenset({"json"})
+
 
 def _stored(runtime: Runtime, chains: list[Chain], kind: str) -> tuple[list[str], dict[int, int]]:
     """SHA-256s of the arrays behind a download (in a fixed order) and each chain's row count."""
@@ -58,7 +62,8 @@ def download(
     kind, column_key, value_label = RESOURCES[resource]
     chosen = [c for c in chains if c.chain_index in set(selection.chains)]
     hashes, lengths = _stored(runtime, chosen, kind)
-    tag = download_tag(resource, format_name, layout, selection, hashes)
+    named = job_id if format_name in NAMES_THE_JOB else None
+    tag = download_tag(resource, format_name, layout, selection, hashes, named)
     if none_match(request.headers.get("If-None-Match"), tag):
         response = Response(status=304)
         response.headers["ETag"] = tag

@@ -14,15 +14,26 @@ from collections.abc import Sequence
 from service.draw_export import Selection
 
 # Bumped when the bytes written for the same arrays and query would change.
-ENCODING_VERSION = "2"  # 2: JSON and Parquet say whether the draws are partial
+# 2: JSON and Parquet say whether the draws are partial; 3: the job id is part of a JSON tag
+ENCODING_VERSION = "3"
 
 
 def download_tag(
-    resource: str, format_name: str, layout: str, selection: Selection, array_hashes: Sequence[str]
+    resource: str,
+    format_name: str,
+    layout: str,
+    selection: Selection,
+    array_hashes: Sequence[str],
+    job_id: str | None = None,
 ) -> str:
-    """The quoted strong ETag value for one download."""
+    """The quoted strong ETag value for one download.
+
+    ``job_id`` is given for the formats whose bytes name the job: a reused job shares its source's
+    arrays, but not its JSON, so it must not share that tag either.
+    """
     identity = {
         "version": ENCODING_VERSION,
+        "job": job_id,
         "resource": resource,
         "format": format_name,
         "layout": layout,
