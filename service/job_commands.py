@@ -102,7 +102,8 @@ def parse_model_ref(text: str) -> dict[str, Any]:
         raise InputProblem(f"--model '{text}': expected NAME or NAME:VERSION")
     if not version:
         return {"name": name}
-    if not version.isdigit():
+    # ASCII digits only: str.isdigit() also accepts "²", which int() refuses with a traceback.
+    if not (version.isascii() and version.isdigit()):
         raise InputProblem(f"--model '{text}': the version after ':' is a whole number")
     return {"name": name, "version": int(version)}
 
