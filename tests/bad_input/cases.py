@@ -87,6 +87,20 @@ def nested(depth: int) -> str:
     return "exp(" * depth + "mu" + ")" * depth
 
 
+def by_name(ref: Any) -> Callable[[dict], None]:
+    """The base body sending a registered model reference instead of its spec."""
+
+    def edit(body: dict) -> None:
+        del body["model"]
+        body["model_ref"] = ref
+
+    return edit
+
+
+# An id of the right shape that no job has (the table's store is empty).
+NO_SUCH_JOB = "0" * 32
+
+
 LIK = "/model/likelihood/0"
 LOC = LIK + "/arguments/location"
 CASES = [
@@ -188,4 +202,30 @@ CASES = [
     Case("slice_syntax", 422, LOC, with_location("[mu, mu][1:2]")),
     Case("comparison_outside_select", 422, LOC, with_location("mu < 1")),
     Case("expression_too_long", 422, LOC, with_location(" + ".join(["mu"] * 2_600))),
+    # The registry, reuse and warm-start members (README "Model registry", "Result reuse",
+    # "Warm starts"); none needs an earlier job or model: the table's store is empty.
+    Case("model_and_model_ref", 422, "/model_ref",
+         changed(set_in(("model_ref",), {"name": "demand"}))),
+    Case("model_ref_not_object", 422, "/model_ref", changed(by_name("demand"))),
+    Case("model_ref_bad_name", 422, "/model_ref/name", changed(by_name({"name": "-demand"}))),
+    Case("model_ref_name_newline", 422, "/model_ref/name",
+         changed(by_name({"name": "demand\n"}))),
+    Case("model_ref_version_zero", 422, "/model_ref/version",
+         changed(by_name({"name": "demand", "version": 0}))),
+    Case("model_ref_version_string", 422, "/model_ref/version",
+         changed(by_name({"name": "demand", "version": "1"}))),
+    Case("model_ref_unknown_member", 422, "/model_ref/tag",
+         changed(by_name({"name": "demand", "tag": "x"}))),
+    Case("model_ref_not_registered", 422, "/model_ref/name", changed(by_name({"name": "demand"}))),
+    Case("reuse_not_boolean", 422, "/reuse", changed(set_in(("reuse",), "no"))),
+    Case("warm_start_not_object", 422, "/warm_start",
+         changed(set_in(("warm_start",), NO_SUCH_JOB))),
+    Case("warm_start_job_not_hex", 422, "/warm_start/job",
+         changed(set_in(("warm_start",), {"job": "Z" * 32}))),
+    Case("warm_start_unknown_member", 422, "/warm_start/chains",
+         changed(set_in(("warm_start",), {"job": NO_SUCH_JOB, "chains": []}))),
+    Case("warm_start_no_such_job", 422, "/warm_start/job",
+         changed(set_in(("warm_start",), {"job": NO_SUCH_JOB})), says=("no job",)),
+    Case("warm_start_unsupported_method", 422, "/warm_start/job", changed(lambda b: (
+        b["sampler"].update({"method": "gibbs"}), b.update({"warm_start": {"job": NO_SUCH_JOB}})))),
 ]
