@@ -20,7 +20,7 @@ from sqlalchemy.exc import IntegrityError
 
 from service.access.limits import unknown_count_problems
 from service.access.tenancy import current_key_id, current_tenant
-from service.canonical import sha256_of_json
+from service.canonical import NOT_JSON_NUMBER, non_finite_pointers, sha256_of_json
 from service.problem_details import ApiProblem
 from service.runtime import Runtime
 from service.schemas import schema_problems
@@ -100,6 +100,14 @@ def registration_problems(body: Any, settings: Any) -> list[Problem]:
     if too_big:
         return problems + too_big
     found = [p for p in check_model(body["model"], {}) if not p.pointer.startswith("/data")]
+    # The engine does not look at every number (bounds, for one); the version hash needs all of
+    # them to be JSON numbers.
+    reported = {p.pointer for p in found}
+    found += [
+        Problem(where, NOT_JSON_NUMBER)
+        for where in non_finite_pointers(body["model"], "/model")
+        if where not in reported
+    ]
     return problems + found
 
 

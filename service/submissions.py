@@ -16,7 +16,7 @@ from service import events
 from service.access.limits import check_active_jobs, unknown_count_problems
 from service.access.tenancy import current_key_id, current_tenant, scoped_idempotency_key
 from service.callbacks import notify_problems, queue_callback_safely
-from service.canonical import sha256_of_json
+from service.canonical import NOT_JSON_NUMBER, non_finite_pointers, sha256_of_json
 from service.config import Settings
 from service.dispatch import send_chain_tasks
 from service.problem_details import ApiProblem
@@ -269,7 +269,10 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
         raise ApiProblem(
             422, "invalid-submission", "The submission is not valid",
             "The body holds NaN or infinity, which JSON has no way to write.",
-            [{"pointer": "", "message": "NaN and infinity are not JSON numbers."}],
+            [
+                {"pointer": where, "message": NOT_JSON_NUMBER}
+                for where in non_finite_pointers(body) or [""]
+            ],
         ) from error
     idempotency_key = scoped_idempotency_key(idempotency_key)
     if idempotency_key is not None:
