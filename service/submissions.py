@@ -222,6 +222,12 @@ def prepare(runtime: Runtime, body: Any) -> Prepared:
     if "warm_start" in body:
         member_problems = _warm_start_member_problems(body["warm_start"])
         problems.extend(member_problems)
+        if isinstance(body["warm_start"], dict):
+            # The engine's records come from the service only; records sent are refused above
+            # as an unknown member, not checked as if they were the earlier job's.
+            engine_body["warm_start"] = {
+                key: value for key, value in body["warm_start"].items() if key != "chains"
+            }
         model = engine_body.get("model")
         if not member_problems and isinstance(model, dict):
             given = body.get("sampler", {})

@@ -52,3 +52,17 @@ def test_a_warm_start_without_sampler_settings_gets_the_short_warm_up(
     assert response.status_code == 202, response.get_json()
     audit = client.get(f"/v1/jobs/{response.get_json()['id']}/audit").get_json()
     assert audit["settings"]["warmup_iterations"] == DEFAULT_WARM_WARMUP
+
+
+@pytest.mark.parametrize("job", ["0" * 32, "earlier"])
+def test_records_sent_by_the_submitter_are_refused_once_not_blamed_on_the_earlier_job(
+    app: Flask, queue, earlier: str, job: str
+) -> None:
+    body = normal_mean()
+    body["warm_start"] = {"job": earlier if job == "earlier" else job, "chains": [{}]}
+    response = app.test_client().post("/v1/jobs", json=body)
+    problem = check_flask("POST", "/v1/jobs", response)
+    assert response.status_code == 422
+    assert [e["pointer"] for e in problem["errors"]] == ["/warm_start/chains"]
+    assert "earlier job's" not in response.get_data(as_text=True)
+    assert queue.length() == 0
