@@ -84,6 +84,9 @@ class JobFilter:
             key, sep, value = raw.partition(":")
             if not sep or not key:
                 raise bad_parameter("label", f"Expected label=key:value, got {raw!r}.")
+            if "\x00" in raw:
+                # No stored label holds one, and PostgreSQL refuses NUL in a text parameter.
+                raise bad_parameter("label", "A label filter cannot hold a NUL character.")
             pairs.append((key, value))
         return cls(wanted, tuple(pairs))
 

@@ -119,6 +119,7 @@ def validate(
             engine_found = [p for p in engine_found if p.pointer != "/model"]
         problems = _merged(problems, engine_found)
         problems = _merged(problems, notify_problems(body, settings))
+        problems = _merged(problems, _label_problems(body.get("labels")))
     if problems:
         raise invalid(problems)
     stored = dict(body)
@@ -130,6 +131,17 @@ def validate(
     if problems:
         raise invalid(problems)
     return stored, resolved
+
+
+def _label_problems(labels: Any) -> list[Problem]:
+    # Labels are stored as text columns; PostgreSQL refuses a NUL character in text.
+    if not isinstance(labels, dict):
+        return []
+    return [
+        Problem(f"/labels/{escape_token(key)}", "A label value cannot hold a NUL character.")
+        for key, value in labels.items()
+        if isinstance(value, str) and "\x00" in value
+    ]
 
 
 def _about_the_earlier_job(problem: Problem) -> Problem:

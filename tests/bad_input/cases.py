@@ -126,6 +126,8 @@ CASES = [
     Case("data_is_list", 422, "/data", changed(set_in(("data",), [1, 2]))),
     Case("missing_data_value", 422, "/data/y", changed(lambda b: b["data"].pop("y"))),
     Case("labels_not_strings", 422, "/labels", changed(set_in(("labels",), {"suite": 3}))),
+    Case("label_with_nul", 422, "/labels/suite",
+         changed(set_in(("labels",), {"suite": "a\u0000b"}))),
     Case("thresholds_wrong_type", 422, "/checks",
          changed(set_in(("checks",), {"max_rhat": "low"}))),
     # Distributions and names.
