@@ -460,7 +460,8 @@ def store_result(
                 **ending,
                 adapted=_json_ready(result.adapted),
                 checkpoint=None,
-                **evaluation_counts.row_values(result.evaluations),
+                # a result without counts stores NULL: "not counted"
+                **evaluation_counts.row_values(getattr(result, "evaluations", None)),
             )
             .execution_options(synchronize_session=False)
         ).rowcount
