@@ -119,7 +119,7 @@ class Chain:
         self.iteration = 0
         self.divergences = {"warmup": 0, "sampling": 0}
         self.estimator = RunningCovariance(self.dimension, settings.metric == "dense")
-        target = self.target  # counted from here on
+        target = self.target  # the counting wrapper from _setup: initialisation is counted too
         with np.errstate(all="ignore"):
             self.state = initial_state(
                 target,
