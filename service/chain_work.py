@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy import and_, delete, exists, func, or_, select, update
 
-from service import crash_drill, events
+from service import crash_drill, evaluation_counts, events
 from service.dispatch import send_finish_task
 from service.runtime import Runtime
 from service.store.arrays import ENCODING, encode_array
@@ -460,6 +460,8 @@ def store_result(
                 **ending,
                 adapted=_json_ready(result.adapted),
                 checkpoint=None,
+                # a result without counts stores NULL: "not counted"
+                **evaluation_counts.row_values(getattr(result, "evaluations", None)),
             )
             .execution_options(synchronize_session=False)
         ).rowcount

@@ -8,7 +8,7 @@ from typing import Any
 from sqlalchemy import select, update
 from sqlalchemy.orm import undefer
 
-from service import events
+from service import evaluation_counts, events
 from service.callbacks import queue_callback_safely
 from service.partial_results import summarise_partial
 from service.runtime import Runtime
@@ -20,8 +20,11 @@ from service.versions import software_versions
 log = logging.getLogger(__name__)
 
 
-def load_chain_result(runtime: Runtime, chain_id: int, adapted: dict | None) -> Any:
-    """A stored chain as the engine's ChainResult (checksums verified on the way out)."""
+def load_chain_result(
+    runtime: Runtime, chain_id: int, adapted: dict | None, evaluations: Any = None
+) -> Any:
+    """A stored chain as the engine's ChainResult (checksums verified on the way out);
+    ``evaluations`` the chain row's counts of model evaluations (service/evaluation_counts.py)."""
     from worker.runner import ChainResult
 
     with runtime.sessions() as session:
@@ -34,6 +37,7 @@ def load_chain_result(runtime: Runtime, chain_id: int, adapted: dict | None) -> 
         stats=stats,
         adapted=adapted or {},
         completed=True,
+        evaluations=evaluations,
     )
 
 
@@ -84,7 +88,10 @@ def finish(runtime: Runtime, job_id: str) -> str:
     if any(chain.state == "timed_out" for chain in chains):
         return _finish_partial(runtime, job, chains)
     try:
-        results = [load_chain_result(runtime, c.id, c.adapted) for c in chains]
+        results = [
+            load_chain_result(runtime, c.id, c.adapted, evaluation_counts.engine_counts(c))
+            for c in chains
+        ]
         outcome = runner.finish_job(job.body, results)
     except Exception as error:
         log.exception("finishing job %s failed", job_id)

@@ -5,6 +5,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from typing import Any
 
+from service import evaluation_counts
 from service.store.models import Chain, Job
 from service.timestamps import rfc3339
 
@@ -17,6 +18,7 @@ def chain_resource(chain: Chain) -> dict[str, Any]:
         "iteration": chain.iteration,
         "iterations_total": chain.iterations_total,
         "divergences": chain.divergences,
+        "evaluations": evaluation_counts.as_document(chain),
         "attempts": chain.attempts,
         "started_at": rfc3339(chain.started_at),
         "finished_at": rfc3339(chain.finished_at),

@@ -2,9 +2,13 @@
 
 Everything is read at scrape time from where it already lives: job and chain rows in the store,
 the Celery queue's Redis lists, and a bounded ping of the workers. Chain durations are a histogram
-of succeeded chains' wall time (warm-up included). Gradient evaluations per second divide the
-stored sampling-phase leapfrog steps by those chains' wall time: warm-up's steps are not stored, so
-it is a lower bound on the rate.
+of succeeded chains' wall time (warm-up included). Evaluation rates divide the evaluations of the
+model the workers counted for succeeded chains, in every phase (initialisation, step-size searches,
+warm-up, sampling), by those chains' wall time: evaluations with the gradient for the chains that
+made any (NUTS, static HMC), of the log density alone for those that made none (random-walk
+Metropolis). Chains stored before the counts existed (migration 0005) count their stored
+sampling-phase leapfrog steps instead, a lower bound; such Metropolis chains are left out. Reused
+chains have no start or finish time: no worker ran them, so they are in neither figure.
 """
 
 from __future__ import annotations
@@ -16,6 +20,7 @@ import numpy as np
 import redis
 from sqlalchemy import Float, cast, func, select
 
+from service.evaluation_counts import COLUMNS as COUNT_COLUMNS
 from service.runtime import Runtime
 from service.store.arrays import decode_array
 from service.store.models import JOB_STATES, Chain, ChainArray, Job
@@ -27,8 +32,9 @@ DURATION_BUCKETS = (1.0, 5.0, 15.0, 60.0, 300.0, 900.0, 3600.0, 14400.0)
 PRIORITY_SEPARATOR = "\x06\x16"
 PRIORITY_STEPS = (3, 6, 9)
 
-# Stored arrays never change once a chain succeeded, so each chain's step count is read once.
-_leapfrog_by_chain: dict[tuple[str, int], int] = {}
+# Stored arrays never change once a chain succeeded, so each chain's step count is read once;
+# None for a chain without the statistic (random-walk Metropolis).
+_leapfrog_by_chain: dict[tuple[str, int], int | None] = {}
 
 
 def _escape(value: str) -> str:
@@ -68,18 +74,17 @@ def job_counts(runtime: Runtime) -> dict[str, int]:
     return counts
 
 
-def chain_durations(runtime: Runtime) -> tuple[np.ndarray, list[tuple[str, int]]]:
-    """Wall times of succeeded chains and their (job id, chain index) keys."""
+def chain_durations(runtime: Runtime) -> np.ndarray:
+    """Wall times of succeeded chains (those a worker ran: reused chains have no times)."""
     with runtime.sessions() as session:
-        rows = session.execute(
-            select(Chain.job_id, Chain.chain_index, _duration_seconds(runtime)).where(
+        seconds = session.scalars(
+            select(_duration_seconds(runtime)).where(
                 Chain.state == "succeeded",
                 Chain.started_at.is_not(None),
                 Chain.finished_at.is_not(None),
             )
         ).all()
-    durations = np.asarray([row[2] for row in rows], dtype=np.float64)
-    return durations, [(row[0], row[1]) for row in rows]
+    return np.asarray(list(seconds), dtype=np.float64)
 
 
 def leapfrog_total(runtime: Runtime, keys: list[tuple[str, int]]) -> int:
@@ -96,9 +101,56 @@ def leapfrog_total(runtime: Runtime, keys: list[tuple[str, int]]) -> int:
                     ChainArray.name == "leapfrog_steps",
                 )
             ).all()
+        for key in missing:
+            _leapfrog_by_chain[key] = None
         for job_id, index, data, sha in rows:
             _leapfrog_by_chain[(job_id, index)] = int(np.sum(decode_array(data, sha)))
-    return sum(_leapfrog_by_chain.get(key, 0) for key in keys)
+    return sum(_leapfrog_by_chain.get(key) or 0 for key in keys)
+
+
+def evaluation_rates(runtime: Runtime) -> tuple[float, float]:
+    """Gradient evaluations per second over succeeded chains that evaluate gradients, and
+    log-density-only evaluations per second over those that do not (see the module docstring)."""
+    with runtime.sessions() as session:
+        rows = session.execute(
+            select(
+                Chain.job_id,
+                Chain.chain_index,
+                _duration_seconds(runtime),
+                *(getattr(Chain, name) for name in COUNT_COLUMNS),
+            ).where(
+                Chain.state == "succeeded",
+                Chain.started_at.is_not(None),
+                Chain.finished_at.is_not(None),
+            )
+        ).all()
+    gradients = gradient_seconds = densities = density_seconds = 0.0
+    uncounted: list[tuple[tuple[str, int], float]] = []
+    for job_id, index, seconds, *counts in rows:
+        if any(count is None for count in counts):
+            uncounted.append(((job_id, index), float(seconds)))
+            continue
+        by_name = dict(zip(COUNT_COLUMNS, counts, strict=True))
+        chain_gradients = by_name["warmup_gradient_evaluations"] + by_name[
+            "sampling_gradient_evaluations"
+        ]
+        if chain_gradients > 0:
+            gradients += chain_gradients
+            gradient_seconds += float(seconds)
+        else:
+            densities += by_name["warmup_log_density_evaluations"]
+            densities += by_name["sampling_log_density_evaluations"]
+            density_seconds += float(seconds)
+    if uncounted:
+        gradients += leapfrog_total(runtime, [key for key, _ in uncounted])
+        # Only chains with stored leapfrog steps made gradient evaluations.
+        gradient_seconds += sum(
+            s for key, s in uncounted if _leapfrog_by_chain.get(key) is not None
+        )
+    return (
+        gradients / gradient_seconds if gradient_seconds > 0 else 0.0,
+        densities / density_seconds if density_seconds > 0 else 0.0,
+    )
 
 
 def queue_depth(runtime: Runtime) -> int | None:
@@ -151,7 +203,7 @@ def exposition(runtime: Runtime) -> str:
                 [("drawyard_queue_messages", {"queue": runtime.settings.queue}, depth)],
             )
         )
-    durations, keys = chain_durations(runtime)
+    durations = chain_durations(runtime)
     cumulative = np.searchsorted(np.sort(durations), DURATION_BUCKETS, side="right")
     buckets = [
         ("drawyard_chain_duration_seconds_bucket", {"le": repr(b)}, int(c))
@@ -168,15 +220,26 @@ def exposition(runtime: Runtime) -> str:
             buckets,
         )
     )
-    total_seconds = float(durations.sum())
-    steps = leapfrog_total(runtime, keys)
-    rate = steps / total_seconds if total_seconds > 0 else 0.0
+    gradient_rate, density_rate = evaluation_rates(runtime)
     parts.append(
         _family(
             "drawyard_gradient_evaluations_per_second",
             "gauge",
-            "Sampling-phase leapfrog steps of succeeded chains per second of their wall time.",
-            [("drawyard_gradient_evaluations_per_second", {}, rate)],
+            "Evaluations of the log density with its gradient in all phases (initialisation, "
+            "step-size search, warm-up, sampling) per second of wall time, over succeeded chains "
+            "that evaluate gradients (NUTS, static HMC). Chains stored before the counts existed "
+            "contribute their sampling-phase leapfrog steps, a lower bound.",
+            [("drawyard_gradient_evaluations_per_second", {}, gradient_rate)],
+        )
+    )
+    parts.append(
+        _family(
+            "drawyard_log_density_evaluations_per_second",
+            "gauge",
+            "Evaluations of the log density alone (no gradient) in all phases per second of wall "
+            "time, over succeeded chains that evaluate no gradient (random-walk Metropolis). "
+            "Chains stored before the counts existed are left out.",
+            [("drawyard_log_density_evaluations_per_second", {}, density_rate)],
         )
     )
     workers = live_workers(runtime)

@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy import select
 
+from service import evaluation_counts
 from service.draw_export import Selection
 from service.job_queries import bad_parameter, load_job
 from service.job_resources import provenance
@@ -267,6 +268,7 @@ def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
                 "finished_at": rfc3339(chain.finished_at),
                 "iteration": chain.iteration,
                 "iterations_total": chain.iterations_total,
+                "evaluations": evaluation_counts.as_document(chain),
                 # The limit the worker applied when it stopped the chain; null unless it did.
                 "time_limit_seconds": stops.get(chain.chain_index, {}).get("time_limit_seconds"),
                 "draws_sha256": draws[chain.id].sha256 if chain.id in draws else None,

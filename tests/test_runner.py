@@ -83,6 +83,23 @@ def test_outcome_is_strict_json_and_records_the_seed() -> None:
 
 
 @pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
+def test_the_sampler_report_counts_each_chains_evaluations_by_phase(method: str) -> None:
+    outcome = runner.run_in_process(normal_mean_body(method))
+    gradients = outcome["sampler"]["gradient_evaluations_per_chain"]
+    densities = outcome["sampler"]["log_density_evaluations_per_chain"]
+    assert len(gradients) == len(densities) == 2
+    for stats, gradient, density in zip(outcome["stats"], gradients, densities, strict=True):
+        if method == "metropolis":
+            # no gradient; one log density per proposal, the start at least once more
+            assert gradient == {"warmup": 0, "sampling": 0}
+            assert density["sampling"] == 150 and density["warmup"] > 150
+        else:
+            # one gradient per leapfrog step in sampling; initialisation and searches in warm-up
+            assert gradient["sampling"] == int(stats["leapfrog_steps"].sum())
+            assert gradient["warmup"] > 150 and density == {"warmup": 0, "sampling": 0}
+
+
+@pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
 @pytest.mark.parametrize("stop_after", [1, 90, 150, 151, 260])
 def test_resume_from_a_snapshot_equals_the_uninterrupted_run(method: str, stop_after: int) -> None:
     """Stopped in warm-up, at its end, at the first draw and in sampling; the resumed chain must

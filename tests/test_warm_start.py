@@ -133,6 +133,24 @@ def test_warm_chain_resumes_bitwise_from_a_snapshot(method: str, stop_after: int
         k: v.tobytes() for k, v in whole.stats.items()
     }
     assert resumed.adapted == whole.adapted
+    assert resumed.evaluations == whole.evaluations is not None
+
+
+@pytest.mark.parametrize("method", ["nuts", "metropolis"])
+def test_the_warm_start_checks_count_as_warm_up_evaluations(method: str) -> None:
+    """Before any iteration: one log-density evaluation per earlier record (the position check of
+    worker/warm_start.py), then the start at the earlier position evaluated once, with the gradient
+    for NUTS; the metric is of the same kind, so there is no step-size search."""
+    body = warm_body(method)
+    records = len(body["warm_start"]["chains"])
+    counts = runner.start_chain(body, 0).chain.evaluation_counts()
+    assert counts is not None
+    if method == "nuts":
+        assert counts.log_density == {"warmup": records, "sampling": 0}
+        assert counts.gradient == {"warmup": 1, "sampling": 0}
+    else:
+        assert counts.log_density == {"warmup": records + 1, "sampling": 0}
+        assert counts.gradient == {"warmup": 0, "sampling": 0}
 
 
 def test_a_member_without_records_passes_the_check_but_cannot_start() -> None:

@@ -19,9 +19,10 @@ import numpy as np
 
 from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
 from worker.problems import InvalidSubmission, Problem, escape_token
-from worker.samplers import Chain, SamplerSettings
+from worker.samplers import Chain, EvaluationCounts, SamplerSettings
 from worker.samplers.chain import sampling_sequence
 from worker.samplers.settings import INITIALISATIONS, METHODS, METRICS
+from worker.samplers.target import CountedTarget
 from worker.warm_start import (
     chain_state,
     member_problems,
@@ -320,7 +321,9 @@ class ChainResult:
 
     ``values`` is (draws, quantities) float64 with columns ``names`` (unknowns, derived,
     generated); ``stats`` as the sampler records them; ``adapted`` the final step size and metric
-    (or proposal); ``completed`` False when the chain was stopped early.
+    (or proposal); ``completed`` False when the chain was stopped early; ``evaluations`` how often
+    the chain evaluated the model, by phase (None when not known, e.g. a chain read back from a
+    store that did not keep the counts).
     """
 
     names: list[str]
@@ -329,6 +332,7 @@ class ChainResult:
     adapted: dict
     completed: bool
     warmup_stats: dict[str, np.ndarray] = field(default_factory=dict)
+    evaluations: EvaluationCounts | None = None
 
 
 class ChainRun:
@@ -360,6 +364,7 @@ class ChainRun:
             adapted=output.adapted,
             completed=output.completed,
             warmup_stats=output.warmup_stats,
+            evaluations=output.evaluations,
         )
 
     def report(self, draws: np.ndarray) -> np.ndarray:
@@ -397,10 +402,13 @@ def start_chain(body: dict, chain_index: int) -> ChainRun:
     values = _initial_values_for(resolved, chain_index)
     point = None if values is None else np.asarray(model.unconstrain(values), dtype=np.float64)
     warm = None
+    # Counted from here: the warm-start checks evaluate the log density at the earlier positions
+    # for this chain, so they are part of its warm-up work.
+    target = CountedTarget(model)
     if body.get("warm_start") is not None:
-        _require_warm_records(body, model)
+        _require_warm_records(body, target)
         warm = chain_state(body["warm_start"], chain_index, resolved["method"])
-    chain = Chain(model, _chain_settings(resolved), seed, initial_point=point, warm_start=warm)
+    chain = Chain(target, _chain_settings(resolved), seed, initial_point=point, warm_start=warm)
     return ChainRun(model, chain, seed)
 
 
@@ -434,7 +442,8 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     """Summary, sampler report and verdict of a job's completed chains, all JSON-able.
 
     Returns ``{"summary": [per-quantity records], "sampler": report, "verdict": verdict}``; the
-    sampler report adds each chain's adapted step size to ``sampler_checks``' counts.
+    sampler report adds each chain's adapted step size and its evaluations of the model (with
+    gradient, and of the log density alone, by phase) to ``sampler_checks``' counts.
     """
     if not results:
         raise ValueError("a job needs at least one chain to finish")
@@ -450,6 +459,13 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     report = sampler_checks([dict(r.stats) for r in results], depth)
     report["step_size_per_chain"] = [
         float(r.adapted["step_size"]) if "step_size" in r.adapted else None for r in results
+    ]
+    # {"warmup": n, "sampling": n} per chain, or None where a chain's counts are not known.
+    report["gradient_evaluations_per_chain"] = [
+        None if r.evaluations is None else dict(r.evaluations.gradient) for r in results
+    ]
+    report["log_density_evaluations_per_chain"] = [
+        None if r.evaluations is None else dict(r.evaluations.log_density) for r in results
     ]
     return {
         "summary": summary,

@@ -153,6 +153,13 @@ class Chain(Base):
     iteration: Mapped[int] = mapped_column(Integer, default=0)
     iterations_total: Mapped[int] = mapped_column(Integer)
     divergences: Mapped[int] = mapped_column(Integer, default=0)
+    # Evaluations of the model the worker counted, by phase (migration 0005; service/
+    # evaluation_counts.py): with gradient, and of the log density alone (random-walk Metropolis).
+    # NULL for chains stored before 0005 and for reused chains, which no worker ran.
+    warmup_gradient_evaluations: Mapped[int | None] = mapped_column(BigInteger)
+    sampling_gradient_evaluations: Mapped[int | None] = mapped_column(BigInteger)
+    warmup_log_density_evaluations: Mapped[int | None] = mapped_column(BigInteger)
+    sampling_log_density_evaluations: Mapped[int | None] = mapped_column(BigInteger)
     started_at: Mapped[datetime | None] = mapped_column(UtcDateTime)
     finished_at: Mapped[datetime | None] = mapped_column(UtcDateTime)
     updated_at: Mapped[datetime] = mapped_column(UtcDateTime)

@@ -10,8 +10,9 @@ iterations, and warm from night 1's adapted records with 250. Both keep 1000 dra
 and face the same default verdict.
 
 Costs count the whole job through worker.runner (compilation, every chain, summary and verdict):
-wall time, and gradient evaluations as the leapfrog steps of warm-up and sampling (the few of
-step-size searches are left out). ESS is the minimum bulk-ESS over the summary's quantities.
+wall time, and gradient evaluations as every chain counted them (worker/samplers/target.py,
+CountedTarget: initialisation, the warm-start checks, step-size searches, warm-up and sampling).
+ESS is the minimum bulk-ESS over the summary's quantities.
 """
 
 from __future__ import annotations
@@ -120,10 +121,8 @@ def fit(days: int, warmup: int, seed: int, warm_start: dict | None = None) -> Fi
     results = [runner.start_chain(body, k).run() for k in range(CHAINS)]
     outcome = runner.finish_job(body, results)
     seconds, cpu_seconds = time.perf_counter() - started, time.process_time() - cpu_started
-    gradients = sum(
-        int(r.warmup_stats["leapfrog_steps"].sum() + r.stats["leapfrog_steps"].sum())
-        for r in results
-    )
+    # every chain here was started, not resumed, so each has its counts
+    gradients = sum(sum(r.evaluations.gradient.values()) for r in results)
     essays = [r["bulk_ess"] for r in outcome["summary"] if r["bulk_ess"] is not None]
     failed = ", ".join(
         sorted({f"{c['check']} ({c['quantity']})" for c in outcome["verdict"]["failed_checks"]})

@@ -27,6 +27,7 @@ from tests.faults.job_watch import (
     wait_until,
 )
 from tests.service.bodies import normal_mean
+from worker import runner
 from worker.celery_app import make_celery
 
 FAST_LEASES = {
@@ -80,6 +81,10 @@ def test_a_killed_worker_chain_resumes_on_another_worker_from_a_timed_checkpoint
     assert len(resumed) == 1 and resumed[0] >= 1000
     _, got = http_draws(job_url)
     assert np.array_equal(bits(got), bits(in_process_draws(body)))
+    # the evaluation counts travelled in the checkpoint: the uninterrupted chain's, exactly
+    uninterrupted = runner.start_chain(body, 0).run().evaluations
+    assert uninterrupted is not None
+    assert job["chains"][0]["evaluations"] == uninterrupted.as_json()
     store.close()
 
 

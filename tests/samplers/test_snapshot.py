@@ -33,6 +33,9 @@ def same_output(a, b) -> bool:
         and all(np.array_equal(a.warmup_stats[k], b.warmup_stats[k]) for k in a.warmup_stats)
         and a.adapted == b.adapted
         and a.completed == b.completed
+        # the calls into the model, by phase: a resumed chain reports the uninterrupted total
+        and a.evaluations == b.evaluations
+        and a.evaluations is not None
     )
 
 

@@ -19,7 +19,8 @@ def lease_for(body: dict, checkpoint: bytes | None) -> Lease:
 
 def test_a_checkpoint_resumes_and_a_broken_one_starts_over_to_the_same_draws() -> None:
     body = normal_mean(chains=1, warmup=100, draws=300, seed=12)
-    expected = runner.start_chain(body, 0).run().values
+    uninterrupted = runner.start_chain(body, 0).run()
+    expected = uninterrupted.values
     saved: list[bytes] = []
     stopped = runner.start_chain(body, 0).run(
         checkpoint=saved.append, checkpoint_every=150, should_stop=lambda: len(saved) >= 1
@@ -27,5 +28,8 @@ def test_a_checkpoint_resumes_and_a_broken_one_starts_over_to_the_same_draws() -
     assert not stopped.completed and saved
     resumed = _start_or_resume(lease_for(body, saved[-1])).run()
     assert np.array_equal(resumed.values.view("u8"), expected.view("u8"))
+    # the counts travel in the checkpoint: the resumed chain reports the uninterrupted total
+    assert resumed.evaluations == uninterrupted.evaluations is not None
     fresh = _start_or_resume(lease_for(body, b"not a snapshot")).run()
     assert np.array_equal(fresh.values.view("u8"), expected.view("u8"))
+    assert fresh.evaluations == uninterrupted.evaluations

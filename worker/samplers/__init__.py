@@ -1,6 +1,6 @@
 """Samplers on the unconstrained space: NUTS, static HMC and adaptive random-walk Metropolis."""
 
-from worker.samplers.chain import Chain, ChainOutput
+from worker.samplers.chain import Chain, ChainOutput, EvaluationCounts
 from worker.samplers.initialisation import InitialisationError
 from worker.samplers.settings import SamplerSettings
 from worker.samplers.snapshot import SnapshotError
@@ -9,6 +9,7 @@ from worker.samplers.target import Target
 __all__ = [
     "Chain",
     "ChainOutput",
+    "EvaluationCounts",
     "InitialisationError",
     "SamplerSettings",
     "SnapshotError",

@@ -22,7 +22,7 @@ from worker.samplers.metropolis import (
 from worker.samplers.nuts import NutsTransition
 from worker.samplers.settings import SamplerSettings
 from worker.samplers.static_hmc import StaticHmcTransition
-from worker.samplers.target import Target
+from worker.samplers.target import CountedTarget, Target
 from worker.samplers.warm_schedule import (
     WarmStart,
     converted,
@@ -58,6 +58,24 @@ class ChainOutput:
     warmup_stats: dict[str, np.ndarray]
     adapted: dict
     completed: bool
+    # Calls into the model by phase ("warmup" includes initialisation and every step-size search;
+    # see EvaluationCounts); None for a chain resumed from a snapshot that did not count them.
+    evaluations: EvaluationCounts | None = None
+
+
+@dataclass
+class EvaluationCounts:
+    """How often a chain evaluated the model, by phase ("warmup", "sampling").
+
+    ``gradient`` counts evaluations of the log density with its gradient, ``log_density`` of
+    the log density alone (what random-walk Metropolis makes; it makes no gradient evaluations).
+    """
+
+    gradient: dict[str, int]
+    log_density: dict[str, int]
+
+    def as_json(self) -> dict[str, dict[str, int]]:
+        return {"gradient": dict(self.gradient), "log_density": dict(self.log_density)}
 
 
 def sampling_sequence(seed: np.random.SeedSequence, child: int) -> np.random.SeedSequence:
@@ -101,6 +119,7 @@ class Chain:
         self.iteration = 0
         self.divergences = {"warmup": 0, "sampling": 0}
         self.estimator = RunningCovariance(self.dimension, settings.metric == "dense")
+        target = self.target  # the counting wrapper from _setup: initialisation is counted too
         with np.errstate(all="ignore"):
             self.state = initial_state(
                 target,
@@ -138,10 +157,18 @@ class Chain:
                 self.metric = Metric.identity(settings.metric, self.dimension)
                 self.step_size = initial_step_size(target, self.metric, self.state, 1.0, self.rng)
                 self.dual = DualAveraging.start(self.step_size, self.goal)
+        # Initialisation, the first step-size search and any evaluations made through a
+        # CountedTarget before the chain was built (the runner's warm-start checks) are warm-up.
+        self.evaluations = EvaluationCounts(
+            gradient={"warmup": self.target.gradient_evaluations, "sampling": 0},
+            log_density={"warmup": self.target.log_density_evaluations, "sampling": 0},
+        )
+        self._counts_known = True
         self._allocate()
 
     def _setup(self, target: Target, settings: SamplerSettings) -> None:
-        self.target = target
+        # A CountedTarget passed in keeps the counts it already has (they are warm-up).
+        self.target = target if isinstance(target, CountedTarget) else CountedTarget(target)
         self.settings = settings
         self.dimension = int(target.dimension)
         self.total_iterations = settings.warmup_iterations + settings.draws
@@ -219,6 +246,9 @@ class Chain:
         """One iteration: a transition, its bookkeeping, and (in warm-up) adaptation."""
         i = self.iteration
         warmup = self.settings.warmup_iterations
+        counted = self.target
+        gradient_mark = counted.gradient_evaluations
+        density_mark = counted.log_density_evaluations
         # Overflow and invalid operations are expected on bad trajectories and are handled as
         # divergences; numpy's warnings about them are noise.
         with np.errstate(all="ignore"):
@@ -237,6 +267,10 @@ class Chain:
             self._record(self.stats, j, stats)
             if stats.get("divergent"):
                 self.divergences["sampling"] += 1
+        # Adaptation's step-size searches fall in warm-up iterations and count there.
+        phase = "warmup" if i < warmup else "sampling"
+        self.evaluations.gradient[phase] += counted.gradient_evaluations - gradient_mark
+        self.evaluations.log_density[phase] += counted.log_density_evaluations - density_mark
         self.iteration = i + 1
 
     def _transition(self) -> Callable[[State, np.random.Generator], tuple[State, dict]]:
@@ -334,7 +368,15 @@ class Chain:
             warmup_stats={k: v[:done_warmup].copy() for k, v in self.warmup_stats.items()},
             adapted=self.adapted(),
             completed=self.iteration == self.total_iterations,
+            evaluations=self.evaluation_counts(),
         )
+
+    def evaluation_counts(self) -> EvaluationCounts | None:
+        """A copy of the counts so far; None when a resume lost the count (see ``restore``)."""
+        if not self._counts_known:
+            return None
+        counts = self.evaluations
+        return EvaluationCounts(dict(counts.gradient), dict(counts.log_density))
 
     def adapted(self) -> dict:
         """The current (after warm-up: final) step size and metric, or proposal, and position, as
@@ -360,6 +402,8 @@ class Chain:
             "divergences": self.divergences,
             "estimator_count": self.estimator.count,
         }
+        if self._counts_known:
+            header["evaluations"] = self.evaluations.as_json()
         arrays = {
             "position": self.state.position,
             "gradient": self.state.gradient,
@@ -404,6 +448,16 @@ class Chain:
         chain.rng = np.random.Generator(bit_generator)
         chain.iteration = int(header["iteration"])
         chain.divergences = {k: int(v) for k, v in header["divergences"].items()}
+        # A snapshot written before chains counted evaluations cannot say what was spent so far:
+        # the chain keeps counting, but reports no counts rather than a short total.
+        counts = header.get("evaluations")
+        chain._counts_known = counts is not None
+        counts = counts or {"gradient": {}, "log_density": {}}
+        phases = ("warmup", "sampling")
+        chain.evaluations = EvaluationCounts(
+            gradient={p: int(counts["gradient"].get(p, 0)) for p in phases},
+            log_density={p: int(counts["log_density"].get(p, 0)) for p in phases},
+        )
         chain.state = State(
             np.array(arrays["position"]), float(header["log_density"]), np.array(arrays["gradient"])
         )

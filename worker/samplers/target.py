@@ -57,3 +57,30 @@ def density_only(target: Target, u: np.ndarray) -> float:
     except ArithmeticError:
         return -math.inf
     return value if math.isfinite(value) else -math.inf
+
+
+class CountedTarget:
+    """A Target that counts the calls a chain makes into the model.
+
+    ``gradient_evaluations`` counts evaluations of the log density with its gradient (one per
+    leapfrog step, initialisation attempt, optimiser call or step-size trial);
+    ``log_density_evaluations`` counts evaluations of the log density alone (random-walk
+    Metropolis, warm-start position checks). A call counts when it is made, also when the model
+    then fails, since the work was done. The cost is one integer increment per call.
+    """
+
+    __slots__ = ("inner", "dimension", "gradient_evaluations", "log_density_evaluations")
+
+    def __init__(self, inner: Target):
+        self.inner = inner
+        self.dimension = inner.dimension
+        self.gradient_evaluations = 0
+        self.log_density_evaluations = 0
+
+    def log_density(self, u: np.ndarray) -> float:
+        self.log_density_evaluations += 1
+        return self.inner.log_density(u)
+
+    def log_density_and_gradient(self, u: np.ndarray) -> tuple[float, np.ndarray]:
+        self.gradient_evaluations += 1
+        return self.inner.log_density_and_gradient(u)

@@ -1,0 +1,187 @@
+"""Evaluation counts on the chain row, on SQLite and PostgreSQL: the 0004 -> 0005 upgrade, the
+counts a worker stores, where the API shows them, and that reused chains carry none.
+
+The reference for the stored counts is the engine run in this process on the same body and chain
+(worker/runner.py): a chain's work depends only on the body and its seed, so the worker's counts
+must equal them exactly. The reference for the metric is plain arithmetic over the rows.
+"""
+
+from __future__ import annotations
+
+import json
+import uuid
+from pathlib import Path
+
+import pytest
+from alembic import command
+from sqlalchemy import create_engine, inspect, select, text, update
+
+from service import metrics
+from service.app import create_app
+from service.chain_work import run_chain
+from service.evaluation_counts import COLUMNS
+from service.finishing import finish
+from service.store import migrate
+from service.store.engine import make_engine
+from service.store.migrate import alembic_config
+from service.store.models import Chain
+from tests.service.bodies import normal_mean
+from worker import runner
+
+
+def within_clock_resolution(rate: float, total: int, seconds: float, chains: int) -> bool:
+    """``rate`` is ``total / seconds`` up to the store's clock arithmetic: SQLite's date functions
+    resolve whole milliseconds (sqlite.org, "Date And Time Functions"), so each chain's wall time
+    there may be off by up to 1 ms."""
+    slack = 1e-3 * chains
+    return total / (seconds + slack) * (1 - 1e-9) <= rate <= total / (seconds - slack) * (1 + 1e-9)
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def unmigrated_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
+    if request.param == "sqlite":
+        return f"sqlite:///{(tmp_path / 'old.sqlite').resolve()}"
+    return request.getfixturevalue("fresh_postgres_url")
+
+
+def test_upgrade_from_0004_keeps_chains_and_leaves_their_counts_null(unmigrated_url: str):
+    engine = make_engine(unmigrated_url)
+    config = alembic_config(unmigrated_url)
+    with engine.begin() as connection:
+        config.attributes["connection"] = connection
+        command.upgrade(config, "0004")
+    job_id = uuid.uuid4().hex
+    with engine.begin() as connection:
+        connection.execute(
+            text(
+                "INSERT INTO jobs (id, state, created_at, chain_count, seed, body, settings, "
+                "labels, request_sha256, spec_sha256, data_sha256, api_software) VALUES "
+                "(:id, 'succeeded', CURRENT_TIMESTAMP, 1, 5, :body, '{}', '{}', :h, :h, :h, '{}')"
+            ),
+            {"id": job_id, "body": json.dumps({"model": {}}), "h": "0" * 64},
+        )
+        connection.execute(
+            text(
+                "INSERT INTO chains (job_id, chain_index, state, attempts, duplicate_deliveries, "
+                "iteration, iterations_total, divergences, updated_at) VALUES "
+                "(:id, 0, 'succeeded', 1, 0, 20, 20, 0, CURRENT_TIMESTAMP)"
+            ),
+            {"id": job_id},
+        )
+    engine.dispose()
+    migrate(unmigrated_url)
+    engine = create_engine(unmigrated_url)
+    try:
+        with engine.connect() as connection:
+            version = connection.execute(text("SELECT version_num FROM alembic_version")).scalar()
+            assert version == "0005"
+            columns = {c["name"] for c in inspect(connection).get_columns("chains")}
+            assert set(COLUMNS) <= columns
+            row = connection.execute(
+                text(f"SELECT state, {', '.join(COLUMNS)} FROM chains WHERE job_id = :id"),
+                {"id": job_id},
+            ).one()
+            assert tuple(row) == ("succeeded", None, None, None, None)
+        with engine.begin() as connection:
+            config.attributes["connection"] = connection
+            command.downgrade(config, "0004")
+            columns = {c["name"] for c in inspect(connection).get_columns("chains")}
+            assert not set(COLUMNS) & columns
+            assert connection.execute(text("SELECT count(*) FROM chains")).scalar() == 1
+    finally:
+        engine.dispose()
+
+
+@pytest.mark.parametrize("method", ["nuts", "metropolis"])
+def test_stored_counts_are_the_engines_and_reused_chains_have_none(
+    database_url: str, redis_url: str, method: str
+):
+    app = create_app({"database_url": database_url, "broker_url": redis_url})
+    runtime = app.extensions["drawyard"]
+    try:
+        client = app.test_client()
+        body = normal_mean(chains=2, warmup=60, draws=40, seed=31, method=method)
+        job = client.post("/v1/jobs", json=body).get_json()
+        for index in range(2):
+            assert run_chain(runtime, job["id"], index).status == "succeeded"
+        assert finish(runtime, job["id"]) == "succeeded"
+
+        expected = []
+        for index in range(2):
+            counts = runner.start_chain(body, index).run().evaluations
+            assert counts is not None
+            expected.append(counts.as_json())
+        if method == "metropolis":
+            assert all(sum(e["gradient"].values()) == 0 for e in expected)
+        else:
+            assert all(e["gradient"]["warmup"] > 0 < e["gradient"]["sampling"] for e in expected)
+
+        resource = client.get(f"/v1/jobs/{job['id']}").get_json()
+        assert [c["evaluations"] for c in resource["chains"]] == expected
+        audit = client.get(f"/v1/jobs/{job['id']}/audit").get_json()
+        assert [c["evaluations"] for c in audit["chains"]] == expected
+        report = client.get(f"/v1/jobs/{job['id']}/diagnostics").get_json()["sampler"]
+        assert report["gradient_evaluations_per_chain"] == [e["gradient"] for e in expected]
+        assert report["log_density_evaluations_per_chain"] == [e["log_density"] for e in expected]
+
+        rates_before = metrics.evaluation_rates(runtime)
+        again = client.post("/v1/jobs", json=body).get_json()
+        assert again["reused_from"] == job["id"]
+        reused = client.get(f"/v1/jobs/{again['id']}").get_json()
+        assert [c["evaluations"] for c in reused["chains"]] == [None, None]
+        # no worker ran the reused chains: the rates are those of the original chains alone
+        assert metrics.evaluation_rates(runtime) == rates_before
+        with runtime.sessions() as session:
+            rows = session.execute(
+                select(Chain.started_at, Chain.finished_at).where(Chain.job_id == job["id"])
+            ).all()
+        seconds = sum((finished - started).total_seconds() for started, finished in rows)
+        gradient_rate, density_rate = rates_before
+        if method == "metropolis":
+            total = sum(sum(e["log_density"].values()) for e in expected)
+            assert gradient_rate == 0.0
+            assert within_clock_resolution(density_rate, total, seconds, chains=2)
+        else:
+            total = sum(sum(e["gradient"].values()) for e in expected)
+            assert density_rate == 0.0
+            assert within_clock_resolution(gradient_rate, total, seconds, chains=2)
+    finally:
+        runtime.close()
+
+
+def test_chains_stored_before_the_counts_fall_back_to_leapfrog_steps(
+    database_url: str, redis_url: str
+):
+    app = create_app({"database_url": database_url, "broker_url": redis_url})
+    runtime = app.extensions["drawyard"]
+    try:
+        client = app.test_client()
+        body = normal_mean(chains=1, warmup=60, draws=40, seed=32)
+        job = client.post("/v1/jobs", json=body).get_json()
+        assert run_chain(runtime, job["id"], 0).status == "succeeded"
+        with runtime.sessions() as session:
+            counted = session.execute(
+                select(Chain.sampling_gradient_evaluations).where(Chain.job_id == job["id"])
+            ).scalar_one()
+            session.execute(
+                update(Chain).where(Chain.job_id == job["id"]).values(dict.fromkeys(COLUMNS))
+            )
+            session.commit()
+        assert finish(runtime, job["id"]) == "succeeded"
+        # what a chain stored before migration 0005 looks like: no counts anywhere
+        assert client.get(f"/v1/jobs/{job['id']}").get_json()["chains"][0]["evaluations"] is None
+        report = client.get(f"/v1/jobs/{job['id']}/diagnostics").get_json()["sampler"]
+        assert report["gradient_evaluations_per_chain"] == [None]
+        stats = client.get(f"/v1/jobs/{job['id']}/sampler-stats").get_json()
+        column = stats["statistics"].index("leapfrog_steps")
+        steps = sum(row[column] for row in stats["chains"][0]["draws"])
+        assert steps == counted  # NUTS: one gradient per leapfrog step in sampling
+        with runtime.sessions() as session:
+            started, finished = session.execute(
+                select(Chain.started_at, Chain.finished_at).where(Chain.job_id == job["id"])
+            ).one()
+        gradient_rate, _ = metrics.evaluation_rates(runtime)
+        seconds = (finished - started).total_seconds()
+        assert within_clock_resolution(gradient_rate, steps, seconds, chains=1)
+    finally:
+        runtime.close()
