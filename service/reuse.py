@@ -99,12 +99,15 @@ def copy_result(session: Session, source_id: str, job_id: str) -> None:
         )
         .execution_options(synchronize_session=False)
     )
-    # Chains: where and by which software the draws were made is kept; no start or finish time
-    # and attempts 0 say that no worker ran them (so the monitoring's chain durations and
-    # gradient rates count only chains that ran).
+    # Chains: where and by which software the draws were made, and the evaluations they cost,
+    # are kept (the copied sampler report names the same counts); no start or finish time and
+    # attempts 0 say that no worker ran them, so the monitoring's chain durations and evaluation
+    # rates count only chains that ran.
     copied = (
         "chain_index", "state", "iteration", "iterations_total", "divergences", "phase",
         "adapted", "worker_host", "worker_pid", "worker_software",
+        "warmup_gradient_evaluations", "sampling_gradient_evaluations",
+        "warmup_log_density_evaluations", "sampling_log_density_evaluations",
     )  # fmt: skip
     session.execute(
         insert(Chain).from_select(

@@ -128,8 +128,11 @@ def test_stored_counts_are_the_engines_and_reused_chains_have_none(
         again = client.post("/v1/jobs", json=body).get_json()
         assert again["reused_from"] == job["id"]
         reused = client.get(f"/v1/jobs/{again['id']}").get_json()
-        assert [c["evaluations"] for c in reused["chains"]] == [None, None]
-        # no worker ran the reused chains: the rates are those of the original chains alone
+        # The copies name what the draws cost, as the copied sampler report does ...
+        assert [c["evaluations"] for c in reused["chains"]] == expected
+        reused_report = client.get(f"/v1/jobs/{again['id']}/diagnostics").get_json()["sampler"]
+        assert reused_report["gradient_evaluations_per_chain"] == [e["gradient"] for e in expected]
+        # ... but no worker ran the reused chains: the rates are those of the original chains alone
         assert metrics.evaluation_rates(runtime) == rates_before
         with runtime.sessions() as session:
             rows = session.execute(
