@@ -8,8 +8,6 @@ must equal them exactly. The reference for the metric is plain arithmetic over t
 
 from __future__ import annotations
 
-import json
-import uuid
 from pathlib import Path
 
 import pytest
@@ -26,6 +24,7 @@ from service.store.engine import make_engine
 from service.store.migrate import alembic_config
 from service.store.models import Chain
 from tests.service.bodies import normal_mean
+from tests.service.store_probe import store_at_revision_with_a_job
 from worker import runner
 
 
@@ -45,21 +44,10 @@ def unmigrated_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
 
 
 def test_upgrade_from_0004_keeps_chains_and_leaves_their_counts_null(unmigrated_url: str):
-    engine = make_engine(unmigrated_url)
+    job_id = store_at_revision_with_a_job(unmigrated_url, "0004")
     config = alembic_config(unmigrated_url)
+    engine = make_engine(unmigrated_url)
     with engine.begin() as connection:
-        config.attributes["connection"] = connection
-        command.upgrade(config, "0004")
-    job_id = uuid.uuid4().hex
-    with engine.begin() as connection:
-        connection.execute(
-            text(
-                "INSERT INTO jobs (id, state, created_at, chain_count, seed, body, settings, "
-                "labels, request_sha256, spec_sha256, data_sha256, api_software) VALUES "
-                "(:id, 'succeeded', CURRENT_TIMESTAMP, 1, 5, :body, '{}', '{}', :h, :h, :h, '{}')"
-            ),
-            {"id": job_id, "body": json.dumps({"model": {}}), "h": "0" * 64},
-        )
         connection.execute(
             text(
                 "INSERT INTO chains (job_id, chain_index, state, attempts, duplicate_deliveries, "

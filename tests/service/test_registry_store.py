@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import json
 import threading
-import uuid
 from pathlib import Path
 
 import pytest
@@ -24,10 +23,10 @@ from service.app import create_app
 from service.chain_work import run_chain
 from service.finishing import finish
 from service.store import migrate
-from service.store.engine import make_engine
 from service.store.migrate import alembic_config
 from service.store.models import Chain, ChainArray, ModelVersion
 from tests.service.bodies import normal_mean
+from tests.service.store_probe import store_at_revision_with_a_job
 
 SPEC = normal_mean()["model"]
 
@@ -40,22 +39,8 @@ def unmigrated_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
 
 
 def test_upgrade_from_0003_keeps_existing_jobs_and_adds_the_registry(unmigrated_url: str):
-    engine = make_engine(unmigrated_url)
+    job_id = store_at_revision_with_a_job(unmigrated_url, "0003")
     config = alembic_config(unmigrated_url)
-    with engine.begin() as connection:
-        config.attributes["connection"] = connection
-        command.upgrade(config, "0003")
-    job_id = uuid.uuid4().hex
-    with engine.begin() as connection:
-        connection.execute(
-            text(
-                "INSERT INTO jobs (id, state, created_at, chain_count, seed, body, settings, "
-                "labels, request_sha256, spec_sha256, data_sha256, api_software) VALUES "
-                "(:id, 'succeeded', CURRENT_TIMESTAMP, 1, 5, :body, '{}', '{}', :h, :h, :h, '{}')"
-            ),
-            {"id": job_id, "body": json.dumps({"model": {}}), "h": "0" * 64},
-        )
-    engine.dispose()
     migrate(unmigrated_url)
     engine = create_engine(unmigrated_url)
     try:
