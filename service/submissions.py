@@ -133,15 +133,32 @@ def validate(
     return stored, resolved
 
 
+# The schema's pattern for label keys (schemas/common.json) as a whole-string match: JSON
+# Schema patterns are searched, and "$" also matches before a final newline, so "team\n" passes
+# the schema and would be stored as an invisible twin of "team".
+LABEL_KEY = re.compile(r"[A-Za-z0-9_.\-/]{1,255}")
+SCHEMA_LABEL_KEY = re.compile(r"^[A-Za-z0-9_.\-/]{1,255}$")  # what the schema lets through
+
+
 def _label_problems(labels: Any) -> list[Problem]:
     # Labels are stored as text columns; PostgreSQL refuses a NUL character in text.
     if not isinstance(labels, dict):
         return []
-    return [
+    problems = [
+        Problem(
+            f"/labels/{escape_token(key)}",
+            "A label key is 1 to 255 letters, digits and '_', '.', '-', '/', nothing else.",
+        )
+        for key in labels
+        # Other bad keys are the schema's to report, at /labels.
+        if SCHEMA_LABEL_KEY.search(key) and not LABEL_KEY.fullmatch(key)
+    ]
+    problems += [
         Problem(f"/labels/{escape_token(key)}", "A label value cannot hold a NUL character.")
         for key, value in labels.items()
         if isinstance(value, str) and "\x00" in value
     ]
+    return problems
 
 
 def _about_the_earlier_job(problem: Problem) -> Problem:

@@ -128,6 +128,10 @@ CASES = [
     Case("labels_not_strings", 422, "/labels", changed(set_in(("labels",), {"suite": 3}))),
     Case("label_with_nul", 422, "/labels/suite",
          changed(set_in(("labels",), {"suite": "a\u0000b"}))),
+    # "$" in the schema's key pattern also matches before a final newline (Python re, as
+    # jsonschema uses it): the service checks the whole key.
+    Case("label_key_with_trailing_newline", 422, "/labels/suite\n",
+         changed(set_in(("labels",), {"suite\n": "a"}))),
     Case("thresholds_wrong_type", 422, "/checks",
          changed(set_in(("checks",), {"max_rhat": "low"}))),
     # Distributions and names.
