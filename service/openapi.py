@@ -150,6 +150,15 @@ def component_schemas() -> dict[str, Any]:
     return {stem: _rewrite_refs(copy.deepcopy(s), stem) for stem, s in load_schemas().items()}
 
 
+
+# Each path parameter's schema, in the order the parameters appear in a path.
+PATH_PARAMETERS = {
+    "job_id": "#/components/schemas/common/$defs/job_id",
+    "name": "#/components/schemas/model_version/$defs/name",
+    "version": "#/components/schemas/model_version/$defs/number",
+}
+
+
 def _operation(method: str, path: str) -> dict[str, Any]:
     responses = {}
     declared = dict(RESPONSES[(method, path)])
@@ -168,34 +177,11 @@ def _operation(method: str, path: str) -> dict[str, Any]:
             content["application/x-npz"] = {"schema": {"type": "string"}}
         responses[str(status)] = {"description": _status_text(status), "content": content}
     operation: dict[str, Any] = {"summary": SUMMARIES[(method, path)], "responses": responses}
-    parameters = []
-    if "{job_id}" in path:
-        parameters.append(
-            {
-                "name": "job_id",
-                "in": "path",
-                "required": True,
-                "schema": {"$ref": "#/components/schemas/common/$defs/job_id"},
-            }
-        )
-    if "{name}" in path:
-        parameters.append(
-            {
-                "name": "name",
-                "in": "path",
-                "required": True,
-                "schema": {"$ref": "#/components/schemas/model_version/$defs/name"},
-            }
-        )
-    if "{version}" in path:
-        parameters.append(
-            {
-                "name": "version",
-                "in": "path",
-                "required": True,
-                "schema": {"$ref": "#/components/schemas/model_version/$defs/number"},
-            }
-        )
+    parameters = [
+        {"name": name, "in": "path", "required": True, "schema": {"$ref": schema}}
+        for name, schema in PATH_PARAMETERS.items()
+        if "{" + name + "}" in path
+    ]
     parameters += [
         {
             "name": name,

@@ -21,6 +21,14 @@ def sqlite_store(tmp_path: Path) -> str:
     return url
 
 
+@pytest.fixture(params=["sqlite", "postgresql"])
+def unmigrated_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
+    """An empty store on each backend, not yet migrated: for upgrade tests from older revisions."""
+    if request.param == "sqlite":
+        return f"sqlite:///{(tmp_path / 'old.sqlite').resolve()}"
+    return request.getfixturevalue("fresh_postgres_url")
+
+
 @pytest.fixture
 def app(sqlite_store: str, redis_url: str) -> Iterator[Flask]:
     app = create_app(

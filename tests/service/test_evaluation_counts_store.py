@@ -8,8 +8,6 @@ must equal them exactly. The reference for the metric is plain arithmetic over t
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import pytest
 from alembic import command
 from sqlalchemy import create_engine, inspect, select, text, update
@@ -35,12 +33,6 @@ def within_clock_resolution(rate: float, total: int, seconds: float, chains: int
     slack = 1e-3 * chains
     return total / (seconds + slack) * (1 - 1e-9) <= rate <= total / (seconds - slack) * (1 + 1e-9)
 
-
-@pytest.fixture(params=["sqlite", "postgresql"])
-def unmigrated_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
-    if request.param == "sqlite":
-        return f"sqlite:///{(tmp_path / 'old.sqlite').resolve()}"
-    return request.getfixturevalue("fresh_postgres_url")
 
 
 def test_upgrade_from_0004_keeps_chains_and_leaves_their_counts_null(unmigrated_url: str):

@@ -12,9 +12,7 @@ from __future__ import annotations
 
 import json
 import threading
-from pathlib import Path
 
-import pytest
 import requests
 from alembic import command
 from sqlalchemy import create_engine, func, inspect, select, text
@@ -30,12 +28,6 @@ from tests.service.store_probe import store_at_revision_with_a_job
 
 SPEC = normal_mean()["model"]
 
-
-@pytest.fixture(params=["sqlite", "postgresql"])
-def unmigrated_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
-    if request.param == "sqlite":
-        return f"sqlite:///{(tmp_path / 'old.sqlite').resolve()}"
-    return request.getfixturevalue("fresh_postgres_url")
 
 
 def test_upgrade_from_0003_keeps_existing_jobs_and_adds_the_registry(unmigrated_url: str):
