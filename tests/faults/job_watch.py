@@ -6,10 +6,6 @@ The reference for every "nothing changed" claim is the engine's own uninterrupte
 
 from __future__ import annotations
 
-import io
-import json
-import subprocess
-import sys
 import time
 from collections.abc import Callable
 from pathlib import Path
@@ -21,6 +17,7 @@ from sqlalchemy import create_engine, select
 from sqlalchemy.orm import Session
 
 from service.store.models import Chain, ChainArray, Event, Job
+from tests.harness.in_process import in_process
 
 TERMINAL = ("succeeded", "failed", "cancelled", "timed_out")
 REPO_ROOT = Path(__file__).resolve().parents[2]
@@ -100,24 +97,7 @@ class StoreView:
 
 def in_process_draws(body: dict) -> np.ndarray:
     """worker.runner.run_in_process(body)["draws"], computed in a fresh Python process."""
-    script = (
-        "import io, json, sys\n"
-        "import numpy as np\n"
-        "from worker.runner import run_in_process\n"
-        "out = run_in_process(json.load(sys.stdin))\n"
-        "buffer = io.BytesIO()\n"
-        "np.save(buffer, out['draws'], allow_pickle=False)\n"
-        "sys.stdout.buffer.write(buffer.getvalue())\n"
-    )
-    done = subprocess.run(
-        [sys.executable, "-c", script],
-        input=json.dumps(body).encode(),
-        capture_output=True,
-        check=True,
-        timeout=600,
-        cwd=REPO_ROOT,
-    )
-    return np.load(io.BytesIO(done.stdout), allow_pickle=False)
+    return in_process(body)["draws"]
 
 
 def http_draws(job_url: str) -> tuple[dict, np.ndarray]:

@@ -16,8 +16,6 @@ import io
 import json
 import os
 import signal
-import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -28,47 +26,12 @@ from sqlalchemy import create_engine, select
 from sqlalchemy.orm import Session
 
 from service.store.models import Chain, Event
+from tests.harness.in_process import in_process
 from tests.service.bodies import normal_mean, posterior_mean_sd
 from tests.service.response_contract import check_requests
 
 TERMINAL = ("succeeded", "failed", "cancelled", "timed_out")
 REPO_ROOT = Path(__file__).resolve().parents[2]
-
-
-def in_process(body: dict) -> dict:
-    """worker.runner.run_in_process(body), run in a fresh Python process.
-
-    A fresh process puts the reference run in the same starting state as a worker's pool process,
-    so what is compared is the service's path, not whatever this test process ran before.
-    """
-    script = (
-        "import io, json, sys\n"
-        "import numpy as np\n"
-        "from worker.runner import run_in_process\n"
-        "out = run_in_process(json.load(sys.stdin))\n"
-        "buffer = io.BytesIO()\n"
-        "np.savez(buffer, draws=out['draws'], **{f'stat_{c}_{k}': v for c, s in "
-        "enumerate(out['stats']) for k, v in s.items()})\n"
-        "meta = {'names': out['names'], 'summary': out['summary'], 'verdict': out['verdict']}\n"
-        "sys.stdout.buffer.write(json.dumps(meta).encode() + b'\\n' + buffer.getvalue())\n"
-    )
-    done = subprocess.run(
-        [sys.executable, "-c", script],
-        input=json.dumps(body).encode(),
-        capture_output=True,
-        check=True,
-        timeout=600,
-        cwd=REPO_ROOT,
-    )
-    head, _, archive = done.stdout.partition(b"\n")
-    meta = json.loads(head)
-    with np.load(io.BytesIO(archive), allow_pickle=False) as arrays:
-        stats: list[dict] = [{} for _ in range(arrays["draws"].shape[0])]
-        for key in arrays.files:
-            if key.startswith("stat_"):
-                _, chain, name = key.split("_", 2)
-                stats[int(chain)][name] = arrays[key]
-        return {**meta, "draws": arrays["draws"], "stats": stats}
 
 
 def call(method: str, url: str, **kwargs) -> tuple[requests.Response, object]:
