@@ -22,7 +22,6 @@ from ..modeling.distributions import find_distribution
 from ..problems import Problem, pointer
 
 POSITIVE_KINDS = ("positive", "nonnegative")
-STRUCTURED_KINDS = {"simplex": "simplex", "cholesky_correlation": "cholesky_correlation"}
 
 
 def _number(value: Any) -> float | None:
@@ -33,7 +32,10 @@ def _supports_match(declared: dict, kind: str, arguments: dict) -> bool:
     lower, upper = declared.get("lower"), declared.get("upper")
     structure = declared.get("structure")
     if structure is not None:
-        return STRUCTURED_KINDS.get(structure) == kind
+        # A structured unknown's own distribution has the structure's name as its variate kind
+        # (the simplex's and the correlation factor's; check_model insists on the pairing); no
+        # distribution is of kind "ordered", so an ordered structure is never normalised here.
+        return kind == structure
     if lower is None and upper is None:
         return kind == "real"
     if lower == 0 and upper is None:
