@@ -55,6 +55,18 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
         404: "problem",
         409: "problem",
     },
+    ("get", "/v1/jobs/{job_id}/evidence"): {
+        200: "evidence",
+        404: "problem",
+        409: "problem",
+        422: "problem",
+    },
+    ("post", "/v1/bayes-factors"): {
+        200: "bayes_factor",
+        400: "problem",
+        415: "problem",
+        422: "problem",
+    },
     ("post", "/v1/comparisons"): {
         200: "comparison",
         400: "problem",
@@ -95,6 +107,10 @@ SUMMARIES = {
     ("get", "/v1/jobs/{job_id}/predictive-accuracy"): (
         "PSIS-LOO from the stored pointwise log likelihood: elpd_loo, p_loo, Pareto k-hat"
     ),
+    ("get", "/v1/jobs/{job_id}/evidence"): (
+        "Log marginal likelihood by bridge sampling, with its error (proper priors only)"
+    ),
+    ("post", "/v1/bayes-factors"): "The Bayes factor of two succeeded jobs on the same data",
     ("post", "/v1/comparisons"): (
         "Order succeeded jobs on the same data by elpd_loo, with paired differences (read-only)"
     ),
@@ -179,7 +195,7 @@ PATH_PARAMETERS = {
 def _operation(method: str, path: str) -> dict[str, Any]:
     responses = {}
     declared = dict(RESPONSES[(method, path)])
-    if path.startswith(("/v1/jobs", "/v1/models", "/v1/comparisons")):
+    if path.startswith(("/v1/jobs", "/v1/models", "/v1/comparisons", "/v1/bayes-factors")):
         # service/access/: no or a wrong key, a missing scope, the rate or job cap reached.
         declared.update({status: "problem" for status in ACCESS_STATUSES})
     for status, stem in declared.items():
@@ -234,7 +250,7 @@ def _operation(method: str, path: str) -> dict[str, Any]:
                 }
             },
         }
-    if (method, path) == ("post", "/v1/comparisons"):
+    if (method, path) in (("post", "/v1/comparisons"), ("post", "/v1/bayes-factors")):
         operation["requestBody"] = {
             "required": True,
             "content": {

@@ -98,17 +98,18 @@ def _comparison_problem(problems: list[Problem]) -> ApiProblem:
                       "nothing was compared.", problems)
 
 
-def comparison(runtime: Runtime, body: Any) -> dict[str, Any]:
-    """POST /v1/comparisons {"jobs": [id, ...]}: 422 at the offending member for bad input."""
+def comparable_jobs(runtime: Runtime, body: Any, most: int = MAX_COMPARED,
+                    ) -> list[tuple[Job, list[Chain]]]:
+    """The succeeded, visible jobs of body["jobs"], all on the same data; ApiProblem 422 with a
+    pointer at each offending member otherwise."""
     if not isinstance(body, dict) or not isinstance(body.get("jobs"), list):
         raise _comparison_problem([Problem("/jobs", "give the jobs to compare as a list of job "
                                                     "ids under \"jobs\"")])
     ids = body["jobs"]
     extra = sorted(set(body) - {"jobs"})
     problems = [Problem(pointer(key), f"'{key}' is not a member of a comparison") for key in extra]
-    if not 2 <= len(ids) <= MAX_COMPARED:
-        problems.append(Problem("/jobs", f"a comparison takes 2 to {MAX_COMPARED} jobs; got "
-                                         f"{len(ids)}"))
+    if not 2 <= len(ids) <= most:
+        problems.append(Problem("/jobs", f"a comparison takes 2 to {most} jobs; got {len(ids)}"))
     for k, job_id in enumerate(ids):
         if not isinstance(job_id, str) or not job_id:
             problems.append(Problem(pointer("jobs", k), "a job id is a non-empty string"))
@@ -137,10 +138,19 @@ def comparison(runtime: Runtime, body: Any) -> dict[str, Any]:
             problems.append(Problem(pointer("jobs", k),
                                     f"job {job.id} was fitted to other data than job {first.id} "
                                     f"(data digests {job.data_sha256[:12]}... and "
-                                    f"{first.data_sha256[:12]}...): predictive accuracy is only "
-                                    "comparable on the same data"))
+                                    f"{first.data_sha256[:12]}...): fits are only comparable on "
+                                    "the same data"))
     if problems:
         raise _comparison_problem(problems)
+    return loaded
+
+
+def comparison(runtime: Runtime, body: Any) -> dict[str, Any]:
+    """POST /v1/comparisons {"jobs": [id, ...]}: 422 at the offending member for bad input."""
+    loaded = comparable_jobs(runtime, body)
+    ids = [job.id for job, _ in loaded]
+    first = loaded[0][0]
+    problems: list[Problem] = []
     fits: dict[str, LeaveOneOut] = {}
     columns: dict[str, list[str]] = {}
     for k, (job, chains) in enumerate(loaded):

@@ -1,5 +1,5 @@
 """A job's results: summary, draws, sampler statistics, diagnostics, predictive accuracy, the
-audit record."""
+evidence (bridge sampling), the audit record."""
 
 from __future__ import annotations
 
@@ -8,6 +8,7 @@ from typing import Any
 
 from flask import Blueprint, Response, jsonify, request
 
+from service.evidence import evidence_document
 from service.formats.downloads import download
 from service.formats.negotiation import chosen_format, chosen_layout
 from service.predictive import predictive_accuracy
@@ -86,6 +87,11 @@ def _array_download(
 @results.get("/predictive-accuracy")
 def loo(job_id: str) -> Response:
     return jsonify(predictive_accuracy(runtime(), job_id))
+
+
+@results.get("/evidence")
+def evidence(job_id: str) -> Response:
+    return jsonify(evidence_document(runtime(), job_id))
 
 
 @results.get("/audit")

@@ -94,3 +94,43 @@ def test_comparison_orders_jobs_and_refuses_other_data(app: Flask, queue) -> Non
     assert response.status_code == 422
     assert {e["pointer"] for e in problem["errors"]} == {"/extra"}
     assert queue.length() == waiting and row_counts(app) == rows
+
+
+def test_evidence_of_a_job_and_a_bayes_factor(app: Flask, queue) -> None:
+    """The normal mean with known variance (BDA3 section 2.5): marginally
+    y ~ N(m0 1, sigma^2 I + s0^2 1 1^T) (scipy.stats.multivariate_normal). The job's bridge
+    estimate lies within three of its errors of that; the Bayes factor against the same model
+    with prior sd 1 is within three of its error of the closed-form ratio."""
+    wide = finished(app, normal_mean(chains=4, warmup=300, draws=500, seed=8))
+    narrow_body = normal_mean(chains=4, warmup=300, draws=500, seed=9)
+    narrow_body["model"]["priors"][0]["arguments"]["scale"] = 1.0
+    narrow = finished(app, narrow_body)
+    y = np.array(Y)
+
+    def exact(prior_scale: float) -> float:
+        covariance = NOISE_SCALE ** 2 * np.eye(y.size) + prior_scale ** 2
+        return stats.multivariate_normal(np.full(y.size, PRIOR_LOCATION), covariance).logpdf(y)
+
+    client = app.test_client()
+    waiting, rows = queue.length(), row_counts(app)
+    response, document = call(client, "GET", f"/v1/jobs/{wide}/evidence")
+    assert response.status_code == 200
+    assert abs(document["log_evidence"] - exact(PRIOR_SCALE)) < 3 * document["relative_error"]
+    again = call(client, "GET", f"/v1/jobs/{wide}/evidence")[1]
+    assert again["log_evidence"] == document["log_evidence"]   # seeded by the job's seed
+    response, factor = call(client, "POST", "/v1/bayes-factors", {"jobs": [narrow, wide]})
+    assert response.status_code == 200
+    expected = exact(1.0) - exact(PRIOR_SCALE)
+    assert abs(factor["log_bayes_factor"] - expected) < 3 * factor["error"]
+    assert queue.length() == waiting and row_counts(app) == rows
+
+
+def test_evidence_of_a_job_with_a_flat_prior_is_refused(app: Flask) -> None:
+    body = normal_mean(chains=2, warmup=100, draws=100, seed=10)
+    body["model"]["priors"] = []
+    body["model"]["unknowns"]["mu"] = {"flat_prior": True}
+    job = finished(app, body)
+    response, problem = call(app.test_client(), "GET", f"/v1/jobs/{job}/evidence")
+    assert response.status_code == 422
+    assert problem["errors"][0]["pointer"] == "/model/unknowns/mu/flat_prior"
+    assert "improper" in problem["errors"][0]["message"]
