@@ -1,0 +1,58 @@
+"""Laplace and grid jobs through the service (Flask's test client, a real SQLite store and Redis;
+the job's one task run in process by the service's own chain and finishing code).
+
+Reference: the normal mean with known variance (BDA3, Gelman et al. 2013, section 2.5).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from flask import Flask
+
+from tests.service.bodies import NOISE_SCALE, PRIOR_SCALE, Y, normal_mean
+from tests.service.store_probe import row_counts
+from tests.service.test_registry_views import call, run_to_the_end
+
+
+def approximation(method: str) -> dict:
+    body = normal_mean(seed=21)
+    body["sampler"] = {"method": method, "draws": 2000, "seed": 21}
+    return body
+
+
+def test_laplace_and_grid_jobs_are_stored_and_audited_like_chains(app: Flask, queue) -> None:
+    client = app.test_client()
+    precision = 1 / PRIOR_SCALE ** 2 + len(Y) / NOISE_SCALE ** 2
+    mean = sum(Y) / NOISE_SCALE ** 2 / precision
+    for method in ("laplace", "grid"):
+        waiting = queue.length()
+        response, job = call(client, "POST", "/v1/jobs", approximation(method))
+        assert response.status_code == 202
+        assert len(job["chains"]) == 1 and queue.length() == waiting + 1
+        run_to_the_end(app, job["id"], 1)
+        _, done = call(client, "GET", f"/v1/jobs/{job['id']}")
+        assert done["state"] == "succeeded" and done["verdict"]["passed"]
+        _, summary = call(client, "GET", f"/v1/jobs/{job['id']}/summary")
+        mu = next(q for q in summary["quantities"] if q["name"] == "mu")
+        # 2000 independent draws: within 4 Monte Carlo standard errors of the closed form
+        assert abs(mu["mean"] - mean) < 4 * np.sqrt(1 / precision / 2000)
+        _, stats = call(client, "GET", f"/v1/jobs/{job['id']}/sampler-stats")
+        assert "log_weight" in stats["statistics"]
+        _, audit = call(client, "GET", f"/v1/jobs/{job['id']}/audit")
+        assert audit["settings"]["method"] == method
+        assert audit["chains"][0]["draws_shape"] == [2000, 1]
+
+
+def test_a_grid_job_with_three_unknowns_is_a_422_and_nothing_is_queued(app: Flask, queue) -> None:
+    body = approximation("grid")
+    body["model"]["unknowns"] = {"mu": {}, "b": {}, "c": {}}
+    body["model"]["priors"] += [
+        {"on": k, "distribution": "normal", "arguments": {"location": 0, "scale": 1}}
+        for k in ("b", "c")
+    ]
+    waiting, rows = queue.length(), row_counts(app)
+    response, problem = call(app.test_client(), "POST", "/v1/jobs", body)
+    assert response.status_code == 422
+    assert problem["errors"][0]["pointer"] == "/sampler/method"
+    assert "at most 2 unconstrained coordinates" in problem["errors"][0]["message"]
+    assert queue.length() == waiting and row_counts(app) == rows
