@@ -62,11 +62,6 @@ def standard_error(pointwise: np.ndarray) -> float:
     return float(np.sqrt(n * np.var(pointwise, ddof=1)))
 
 
-def _log_mean_exp(a: np.ndarray) -> np.ndarray:
-    top = np.max(a, axis=-1, keepdims=True)
-    return top[..., 0] + np.log(np.mean(np.exp(a - top), axis=-1))
-
-
 def psis_loo(chains: Sequence[np.ndarray]) -> LeaveOneOut:
     """PSIS-LOO from per-chain pointwise log likelihoods, each (draws_c, n) with the same n.
 
@@ -87,20 +82,23 @@ def psis_loo(chains: Sequence[np.ndarray]) -> LeaveOneOut:
     buffer = np.empty((min(BLOCK, n), draws))
     for start in range(0, n, BLOCK):
         part = slice(start, min(start + BLOCK, n))
-        # (observations in block, draws), gathered chain by chain
-        log_lik = buffer[:part.stop - part.start]
+        # The block's log ratios -log p(y_i | theta_s), (observations, draws), gathered chain by
+        # chain into one reused buffer: the only copy of the values made here.
+        log_ratios = buffer[:part.stop - part.start]
         row = 0
         for chain in chains:
-            log_lik[:, row:row + chain.shape[0]] = chain[:, part].T
+            np.negative(chain[:, part].T, out=log_ratios[:, row:row + chain.shape[0]])
             row += chain.shape[0]
-        if not np.all(np.isfinite(log_lik)):
+        if not np.all(np.isfinite(log_ratios)):
             raise ValueError(f"a pointwise log likelihood among observations {start + 1}.."
                              f"{part.stop} is not finite")
-        smoothed = psis.smooth(-log_lik)
-        total = smoothed.log_weights + log_lik
+        smoothed = psis.smooth(log_ratios)
+        total = smoothed.log_weights - log_ratios
         top = np.max(total, axis=-1)
         elpd[part] = top + np.log(np.sum(np.exp(total - top[:, None]), axis=-1))
-        lppd[part] = _log_mean_exp(log_lik)
+        # lppd_i = log mean_s p(y_i | theta_s), with the smallest ratio as the scale
+        lowest = np.min(log_ratios, axis=-1)
+        lppd[part] = -lowest + np.log(np.mean(np.exp(lowest[:, None] - log_ratios), axis=-1))
         k_hat[part] = smoothed.k_hat
         effective[part] = smoothed.effective_draws
     p = lppd - elpd
