@@ -134,3 +134,28 @@ def test_evidence_of_a_job_with_a_flat_prior_is_refused(app: Flask) -> None:
     assert response.status_code == 422
     assert problem["errors"][0]["pointer"] == "/model/unknowns/mu/flat_prior"
     assert "improper" in problem["errors"][0]["message"]
+
+
+def test_the_comparison_page_shows_the_ranking_and_the_refusal(app: Flask) -> None:
+    """The web page's comparison view (the same numbers as POST /v1/comparisons) and, for jobs on
+    other data, the same reason the API gives."""
+    good = finished(app, with_pointwise(normal_mean(chains=2, warmup=200, draws=300, seed=11)))
+    bad_body = with_pointwise(normal_mean(chains=2, warmup=200, draws=300, seed=12))
+    bad_body["model"]["priors"][0]["arguments"] = {"location": 5, "scale": 0.1}
+    bad = finished(app, bad_body)
+    client = app.test_client()
+    listing = client.get("/jobs").get_data(as_text=True)
+    assert f'value="{good}"' in listing and "Compare the ticked jobs" in listing
+    page = client.get(f"/compare?jobs={bad}&jobs={good}")
+    assert page.status_code == 200
+    text = page.get_data(as_text=True)
+    _, api = call(client, "POST", "/v1/comparisons", {"jobs": [bad, good]})
+    assert text.index(good[:12]) < text.index(bad[:12])   # best first, as the API orders them
+    assert f"{api['ranked'][1]['elpd_difference']:.2f}" in text
+    assert "qualified review" in text
+    other_body = with_pointwise(normal_mean(chains=2, warmup=100, draws=100, seed=13))
+    other_body["data"]["y"] = [y + 1 for y in Y]
+    other = finished(app, other_body)
+    refused = client.get(f"/compare?jobs={good}&jobs={other}")
+    assert refused.status_code == 422
+    assert "other data" in refused.get_data(as_text=True)
