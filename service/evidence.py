@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy import select
 
-from service.predictive import comparable_jobs
+from service.predictive import comparable_jobs, not_posterior_draws
 from service.problem_details import ApiProblem
 from service.results import draw_loader, finished_job
 from service.runtime import Runtime
@@ -41,6 +41,10 @@ def _body(runtime: Runtime, job_id: str) -> dict[str, Any]:
 
 
 def job_evidence(runtime: Runtime, job: Job, chains: list[Chain]) -> Evidence:
+    unusable = not_posterior_draws(job)
+    if unusable is not None:
+        raise ApiProblem(422, "not-posterior-draws", "The draws are not posterior draws",
+                         unusable + ".", [{"pointer": "/sampler/method", "message": unusable}])
     body = _body(runtime, job.id)
     problems = improper_prior_problems(body["model"])
     if problems:

@@ -43,8 +43,23 @@ def _no_pointwise(job_id: str) -> str:
             "the model's generated.pointwise_log_likelihood and run it again.")
 
 
+def not_posterior_draws(job: Job) -> str | None:
+    """Why a job's draws are not draws from its posterior (a Laplace job whose check did not call
+    the Gaussian trustworthy), or None; PSIS-LOO and bridge sampling both assume they are."""
+    method = (job.settings or {}).get("method")
+    assessment = (job.verdict or {}).get("assessment")
+    if method == "laplace" and assessment != "trustworthy":
+        return (f"Job {job.id} is a Laplace approximation assessed {assessment}: its draws are "
+                "not posterior draws, so run chains for this")
+    return None
+
+
 def job_loo(runtime: Runtime, job: Job, chains: list[Chain]) -> tuple[LeaveOneOut, list[str]]:
-    """PSIS-LOO of a succeeded job; ValueError with a sentence when it has no pointwise values."""
+    """PSIS-LOO of a succeeded job; ValueError with a sentence when it has no pointwise values
+    or its draws are not posterior draws."""
+    unusable = not_posterior_draws(job)
+    if unusable is not None:
+        raise ValueError(unusable)
     names = draw_columns(runtime, chains)
     columns = pointwise_columns(names)
     if not columns:
@@ -87,8 +102,8 @@ def predictive_accuracy(runtime: Runtime, job_id: str) -> dict[str, Any]:
     try:
         result, names = job_loo(runtime, job, chains)
     except ValueError as error:
-        raise ApiProblem(409, "no-pointwise-log-likelihood",
-                         "No pointwise log likelihood", str(error)) from error
+        raise ApiProblem(409, "no-predictive-accuracy",
+                         "No predictive accuracy for this job", str(error)) from error
     return loo_document(job.id, result, names)
 
 

@@ -275,6 +275,9 @@ def _approximation_problems(body: dict) -> list[Problem]:
     if sampler.get("chains", 1) != 1:
         problems.append(Problem("/sampler/chains", f"a {method} job runs once: leave chains "
                                                     "out or set it to 1"))
+    if sampler.get("warmup_iterations", 0) != 0:
+        problems.append(Problem("/sampler/warmup_iterations", f"a {method} job has no warm-up: "
+                                                               "leave it out or set it to 0"))
     if body.get("warm_start") is not None:
         problems.append(Problem("/warm_start", f"a {method} job does not start from an earlier "
                                                "job's chains"))
@@ -315,8 +318,12 @@ def resolve_sampler(body_sampler: dict | None) -> dict:
     """
     given = dict(body_sampler or {})
     resolved: dict[str, Any] = SamplerSettings().as_dict()
-    chains = 1 if given.get("method") in APPROXIMATION_METHODS else DEFAULT_CHAINS
-    resolved.update({"chains": chains, "seed": None, "initial_values": None})
+    if given.get("method") in APPROXIMATION_METHODS:
+        # One task, no warm-up: the deployment's iteration limit then bounds the draws alone.
+        resolved.update({"chains": 1, "warmup_iterations": 0})
+    else:
+        resolved["chains"] = DEFAULT_CHAINS
+    resolved.update({"seed": None, "initial_values": None})
     resolved.update(given)
     if resolved["seed"] is None:
         resolved["seed"] = secrets.randbits(63)

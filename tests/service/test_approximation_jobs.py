@@ -40,6 +40,7 @@ def test_laplace_and_grid_jobs_are_stored_and_audited_like_chains(app: Flask, qu
         assert "log_weight" in stats["statistics"]
         _, audit = call(client, "GET", f"/v1/jobs/{job['id']}/audit")
         assert audit["settings"]["method"] == method
+        assert audit["settings"]["warmup_iterations"] == 0
         assert audit["chains"][0]["draws_shape"] == [2000, 1]
 
 
@@ -56,3 +57,34 @@ def test_a_grid_job_with_three_unknowns_is_a_422_and_nothing_is_queued(app: Flas
     assert problem["errors"][0]["pointer"] == "/sampler/method"
     assert "at most 2 unconstrained coordinates" in problem["errors"][0]["message"]
     assert queue.length() == waiting and row_counts(app) == rows
+
+
+def test_draws_of_an_untrustworthy_laplace_job_are_not_used_as_posterior_draws(
+    app: Flask,
+) -> None:
+    """Counts (0, 0, 0) under an exponential(1) prior: the gamma(1, 4) posterior of the rate
+    (BDA3 section 2.6) is too skewed for the Gaussian (tests/approximation/test_laplace.py), so
+    PSIS-LOO (409) and bridge sampling (422) refuse its draws."""
+    body = {
+        "model": {
+            "inputs": {"n": {"type": "integer"},
+                       "y": {"type": "integer", "shape": ["n"], "lower": 0}},
+            "unknowns": {"rate": {"lower": 0}},
+            "priors": [{"on": "rate", "distribution": "exponential", "arguments": {"rate": 1}}],
+            "likelihood": [{"name": "obs", "observed": "y", "distribution": "poisson",
+                            "arguments": {"rate": "rate"}}],
+            "generated": {"pointwise_log_likelihood": ["obs"]},
+        },
+        "data": {"n": 3, "y": [0, 0, 0]},
+        "sampler": {"method": "laplace", "draws": 5000, "seed": 2},
+    }
+    client = app.test_client()
+    response, job = call(client, "POST", "/v1/jobs", body)
+    assert response.status_code == 202, job
+    run_to_the_end(app, job["id"], 1)
+    _, done = call(client, "GET", f"/v1/jobs/{job['id']}")
+    assert not done["verdict"]["passed"]
+    response, problem = call(client, "GET", f"/v1/jobs/{job['id']}/predictive-accuracy")
+    assert response.status_code == 409 and "not posterior draws" in problem["detail"]
+    response, problem = call(client, "GET", f"/v1/jobs/{job['id']}/evidence")
+    assert response.status_code == 422 and problem["errors"][0]["pointer"] == "/sampler/method"
