@@ -6,6 +6,8 @@ Reference: the normal mean with known variance (BDA3, Gelman et al. 2013, sectio
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 from flask import Flask
 
@@ -88,3 +90,20 @@ def test_draws_of_an_untrustworthy_laplace_job_are_not_used_as_posterior_draws(
     assert response.status_code == 409 and "not posterior draws" in problem["detail"]
     response, problem = call(client, "GET", f"/v1/jobs/{job['id']}/evidence")
     assert response.status_code == 422 and problem["errors"][0]["pointer"] == "/sampler/method"
+
+
+def test_the_submit_page_offers_the_approximations_and_runs_one(app: Flask, queue) -> None:
+    """The web form sends the same body the API checks: a grid job from the page is accepted with
+    one chain and no warm-up."""
+    client = app.test_client()
+    page = client.get("/submit").get_data(as_text=True)
+    assert 'value="laplace"' in page and 'value="grid"' in page
+    body = approximation("grid")
+    form = {"model_text": json.dumps(body["model"]), "data_text": json.dumps(body["data"]),
+            "method": "grid", "draws": "500", "seed": "4"}
+    waiting = queue.length()
+    response = client.post("/submit", data=form)
+    assert response.status_code == 303
+    job = client.get(response.headers["Location"].replace("/jobs/", "/v1/jobs/")).get_json()
+    assert len(job["chains"]) == 1 and job["chains"][0]["iterations_total"] == 500
+    assert queue.length() == waiting + 1
