@@ -96,3 +96,15 @@ def test_equal_ratios_have_no_tail_to_fit():
     assert np.isnan(smoothed.k_hat)
     assert np.allclose(np.exp(smoothed.log_weights), 1e-3)
     assert smoothed.effective_draws == pytest.approx(1000)
+
+
+def test_a_row_without_any_usable_ratio_has_no_weight():
+    """Every ratio zero (log -inf) or undefined (NaN): no weights, no effective draws, no k-hat;
+    the other rows are untouched."""
+    rows = np.zeros((3, 500))
+    rows[0] = -np.inf
+    rows[1] = np.nan
+    smoothed = psis.smooth(rows)
+    assert np.all(np.isneginf(smoothed.log_weights[:2]))
+    assert list(smoothed.effective_draws[:2]) == [0.0, 0.0]
+    assert np.allclose(np.exp(smoothed.log_weights[2]), 1 / 500)

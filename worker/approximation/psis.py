@@ -140,7 +140,8 @@ def _smooth_rows(log_r: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]
     draws = log_r.shape[-1]
     # Work with ratios scaled by their maximum, so exp never overflows (the scale cancels).
     top = np.max(log_r, axis=-1, keepdims=True)
-    shifted = log_r - top
+    with np.errstate(invalid="ignore"):  # -inf - -inf in a row of zero ratios: handled below
+        shifted = log_r - top
     if not np.all(np.isfinite(top)):
         # A row with +inf or NaN ratios (the maximum shows both): no usable weight there.
         shifted[np.isnan(shifted)] = -np.inf
@@ -170,9 +171,14 @@ def _smooth_rows(log_r: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]
     # one exp serves the normaliser and the effective sample size without overflow.
     scaled = np.exp(shifted)
     total = np.sum(scaled, axis=-1)
-    effective = total * total / np.sum(scaled * scaled, axis=-1)
-    with np.errstate(divide="ignore"):
-        return shifted - np.log(total)[:, None], k_hat, effective
+    with np.errstate(divide="ignore", invalid="ignore"):
+        effective = total * total / np.sum(scaled * scaled, axis=-1)
+        log_w = shifted - np.log(total)[:, None]
+    # A row with no usable ratio at all has no weights: -inf everywhere, no effective draws.
+    empty = total == 0
+    log_w[empty] = -np.inf
+    effective[empty] = 0.0
+    return log_w, k_hat, effective
 
 
 def reliability(k_hat: float, draws: int) -> str:
