@@ -70,8 +70,8 @@ def bakery_model() -> dict[str, Any]:
             {"name": "weekly_orders", "observed": "orders", "distribution": "poisson",
              "arguments": {"log_rate": "branch_log_orders[branch] + promotion_effect * promotion"}},
         ],
-        "generated": {
-            "quantities": {
+        "per_draw": {
+            "formulas": {
                 "typical_weekly_orders": "exp(mean_log_orders)",
                 "promotion_uplift": "exp(promotion_effect) - 1",
             },

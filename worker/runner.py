@@ -21,7 +21,7 @@ from worker.diagnostics import check_thresholds, sampler_checks, summarize, verd
 from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, EvaluationCounts, SamplerSettings
 from worker.samplers.chain import sampling_sequence
-from worker.samplers.settings import INITIALISATIONS, METHODS, METRICS
+from worker.samplers.settings import INITIALISATIONS, METHODS, PRECONDITIONINGS
 from worker.samplers.target import CountedTarget
 from worker.warm_start import (
     chain_state,
@@ -109,12 +109,12 @@ def sampler_problems(
         "seed": lambda v: _integer_problem(v, 0, MAX_SEED, "seed"),
         "target_acceptance": _acceptance_problem,
         "maximum_tree_depth": lambda v: _integer_problem(v, 1, TREE_DEPTH_LIMIT, "depth limit"),
-        "metric": lambda v: _choice_problem(v, METRICS, "metric"),
+        "preconditioning": lambda v: _choice_problem(v, PRECONDITIONINGS, "preconditioning"),
         "integration_time": lambda v: _positive_problem(v, "integration time"),
         "jitter": _flag_problem,
         "divergence_threshold": lambda v: _positive_problem(v, "divergence threshold"),
         "initialisation": lambda v: _choice_problem(v, INITIALISATIONS, "initialisation"),
-        "init_radius": lambda v: _positive_problem(v, "initialisation radius"),
+        "start_spread": lambda v: _positive_problem(v, "start spread"),
         "initial_values": lambda v: None,  # checked against the model below
     }  # fmt: skip
     problems = []

@@ -138,9 +138,9 @@ class QuantitySummary(TypedDict, total=False):
     mean: float | None
     sd: float | None
     quantiles: dict[str, float | None]
-    mcse_mean: float | None
-    mcse_of_sd: float | None
-    mcse_quantiles: dict[str, float | None]
+    mean_error: float | None
+    sd_error: float | None
+    quantile_errors: dict[str, float | None]
     bulk_ess: float | None
     tail_ess: float | None
     rhat: float | None

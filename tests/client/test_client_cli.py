@@ -97,7 +97,7 @@ def test_submit_wait_passed_then_fetch_and_list(
     summary = json.loads((tmp_path / "s.json").read_text())
     record = next(q for q in summary["quantities"] if q["name"] == "mu")
     mean, _ = posterior_mean_sd()  # BDA3 section 2.5
-    assert abs(record["mean"] - mean) < 5 * record["mcse_mean"]
+    assert abs(record["mean"] - mean) < 5 * record["mean_error"]
 
     target = tmp_path / "draws.csv"
     fetched = drawyard(

@@ -25,8 +25,8 @@ def _good_report(chains: int = 4, draws: int = 1000) -> dict:
         [
             {
                 "divergent": np.zeros(draws, dtype=bool),
-                "tree_depth": np.full(draws, 3),
-                "acceptance": np.full(draws, 0.8),
+                "doublings": np.full(draws, 3),
+                "accept_probability": np.full(draws, 0.8),
                 "energy": momenta[c, :-1] + momenta[c, 1:],
             }
             for c in range(chains)
@@ -42,11 +42,11 @@ def test_summary_of_iid_normal_draws_agrees_with_scipy() -> None:
     draws = rng.normal(1.0, 2.0, size=(4, 10_000, 1))
     (record,) = summarize(draws, ["x"])
     truth = stats.norm(1.0, 2.0)
-    assert abs(record["mean"] - truth.mean()) < 4 * record["mcse_mean"]
-    assert abs(record["sd"] - truth.std()) < 4 * record["mcse_of_sd"]
+    assert abs(record["mean"] - truth.mean()) < 4 * record["mean_error"]
+    assert abs(record["sd"] - truth.std()) < 4 * record["sd_error"]
     for p, label in ((0.05, "5%"), (0.5, "50%"), (0.95, "95%")):
         error = abs(record["quantiles"][label] - truth.ppf(p))
-        assert error < 4 * record["mcse_quantiles"][label]
+        assert error < 4 * record["quantile_errors"][label]
     assert record["rhat"] < 1.01 and record["bulk_ess"] > 30_000 and record["note"] is None
 
 
@@ -59,7 +59,7 @@ def test_summary_is_strict_json_and_marks_undefined_quantities() -> None:
     json.dumps(records, allow_nan=False)
     assert [r["note"] for r in records] == [None, "constant", "not_finite"]
     assert set(records[0]["quantiles"]) == {"2.5%", "97.5%"}
-    assert records[1]["rhat"] is None and records[1]["mcse_mean"] == 0.0
+    assert records[1]["rhat"] is None and records[1]["mean_error"] == 0.0
     assert records[2]["mean"] is None and records[2]["rhat"] is None
     short = summarize(rng.standard_normal((4, 2, 1)), ["d"])
     assert short[0]["note"] == "too_few_draws" and short[0]["rhat"] is None
@@ -68,7 +68,7 @@ def test_summary_is_strict_json_and_marks_undefined_quantities() -> None:
 def test_summary_handles_many_quantities_in_passes() -> None:
     """Wide outputs are summarised in several vectorised passes; every record must still match
     the one-quantity functions."""
-    from worker.diagnostics import bulk_ess, mcse_quantile, split_rhat, tail_ess
+    from worker.diagnostics import bulk_ess, quantile_error, split_rhat, tail_ess
     from worker.diagnostics import summary as summary_module
 
     rng = np.random.default_rng(3)
@@ -83,7 +83,7 @@ def test_summary_handles_many_quantities_in_passes() -> None:
         assert record["rhat"] == pytest.approx(split_rhat(draws[:, :, i]))
         assert record["bulk_ess"] == pytest.approx(bulk_ess(draws[:, :, i]))
         assert record["tail_ess"] == pytest.approx(tail_ess(draws[:, :, i]))
-        assert record["mcse_quantiles"]["50%"] == pytest.approx(mcse_quantile(draws[:, :, i], 0.5))
+        assert record["quantile_errors"]["50%"] == pytest.approx(quantile_error(draws[:, :, i], 0.5))
 
 
 def test_sound_draws_pass_with_defaults() -> None:
@@ -166,14 +166,14 @@ def test_sampler_checks_counts_per_chain() -> None:
     stats_per_chain = [
         {
             "divergent": np.array([0, 1, 1, 0], dtype=bool),
-            "tree_depth": np.array([3, 5, 5, 2]),
-            "acceptance": np.array([0.5, 0.7, 0.9, 0.9]),
+            "doublings": np.array([3, 5, 5, 2]),
+            "accept_probability": np.array([0.5, 0.7, 0.9, 0.9]),
             "energy": np.array([1.0, 2.0, 1.5, 3.0]),
         },
         {
             "divergent": np.zeros(4, dtype=bool),
-            "tree_depth": np.array([5, 5, 5, 5]),
-            "acceptance": np.array([1.0, 1.0, 1.0, 0.6]),
+            "doublings": np.array([5, 5, 5, 5]),
+            "accept_probability": np.array([1.0, 1.0, 1.0, 0.6]),
             "energy": np.array([2.0, 2.0, 2.0, 2.0]),
         },
     ]
@@ -188,7 +188,7 @@ def test_sampler_checks_counts_per_chain() -> None:
 
 
 def test_sampler_checks_for_a_method_without_trees_or_energy() -> None:
-    report = sampler_checks([{"acceptance": np.full(10, 0.25)}] * 2, maximum_tree_depth=None)
+    report = sampler_checks([{"accept_probability": np.full(10, 0.25)}] * 2, maximum_tree_depth=None)
     assert report["divergences"] is None and report["tree_depth_hits"] is None
     assert report["ebfmi_per_chain"] == [None, None]
     assert verdict([], report)["passed"]

@@ -163,7 +163,7 @@ def test_draws_over_http_are_bitwise_the_in_process_draws(
     assert diagnostics["verdict"] == expected["verdict"] == job["verdict"]
     mean, _ = posterior_mean_sd()
     record = summary["quantities"][0]
-    assert abs(record["mean"] - mean) < 5 * record["mcse_mean"]
+    assert abs(record["mean"] - mean) < 5 * record["mean_error"]
 
 
 def test_cancel_stops_running_chains_within_seconds(

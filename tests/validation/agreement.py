@@ -51,13 +51,13 @@ def mismatches(record: dict, truth: Mapping[str, float], k: float = TOLERANCE_MC
     found = []
     pairs = []
     if "mean" in truth:
-        pairs.append(("mean", record["mean"], record["mcse_mean"], truth["mean"]))
+        pairs.append(("mean", record["mean"], record["mean_error"], truth["mean"]))
     if "sd" in truth:
-        pairs.append(("sd", record["sd"], record["mcse_of_sd"], truth["sd"]))
+        pairs.append(("sd", record["sd"], record["sd_error"], truth["sd"]))
     for label in PROBABILITIES:
         if label in truth:
             pairs.append(
-                (label, record["quantiles"][label], record["mcse_quantiles"][label], truth[label])
+                (label, record["quantiles"][label], record["quantile_errors"][label], truth[label])
             )
     for what, estimate, mcse, expected in pairs:
         if estimate is None or mcse is None or not abs(estimate - expected) <= k * mcse:

@@ -8,7 +8,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from worker.diagnostics.ess import TAIL_PROBABILITIES, bulk_ess_batch, quantile_ess_batch
-from worker.diagnostics.mcse import mcse_mean_batch, mcse_of_sd_batch, mcse_quantile_batch
+from worker.diagnostics.mcse import mean_error_batch, sd_error_batch, quantile_error_batch
 from worker.diagnostics.rhat import split_rhat_batch
 from worker.diagnostics.splitting import MIN_DRAWS_PER_CHAIN
 
@@ -49,8 +49,8 @@ def summarize(
 ) -> list[dict]:
     """One record per quantity of ``draws`` shaped ``(chains, draws, quantities)``.
 
-    A record holds ``name``, ``mean``, ``sd``, ``quantiles`` and ``mcse_quantiles`` (keyed
-    '5%'...), ``mcse_mean``, ``mcse_of_sd``, ``bulk_ess``, ``tail_ess``, ``rhat`` and ``note``:
+    A record holds ``name``, ``mean``, ``sd``, ``quantiles`` and ``quantile_errors`` (keyed
+    '5%'...), ``mean_error``, ``sd_error``, ``bulk_ess``, ``tail_ess``, ``rhat`` and ``note``:
     None, or why the diagnostics are None: 'constant' (every draw identical), 'not_finite' (some
     draw is NaN or infinite) or 'too_few_draws' (fewer than four per chain).
     """
@@ -85,13 +85,13 @@ def _summarize_block(
         points[:, ~finite] = np.nan
         enough = block.shape[2] >= MIN_DRAWS_PER_CHAIN
         nan = np.full(q, np.nan)
-        mcse_mean = mcse_mean_batch(block) if enough else nan
-        mcse_of_sd = mcse_of_sd_batch(block) if enough else nan
+        mean_error = mean_error_batch(block) if enough else nan
+        sd_error = sd_error_batch(block) if enough else nan
         # indicator ESS per probability, shared by the quantile MCSE and tail-ESS (5% and 95%)
         needed = sorted({*probabilities, *TAIL_PROBABILITIES})
         indicator = {p: quantile_ess_batch(block, p) if enough else nan for p in needed}
         mcse_points = [
-            mcse_quantile_batch(block, p, indicator[p]) if enough else nan for p in probabilities
+            quantile_error_batch(block, p, indicator[p]) if enough else nan for p in probabilities
         ]
         bulk = bulk_ess_batch(block) if enough else nan
         tail = np.minimum(*(indicator[p] for p in TAIL_PROBABILITIES))
@@ -107,9 +107,9 @@ def _summarize_block(
                 "sd": _json_number(sd[i]),
                 "quantiles": {lab: _json_number(points[j, i]) for j, lab in enumerate(labels)},
                 # a constant quantity is known exactly: its Monte Carlo errors are zero
-                "mcse_mean": 0.0 if constant else _json_number(mcse_mean[i]),
-                "mcse_of_sd": 0.0 if constant else _json_number(mcse_of_sd[i]),
-                "mcse_quantiles": {
+                "mean_error": 0.0 if constant else _json_number(mean_error[i]),
+                "sd_error": 0.0 if constant else _json_number(sd_error[i]),
+                "quantile_errors": {
                     lab: 0.0 if constant else _json_number(mcse_points[j][i])
                     for j, lab in enumerate(labels)
                 },
