@@ -16,8 +16,8 @@ import pytest
 from scipy import stats
 
 from tests.diagnostics.series import ar1
-from worker.diagnostics import mean_error, sd_error, quantile_error
-from worker.diagnostics.mcse import mean_error_batch, sd_error_batch, quantile_error_batch
+from worker.diagnostics import mean_error, quantile_error, sd_error
+from worker.diagnostics.mcse import mean_error_batch, quantile_error_batch, sd_error_batch
 
 REPLICATES = 100
 CHAINS = 4

@@ -83,7 +83,8 @@ def test_summary_handles_many_quantities_in_passes() -> None:
         assert record["rhat"] == pytest.approx(split_rhat(draws[:, :, i]))
         assert record["bulk_ess"] == pytest.approx(bulk_ess(draws[:, :, i]))
         assert record["tail_ess"] == pytest.approx(tail_ess(draws[:, :, i]))
-        assert record["quantile_errors"]["50%"] == pytest.approx(quantile_error(draws[:, :, i], 0.5))
+        expected = quantile_error(draws[:, :, i], 0.5)
+        assert record["quantile_errors"]["50%"] == pytest.approx(expected)
 
 
 def test_sound_draws_pass_with_defaults() -> None:
@@ -188,7 +189,8 @@ def test_sampler_checks_counts_per_chain() -> None:
 
 
 def test_sampler_checks_for_a_method_without_trees_or_energy() -> None:
-    report = sampler_checks([{"accept_probability": np.full(10, 0.25)}] * 2, maximum_tree_depth=None)
+    stats = [{"accept_probability": np.full(10, 0.25)}] * 2
+    report = sampler_checks(stats, maximum_tree_depth=None)
     assert report["divergences"] is None and report["tree_depth_hits"] is None
     assert report["ebfmi_per_chain"] == [None, None]
     assert verdict([], report)["passed"]

@@ -30,7 +30,9 @@ def test_dual_averaging_hits_target_and_sampling_follows(method: str) -> None:
         settings = SamplerSettings(method=method, target_acceptance=goal, draws=500)
         _, outputs = run_chains(TEN_SCALES, settings, seed=31, chains=2)
         final = warmup_schedule(settings.warmup_iterations).final_start
-        adapting = np.mean([out.warmup_stats["accept_probability"][final:].mean() for out in outputs])
+        adapting = np.mean(
+            [out.warmup_stats["accept_probability"][final:].mean() for out in outputs]
+        )
         sampling = np.mean([out.stats["accept_probability"].mean() for out in outputs])
         print(f"{method} target {goal}: final warm-up {adapting:.3f}, sampling {sampling:.3f}")
         assert abs(adapting - goal) < 0.05

@@ -28,8 +28,12 @@ def settings_for(method: str, metric: str = "per_coordinate") -> SamplerSettings
     if method == "metropolis":
         # Random-walk chains mix slowly (integrated autocorrelation time grows with d), so they
         # get more draws for the same quality of check.
-        return SamplerSettings(method=method, preconditioning=metric, warmup_iterations=2000, draws=8000)
-    return SamplerSettings(method=method, preconditioning=metric, warmup_iterations=1000, draws=1000)
+        return SamplerSettings(
+            method=method, preconditioning=metric, warmup_iterations=2000, draws=8000
+        )
+    return SamplerSettings(
+        method=method, preconditioning=metric, warmup_iterations=1000, draws=1000
+    )
 
 
 @pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])

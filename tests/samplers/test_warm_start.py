@@ -91,7 +91,9 @@ def test_the_earlier_position_is_the_first_state(initialisation: str) -> None:
 def test_the_refresh_shrinks_the_window_covariance_toward_the_earlier_metric(
     metric, method
 ) -> None:
-    settings = SamplerSettings(method=method, preconditioning=metric, warmup_iterations=200, draws=10)
+    settings = SamplerSettings(
+        method=method, preconditioning=metric, warmup_iterations=200, draws=10
+    )
     start = warm(metric, method=method)
     chain = Chain(target(), settings, np.random.SeedSequence(6), warm_start=start)
     window = RunningCovariance(3, metric == "full")

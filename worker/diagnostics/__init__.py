@@ -2,7 +2,7 @@
 
 from worker.diagnostics.energy import ebfmi
 from worker.diagnostics.ess import bulk_ess, ess, quantile_ess, tail_ess
-from worker.diagnostics.mcse import mean_error, sd_error, quantile_error
+from worker.diagnostics.mcse import mean_error, quantile_error, sd_error
 from worker.diagnostics.rhat import classic_split_rhat, split_rhat
 from worker.diagnostics.sampler_report import sampler_checks
 from worker.diagnostics.summary import summarize

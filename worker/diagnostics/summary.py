@@ -8,7 +8,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from worker.diagnostics.ess import TAIL_PROBABILITIES, bulk_ess_batch, quantile_ess_batch
-from worker.diagnostics.mcse import mean_error_batch, sd_error_batch, quantile_error_batch
+from worker.diagnostics.mcse import mean_error_batch, quantile_error_batch, sd_error_batch
 from worker.diagnostics.rhat import split_rhat_batch
 from worker.diagnostics.splitting import MIN_DRAWS_PER_CHAIN
 

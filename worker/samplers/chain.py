@@ -133,10 +133,14 @@ class Chain:
                 if warm_start is not None:
                     assert warm_start.proposal_scale is not None  # _check_warm_start
                     self.proposal = RandomWalkProposal(
-                        settings.preconditioning, self.warm_covariance, math.log(warm_start.proposal_scale)
+                        settings.preconditioning,
+                        self.warm_covariance,
+                        math.log(warm_start.proposal_scale),
                     )
                 else:
-                    self.proposal = RandomWalkProposal.initial(settings.preconditioning, self.dimension)
+                    self.proposal = RandomWalkProposal.initial(
+                        settings.preconditioning, self.dimension
+                    )
                 self.scale_updates = 0
                 self.average_sum = 0.0
                 self.average_count = 0
@@ -176,8 +180,9 @@ class Chain:
         self.schedule = warmup_schedule(settings.warmup_iterations)
         self._metropolis = settings.method == "metropolis"
         self._types = STAT_TYPES[settings.method]
-        # A unit metric has nothing to estimate, so its warm-up is step size (or scale) only.
-        self._windows = self.schedule.window_ends if settings.preconditioning != "none" else frozenset()
+        # No preconditioning has nothing to estimate, so its warm-up is step size (or scale) only.
+        adapting = settings.preconditioning != "none"
+        self._windows = self.schedule.window_ends if adapting else frozenset()
         self.warm_covariance: np.ndarray | None = None
 
     def _check_warm_start(self, warm: WarmStart) -> None:
@@ -200,7 +205,8 @@ class Chain:
         """Switch to the warm-start schedule, keeping the earlier metric to refresh toward."""
         self.warm_covariance = np.array(covariance, dtype=np.float64)
         self.schedule = warm_schedule(self.settings.warmup_iterations)
-        self._windows = self.schedule.window_ends if self.settings.preconditioning != "none" else frozenset()
+        adapting = self.settings.preconditioning != "none"
+        self._windows = self.schedule.window_ends if adapting else frozenset()
 
     def _allocate(self) -> None:
         s = self.settings
