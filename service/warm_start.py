@@ -25,8 +25,8 @@ from service.store.models import Chain, Job, ModelVersion
 from worker.problems import Problem
 
 POINTER = "/warm_start/job"
-# What an earlier chain's adapted state holds depends on the method's family: a step size and an
-# inverse metric (NUTS, static HMC) or a proposal covariance and scale (adaptive Metropolis). The
+# What an earlier chain's adapted state holds depends on the method's family: a step size and
+# per-coordinate scales or a full covariance (NUTS, static HMC) or a proposal covariance and scale (adaptive Metropolis). The
 # engine (worker/warm_start.py) starts a chain from a record of its own family only.
 METHOD_FAMILIES = {"nuts": "Hamiltonian", "hmc": "Hamiltonian", "metropolis": "Metropolis"}
 WARM_START_METHODS = tuple(METHOD_FAMILIES)

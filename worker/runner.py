@@ -47,7 +47,7 @@ TOP_LEVEL_MEMBERS = (
 # settings of the runner itself, beside those of one chain (SamplerSettings)
 JOB_SETTINGS = ("chains", "seed", "initial_values")
 CHAIN_SETTINGS = tuple(f.name for f in dataclasses.fields(SamplerSettings))
-GENERATED_CHILD = 1  # DEVELOPERS.md: child 1 of a chain's sequence drives generated quantities
+GENERATED_CHILD = 1  # DEVELOPERS.md: child 1 of a chain's sequence drives the per-draw outputs
 
 ProgressCallback = Callable[[str, int, int], None]
 
@@ -320,7 +320,7 @@ class ChainResult:
     """One chain's reported draws and per-draw sampler statistics (sampling phase only).
 
     ``values`` is (draws, quantities) float64 with columns ``names`` (unknowns, derived,
-    generated); ``stats`` as the sampler records them; ``adapted`` the final step size and metric
+    per_draw); ``stats`` as the sampler records them; ``adapted`` the final step size and metric
     (or proposal); ``completed`` False when the chain was stopped early; ``evaluations`` how often
     the chain evaluated the model, by phase (None when not known, e.g. a chain read back from a
     store that did not keep the counts).
@@ -368,7 +368,7 @@ class ChainRun:
         )
 
     def report(self, draws: np.ndarray) -> np.ndarray:
-        """Map unconstrained draws to reported rows, generated quantities from the chain's child 1.
+        """Map unconstrained draws to reported rows, per-draw outputs from the chain's child 1.
 
         A fresh generator from the same child for every call means the rows depend only on the
         draws, never on whether the chain was interrupted and resumed on the way.
@@ -376,7 +376,7 @@ class ChainRun:
         rng = np.random.default_rng(sampling_sequence(self.seed, GENERATED_CHILD))
         width = len(self.model.quantity_names)
         rows = np.empty((draws.shape[0], width), dtype=np.float64)
-        # the compiled model reports one draw at a time (generated quantities are random per draw)
+        # the compiled model reports one draw at a time (per-draw outputs are random per draw)
         for i, u in enumerate(draws):
             rows[i] = self.model.report(u, rng)
         return rows

@@ -132,7 +132,7 @@ def test_stored_counts_are_the_engines_and_reused_chains_have_none(
         runtime.close()
 
 
-def test_chains_stored_before_the_counts_fall_back_to_leapfrog_steps(
+def test_chains_stored_before_the_counts_fall_back_to_gradient_calls(
     database_url: str, redis_url: str
 ):
     app = create_app({"database_url": database_url, "broker_url": redis_url})

@@ -81,7 +81,7 @@ class EvaluationCounts:
 def sampling_sequence(seed: np.random.SeedSequence, child: int) -> np.random.SeedSequence:
     """Child ``child`` of ``seed``, the same one ``seed.spawn`` would make, without mutating it.
 
-    DEVELOPERS.md: child 0 drives sampling, child 1 generated quantities.
+    DEVELOPERS.md: child 0 drives sampling, child 1 the per-draw outputs.
     """
     return np.random.SeedSequence(
         seed.entropy, spawn_key=(*seed.spawn_key, child), pool_size=seed.pool_size
