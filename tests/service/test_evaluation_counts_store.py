@@ -54,7 +54,7 @@ def test_upgrade_from_0004_keeps_chains_and_leaves_their_counts_null(unmigrated_
     try:
         with engine.connect() as connection:
             version = connection.execute(text("SELECT version_num FROM alembic_version")).scalar()
-            assert version == "0005"
+            assert version == "0006"
             columns = {c["name"] for c in inspect(connection).get_columns("chains")}
             assert set(COLUMNS) <= columns
             row = connection.execute(
