@@ -11,8 +11,9 @@ the renames):
   so a registration of the same model under the new names finds the existing version;
 - jobs: the stored body (spec, sampler settings, warm-start records), the resolved settings, the
   summary, the diagnostics (with their settings, column names and adapted records) and the
-  verdict (whose failed checks name quantities); spec_sha256 over the rewritten spec, run_sha256 over the rewritten
-  settings (with the software recorded at submission, as the service computed it then), and
+  verdict (whose failed checks name quantities); spec_sha256 over the rewritten spec,
+  run_sha256 over the rewritten settings (with the software recorded at submission, as the
+  service computed it then), and
   request_sha256 when it was the digest of the stored body itself (a body whose seed the service
   drew was stored with it, so its request digest cannot be recomputed and is left as it is: it
   matters only to a retry of that very request with its idempotency key);
