@@ -225,7 +225,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--broker", default="auto",
                         help="'auto' (redis-server if installed, else filesystem), 'redis', "
                              "'filesystem' or a broker URL")
-    parser.add_argument("--concurrency", type=int, default=2,
+    parser.add_argument("--processes", type=int, default=2,
                         help="pool processes of the one worker (chains run side by side)")
     parser.add_argument("--timeout", type=float, default=300.0,
                         help="seconds to wait for the job before giving up")
@@ -242,7 +242,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         flush=True,
     )
     stack = LocalStack(var_dir=args.var.resolve(), broker=args.broker, workers=1,
-                       concurrency=args.concurrency)
+                       concurrency=args.processes)
     try:
         stack.start()
     except StartupError as error:
