@@ -141,14 +141,15 @@ def fixed(value: Any, decimals: int) -> str:
 
 
 def summary_table(quantities: list[dict[str, Any]], truth: dict[str, float]) -> str:
-    quantile_keys = list(quantities[0]["quantiles"]) if quantities else []
-    header = ["quantity", "mean", *quantile_keys, "R-hat", "bulk ESS",
+    level = quantities[0]["interval"]["level"] if quantities else 0.0
+    header = ["quantity", "median", f"{100 * level:g}% from", "to", "mean", "R-hat", "bulk ESS",
               "tail ESS", "true"]
     rows = [header]
     for q in quantities:
         rows.append([
-            q["name"], format_number(q.get("mean")),
-            *(format_number(q["quantiles"][k]) for k in quantile_keys),
+            q["name"], format_number(q.get("median")),
+            format_number(q["interval"]["lower"]), format_number(q["interval"]["upper"]),
+            format_number(q.get("mean")),
             fixed(q.get("rhat"), 3), fixed(q.get("bulk_ess"), 0), fixed(q.get("tail_ess"), 0),
             format_number(truth.get(q["name"])),
         ])

@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 
 from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
+from worker.diagnostics.summary import DEFAULT_INTERVAL, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, EvaluationCounts, SamplerSettings
 from worker.samplers.chain import sampling_sequence
@@ -42,7 +43,8 @@ TREE_DEPTH_LIMIT = 30
 # engine sees it) and "reuse" (whether an earlier identical result may be returned) belong to the
 # service, which checks them; the engine ignores them. The engine checks and uses "warm_start".
 TOP_LEVEL_MEMBERS = (
-    "model", "data", "sampler", "checks", "labels", "notify", "model_ref", "reuse", "warm_start"
+    "model", "data", "sampler", "summary", "checks", "labels", "notify", "model_ref", "reuse",
+    "warm_start",
 )
 # settings of the runner itself, beside those of one chain (SamplerSettings)
 JOB_SETTINGS = ("chains", "seed", "initial_values")
@@ -247,6 +249,7 @@ def check_submission(
         problems.append(Problem("/data", "The data must be an object of input names to values."))
     sampler_found = sampler_problems(body.get("sampler"), max_chains, max_draws)
     problems.extend(sampler_found)
+    problems.extend(summary_problems(body.get("summary")))
     problems.extend(check_thresholds(body.get("checks")))
     problems.extend(member_problems(body.get("warm_start"), max_chains))
     if not problems:
@@ -254,6 +257,35 @@ def check_submission(
     if not problems:
         problems.extend(warm_start_problems(body))
     return problems
+
+
+SUMMARY_MEMBERS = ("interval",)
+
+
+def summary_problems(member: Any) -> list[Problem]:
+    """Problems with the ``summary`` member: how the posterior summary is laid out."""
+    if member is None:
+        return []
+    if not isinstance(member, dict):
+        return [Problem("/summary", "The summary settings must be an object, such as "
+                                    '{"interval": 0.9}.')]  # fmt: skip
+    problems = [
+        Problem(f"/summary/{escape_token(name)}", f"Unknown summary setting '{name}'; known: "
+                f"{', '.join(SUMMARY_MEMBERS)}.")
+        for name in member
+        if name not in SUMMARY_MEMBERS
+    ]  # fmt: skip
+    if "interval" in member:
+        message = interval_problem(member["interval"])
+        if message:
+            problems.append(Problem("/summary/interval", message))
+    return problems
+
+
+def summary_interval(body: dict) -> float:
+    """The central interval's level a checked body asks for (the default when it says none)."""
+    member = body.get("summary") or {}
+    return float(member.get("interval", DEFAULT_INTERVAL))
 
 
 def warm_start_problems(body: dict, model: Any = None) -> list[Problem]:
@@ -454,7 +486,7 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
         raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
     draws = np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
-    summary = summarize(draws, list(results[0].names))
+    summary = summarize(draws, list(results[0].names), summary_interval(body))
     depth = resolved["maximum_tree_depth"] if resolved["method"] == "nuts" else None
     report = sampler_checks([dict(r.stats) for r in results], depth)
     report["step_size_per_chain"] = [

@@ -41,6 +41,11 @@ SUMMARY_FIELDS = {
     "mcse_of_sd": "sd_error",
     "mcse_quantiles": "quantile_errors",
 }
+# the earlier summary's fixed quantiles are the median and the 90% central interval
+EARLIER_QUANTILES = {"50%": "median", "5%": "lower", "95%": "upper"}
+EARLIER_LEVEL = 0.9
+RECORD_ORDER = ("name", "median", "interval", "mean", "sd", "rhat", "bulk_ess", "tail_ess",
+                "mean_error", "sd_error", "quantile_errors", "note")  # fmt: skip
 # ---- snapshot arrays of a Hamiltonian chain
 SNAPSHOT_ARRAYS = {"inverse_metric": "preconditioner"}
 
@@ -195,8 +200,36 @@ def quantity_records(records: Any, forward: Direction = True) -> Any:
             record = _renamed_keys(record, _table(SUMMARY_FIELDS, forward))
             if isinstance(record.get("name"), str):
                 record["name"] = column(record["name"], forward)
+            record = _layout(record, forward)
         out.append(record)
     return out
+
+
+def _layout(record: dict, forward: Direction) -> dict:
+    """The earlier record's quantiles as the median and the 90% interval, and back."""
+    errors = "quantile_errors" if forward else "mcse_quantiles"
+    if forward and isinstance(record.get("quantiles"), dict):
+        points = record.pop("quantiles")
+        named = {new: points.get(old) for old, new in EARLIER_QUANTILES.items()}
+        record["median"] = named["median"]
+        record["interval"] = {"level": EARLIER_LEVEL, "lower": named["lower"],
+                              "upper": named["upper"]}  # fmt: skip
+        if isinstance(record.get(errors), dict):
+            earlier = record[errors]
+            record[errors] = {new: earlier.get(old) for old, new in EARLIER_QUANTILES.items()}
+        ordered = {key: record[key] for key in RECORD_ORDER if key in record}
+        return {**ordered, **{k: v for k, v in record.items() if k not in ordered}}
+    interval = record.get("interval")
+    if not forward and isinstance(interval, dict) and interval.get("level") == EARLIER_LEVEL:
+        record = dict(record)
+        del record["interval"]
+        median = record.pop("median", None)
+        named = {"median": median, "lower": interval.get("lower"), "upper": interval.get("upper")}
+        record["quantiles"] = {old: named[new] for old, new in EARLIER_QUANTILES.items()}
+        if isinstance(record.get(errors), dict):
+            now = record[errors]
+            record[errors] = {old: now.get(new) for old, new in EARLIER_QUANTILES.items()}
+    return record
 
 
 def verdict(document: Any, forward: Direction = True) -> Any:
@@ -244,6 +277,11 @@ def body(document: Any, forward: Direction = True) -> Any:
         out["model"] = spec(out["model"], forward)
     if "sampler" in out:
         out["sampler"] = settings(out["sampler"], forward)
+    # the earlier summary was always at the 90% level: a stored job now says so
+    if forward and "model" in out and "summary" not in out:
+        out["summary"] = {"interval": EARLIER_LEVEL}
+    elif not forward and out.get("summary") == {"interval": EARLIER_LEVEL}:
+        del out["summary"]
     warm = out.get("warm_start")
     if isinstance(warm, dict) and isinstance(warm.get("chains"), list):
         out["warm_start"] = {**warm, "chains": [adapted(r, forward) for r in warm["chains"]]}

@@ -40,7 +40,7 @@ NEW_WORDS = {
     "per_draw", "formulas", "pointwise", "correlation_factor", "running_sum", "cumulative_logit",
     "preconditioning", "per_coordinate", "full", "start_spread", "scales", "covariance",
     "doublings", "gradient_calls", "accept_probability", "mean_error", "sd_error",
-    "quantile_errors",
+    "quantile_errors", "median", "interval",
 }  # fmt: skip
 
 
@@ -62,10 +62,14 @@ def _spec() -> dict[str, Any]:
 
 
 def _body(**members: Any) -> dict[str, Any]:
+    """A job by reference to the registered model. Its summary is at the 90% level, the one the
+    earlier summary's fixed quantiles (5%, 50%, 95%) amount to, so the store under the earlier
+    names can hold it without loss and the same submission reuses it after the upgrade."""
     body = normal_mean(chains=2, warmup=100, draws=100, seed=606)
     del body["model"]
     body["model_ref"] = {"name": "rates", "version": 1}
     body["sampler"].update(preconditioning="full", start_spread=1.5)
+    body["summary"] = {"interval": 0.9}
     return {**body, **members}
 
 

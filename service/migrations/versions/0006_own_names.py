@@ -10,7 +10,10 @@ the renames):
 - model_versions: the spec, and its SHA-256 recomputed over the rewritten spec's canonical JSON,
   so a registration of the same model under the new names finds the existing version;
 - jobs: the stored body (spec, sampler settings, warm-start records), the resolved settings, the
-  summary, the diagnostics (with their settings, column names and adapted records) and the
+  summary (whose fixed 5%, 50% and 95% quantiles become the median and the 90% central
+  interval; the body records that level as summary.interval, 0.9, so a repeat of the submission
+  with that level reuses the result), the diagnostics (with their settings, column names and
+  adapted records) and the
   verdict (whose failed checks name quantities); spec_sha256 over the rewritten spec,
   run_sha256 over the rewritten settings (with the software recorded at submission, as the
   service computed it then), and
@@ -77,20 +80,22 @@ def _digest(value: Any) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-def _run_digest(row: Any, body: dict, settings: Any, spec_sha256: str) -> str:
-    """The job's run fingerprint (service/reuse.py) over the rewritten spec and settings."""
+def _run_digest(row: Any, body: dict, settings: Any, spec_sha256: str, forward: bool) -> str:
+    """The job's run fingerprint (service/reuse.py) over the rewritten spec and settings; from
+    this revision on it also holds the summary's interval level (the earlier one was 0.9)."""
     from service.reuse import verdict_thresholds
 
-    return _digest(
-        {
-            "model": spec_sha256,
-            "data": row.data_sha256,
-            "settings": settings,
-            "checks": verdict_thresholds(body.get("checks")),
-            "warm_start_from": row.warm_start_from,
-            "software": row.api_software,
-        }
-    )
+    fingerprint = {
+        "model": spec_sha256,
+        "data": row.data_sha256,
+        "settings": settings,
+        "checks": verdict_thresholds(body.get("checks")),
+        "warm_start_from": row.warm_start_from,
+        "software": row.api_software,
+    }
+    if forward:
+        fingerprint["summary_interval"] = float(body["summary"]["interval"])
+    return _digest(fingerprint)
 
 
 def _rewrite(forward: bool) -> None:
@@ -117,7 +122,9 @@ def _rewrite(forward: bool) -> None:
         if isinstance(body, dict) and "model" in body:
             values["spec_sha256"] = _digest(body["model"])
             if row.run_sha256 is not None:
-                values["run_sha256"] = _run_digest(row, body, settings, values["spec_sha256"])
+                values["run_sha256"] = _run_digest(
+                    row, body, settings, values["spec_sha256"], forward
+                )
         if isinstance(row.body, dict) and row.request_sha256 == _digest(row.body):
             values["request_sha256"] = _digest(body)
         connection.execute(JOBS.update().where(JOBS.c.id == job_id).values(**values))
