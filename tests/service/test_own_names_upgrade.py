@@ -184,3 +184,40 @@ def test_a_job_and_a_model_stored_under_the_earlier_names_are_served_and_reused(
             assert list(states) == ["succeeded", "succeeded"]
     finally:
         app.extensions["drawyard"].close()
+
+
+def test_a_snapshot_of_a_chain_in_flight_resumes_identically_after_the_rewrite() -> None:
+    """A chain stopped mid-run is stored as a snapshot (its settings, statistics and inverse
+    metric by name). Rewritten to the earlier names and back, as a downgrade and an upgrade do,
+    it must resume to bitwise the draws of the uninterrupted chain (the engine's own guarantee,
+    tests/samplers/test_snapshot.py), and the earlier form must hold none of the new names."""
+    import io
+
+    import numpy as np
+
+    from service.migrations import own_names
+    from tests.samplers.targets import Gaussian
+    from worker.samplers import Chain, SamplerSettings
+
+    target = Gaussian(np.array([0.5, -1.0]), np.array([[1.0, 0.6], [0.6, 2.0]]))
+    for method, preconditioning in (("nuts", "full"), ("metropolis", "per_coordinate")):
+        settings = SamplerSettings(
+            method=method, preconditioning=preconditioning, warmup_iterations=60, draws=40
+        )
+        seed = np.random.SeedSequence(66)
+        reference = Chain(target, settings, seed).run()
+        chain = Chain(target, settings, seed)
+        chain.run(should_stop=lambda c=chain: c.iteration >= 70)
+        earlier = own_names.snapshot(chain.snapshot(), forward=False)
+        with np.load(io.BytesIO(earlier), allow_pickle=False) as archive:
+            header = json.loads(archive["header_json"].tobytes().decode())
+            words = set(archive.files) | set(header["settings"]) | {header["settings"][k]
+                                                                   for k in header["settings"]}
+        assert not {w for w in words if isinstance(w, str)} & (
+            NEW_WORDS | {"stat_doublings", "stat_gradient_calls", "stat_accept_probability",
+                         "warmup_stat_accept_probability", "preconditioner"}
+        )  # fmt: skip
+        resumed = Chain.restore(target, own_names.snapshot(earlier, forward=True)).run()
+        assert np.array_equal(resumed.draws, reference.draws)
+        assert all(np.array_equal(resumed.stats[k], reference.stats[k]) for k in reference.stats)
+        assert resumed.adapted == reference.adapted
