@@ -22,7 +22,7 @@ from worker.comparison.ranking import compare
 from worker.problems import Problem, pointer
 
 # Columns holding one draw's log likelihood of one observation (DEVELOPERS.md, "Compiled model").
-POINTWISE_PREFIX = "log_likelihood."
+POINTWISE_PREFIX = "pointwise."
 # Our choice: a table of more than ten fits is not read, and each fit costs a load of its draws.
 MAX_COMPARED = 10
 
@@ -40,7 +40,7 @@ def pointwise_columns(names: list[str]) -> list[int]:
 
 def _no_pointwise(job_id: str) -> str:
     return (f"Job {job_id} stores no pointwise log likelihood: list its likelihood terms under "
-            "the model's generated.pointwise_log_likelihood and run it again.")
+            "the model's per_draw.pointwise and run it again.")
 
 
 def not_posterior_draws(job: Job) -> str | None:
@@ -65,11 +65,10 @@ def job_loo(runtime: Runtime, job: Job, chains: list[Chain]) -> tuple[LeaveOneOu
     if not columns:
         raise ValueError(_no_pointwise(job.id))
     load = draw_loader(runtime, chains)
-    start, stop = columns[0], columns[-1] + 1
-    # The pointwise columns are generated last and in one run (the compiled model's order), so
-    # each chain's values are one slice, copied so that the rest of the chain can be freed.
-    pieces = [np.array(load(chain.chain_index)[:, start:stop]) for chain in chains]
-    return psis_loo(pieces), names[start:stop]
+    # One chain decoded at a time; its pointwise columns are copied out (fancy indexing copies)
+    # so that the rest of the chain can be freed before the next is read.
+    pieces = [load(chain.chain_index)[:, columns] for chain in chains]
+    return psis_loo(pieces), [names[i] for i in columns]
 
 
 def loo_document(job_id: str, result: LeaveOneOut, names: list[str]) -> dict[str, Any]:

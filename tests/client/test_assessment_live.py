@@ -32,7 +32,7 @@ def test_a_pipeline_branches_on_the_laplace_check_and_the_comparison(
         return drawyard(*args, url=service.base_url)
 
     spec = normal_mean()["model"]
-    spec["generated"] = {"pointwise_log_likelihood": ["obs"]}
+    spec["per_draw"] = {"pointwise": ["obs"]}
     wide, shifted = tmp_path / "wide.json", tmp_path / "shifted.json"
     wide.write_text(json.dumps(spec))
     spec["priors"][0]["arguments"] = {"location": 5, "scale": 0.1}

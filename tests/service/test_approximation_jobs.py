@@ -75,7 +75,7 @@ def test_draws_of_an_untrustworthy_laplace_job_are_not_used_as_posterior_draws(
             "priors": [{"on": "rate", "distribution": "exponential", "arguments": {"rate": 1}}],
             "likelihood": [{"name": "obs", "observed": "y", "distribution": "poisson",
                             "arguments": {"rate": "rate"}}],
-            "generated": {"pointwise_log_likelihood": ["obs"]},
+            "per_draw": {"pointwise": ["obs"]},
         },
         "data": {"n": 3, "y": [0, 0, 0]},
         "sampler": {"method": "laplace", "draws": 5000, "seed": 2},

@@ -21,7 +21,7 @@ from tests.service.test_registry_views import call, run_to_the_end
 
 def with_pointwise(body: dict) -> dict:
     body = copy.deepcopy(body)
-    body["model"]["generated"] = {"pointwise_log_likelihood": ["obs"]}
+    body["model"]["per_draw"] = {"pointwise": ["obs"]}
     return body
 
 
@@ -53,7 +53,7 @@ def test_predictive_accuracy_matches_exact_leave_one_out(app: Flask, queue) -> N
     assert abs(document["elpd_loo"] - exact.sum()) < document["elpd_loo_se"]
     assert abs(document["elpd_loo"] - exact.sum()) < 0.1
     assert document["observations"] == len(Y) and document["draws"] == 2000
-    assert document["pointwise"]["names"] == [f"log_likelihood.obs[{i + 1}]" for i in range(len(Y))]
+    assert document["pointwise"]["names"] == [f"pointwise.obs[{i + 1}]" for i in range(len(Y))]
     assert document["flagged"] == []
     assert queue.length() == waiting
 
@@ -62,7 +62,7 @@ def test_a_job_without_pointwise_values_is_a_conflict(app: Flask) -> None:
     job = finished(app, normal_mean(chains=2, warmup=100, draws=100, seed=4))
     response, document = call(app.test_client(), "GET", f"/v1/jobs/{job}/predictive-accuracy")
     assert response.status_code == 409
-    assert "pointwise_log_likelihood" in document["detail"]
+    assert "per_draw.pointwise" in document["detail"]
 
 
 def test_comparison_orders_jobs_and_refuses_other_data(app: Flask, queue) -> None:
