@@ -89,28 +89,34 @@ class GenericTerm:
 
 
 class NormalFixedScale:
-    """normal(x; location, scale), constant scale: c - sum(d^2 / scale^2)/2, d = location - x.
+    """normal(x; location, scale), constant scale: c - sum(d^2 / scale^2)/2, d = x - location.
 
     One subtraction, one product and one dot product per call: w = d / scale^2 is at once the
-    gradient with respect to x and (negated) with respect to the location. Array values are
-    computed into buffers kept from call to call; a scalar term stays in numpy scalars.
+    gradient with respect to the location and (negated) with respect to x. The difference is taken
+    in the order that makes w the gradient of whichever of the two needs one (a prior's x, a
+    likelihood's location), so only a term where both are unknowns pays for a negation; a unit
+    scale skips the product. Array values are computed into buffers kept from call to call; a
+    scalar term stays in numpy scalars.
     """
 
-    __slots__ = ("x", "location", "inverse_scale", "inverse_variance", "constant", "x_needed",
-                 "location_needed", "location_reduce", "x_reduce", "scalar", "d", "w", "minus_w")
+    __slots__ = ("first", "second", "first_needed", "first_reduce",
+                 "second_reduce", "inverse_scale", "inverse_variance", "unit", "constant",
+                 "scalar", "d", "w", "minus_w")
 
     def __init__(self, x: int, location: int, scale: np.ndarray, graph: Graph):
         batch = np.broadcast_shapes(graph.type_of(x).shape, graph.type_of(location).shape,
                                     scale.shape)
-        self.x, self.location = x, location
+        x_needed = not graph.nodes[x].constant
+        # d = v[first] - v[second]: w = d / scale^2 is d total / d second, -w is d / d first
+        self.first, self.second = (location, x) if x_needed else (x, location)
+        self.first_needed = x_needed and not graph.nodes[location].constant
+        self.first_reduce = _reducer(graph.type_of(self.first).shape, batch)
+        self.second_reduce = _reducer(graph.type_of(self.second).shape, batch)
         self.inverse_scale = _compact(1.0 / scale)
         self.inverse_variance = _compact(1.0 / (scale * scale))
+        self.unit = bool(np.all(scale == 1.0))
         self.constant = float(-np.sum(np.broadcast_to(np.log(scale), batch))
                               - 0.5 * LOG_2PI * int(np.prod(batch, dtype=np.int64)))
-        self.x_needed = not graph.nodes[x].constant
-        self.location_needed = not graph.nodes[location].constant
-        self.x_reduce = _reducer(graph.type_of(x).shape, batch)
-        self.location_reduce = _reducer(graph.type_of(location).shape, batch)
         self.scalar = not batch
         self.d = self.w = self.minus_w = None
         if not self.scalar:
@@ -118,28 +124,29 @@ class NormalFixedScale:
 
     def value(self, v: list[Any]) -> float:
         if self.scalar:
-            d = v[self.location] - v[self.x]
+            d = v[self.first] - v[self.second]
             return self.constant - 0.5 * float(d * d * self.inverse_variance)
-        z = np.multiply(np.subtract(v[self.location], v[self.x], out=self.d),
-                        self.inverse_scale, out=self.d)
+        z = np.subtract(v[self.first], v[self.second], out=self.d)
+        if not self.unit:
+            z = np.multiply(z, self.inverse_scale, out=z)
         return self.constant - 0.5 * sum_of_products(z, z)
 
     def run(self, v: list[Any], adjoint: list[Any]) -> float:
         if self.scalar:
-            d = v[self.location] - v[self.x]
+            d = v[self.first] - v[self.second]
             w = d * self.inverse_variance
             total = self.constant - 0.5 * float(d * w)
-            minus_w = -w
         else:
-            d = np.subtract(v[self.location], v[self.x], out=self.d)
-            w = np.multiply(d, self.inverse_variance, out=self.w)
+            # with a unit scale, w is d itself: then d goes straight into w's buffer
+            d = np.subtract(v[self.first], v[self.second], out=self.w if self.unit else self.d)
+            w = d if self.unit else np.multiply(d, self.inverse_variance, out=self.w)
             total = self.constant - 0.5 * sum_of_products(d, w)
-            minus_w = np.negative(w, out=self.minus_w) if self.location_needed else None
-        if self.x_needed:
-            _accumulate(adjoint, self.x, w if self.x_reduce is None else self.x_reduce(w))
-        if self.location_needed:
-            _accumulate(adjoint, self.location,
-                        minus_w if self.location_reduce is None else self.location_reduce(minus_w))
+        reduce = self.second_reduce
+        _accumulate(adjoint, self.second, w if reduce is None else reduce(w))
+        if self.first_needed:
+            minus_w = -w if self.scalar else np.negative(w, out=self.minus_w)
+            _accumulate(adjoint, self.first,
+                        minus_w if self.first_reduce is None else self.first_reduce(minus_w))
         return total
 
 
@@ -227,7 +234,7 @@ class NormalVaryingScale:
 class HalfNormalFixedScale:
     """half_normal(x; scale) with a constant scale; -inf when any x is negative."""
 
-    __slots__ = ("x", "inverse_variance", "constant", "check_sign", "x_reduce")
+    __slots__ = ("x", "inverse_variance", "constant", "check_sign", "x_reduce", "scalar")
 
     def __init__(self, x: int, scale: np.ndarray, graph: Graph, sign_guaranteed: bool):
         shape = graph.type_of(x).shape
@@ -238,6 +245,7 @@ class HalfNormalFixedScale:
                                                      batch)))
         self.check_sign = not sign_guaranteed
         self.x_reduce = _reducer(shape, batch)
+        self.scalar = not batch
 
     def value(self, v: list[Any]) -> float:
         x = v[self.x]
@@ -250,7 +258,7 @@ class HalfNormalFixedScale:
         if self.check_sign and np.any(x < 0):
             return -np.inf
         g = x * self.inverse_variance
-        total = self.constant - 0.5 * (float(g * x) if np.ndim(g) == 0 else float(np.sum(g * x)))
+        total = self.constant - 0.5 * (float(g * x) if self.scalar else float(np.sum(g * x)))
         gx = -g
         _accumulate(adjoint, self.x, gx if self.x_reduce is None else self.x_reduce(gx))
         return total
