@@ -270,7 +270,7 @@ def warm_start_problems(body: dict, model: Any = None) -> list[Problem]:
     if structural:
         return structural
     method = (body.get("sampler") or {}).get("method", SamplerSettings().method)
-    return record_problems(member, method, model if model is not None else _compile(body))
+    return record_problems(member, method, model if model is not None else compile_body(body))
 
 
 # ---- settings and seeds ----------------------------------------------------------------------
@@ -386,18 +386,23 @@ class ChainRun:
         return self.chain.snapshot()
 
 
-def _compile(body: dict) -> Any:
+def compile_body(body: dict) -> Any:
+    """The compiled model of a submission's spec and data."""
     from worker.modeling import compile_model
 
     return compile_model(body["model"], body.get("data") or {})
 
 
-def start_chain(body: dict, chain_index: int) -> ChainRun:
-    """Compile the model and initialise chain ``chain_index`` (0-based) of a checked submission."""
+def start_chain(body: dict, chain_index: int, model: Any = None) -> ChainRun:
+    """Initialise chain ``chain_index`` (0-based) of a checked submission.
+
+    ``model`` is the body's compiled model when the caller has it already (a worker keeps them
+    between chains: worker/model_cache.py); it is compiled here otherwise.
+    """
     resolved = _resolved_with_seed(body)
     if not 0 <= chain_index < resolved["chains"]:
         raise ValueError(f"chain index {chain_index} outside 0..{resolved['chains'] - 1}")
-    model = _compile(body)
+    model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
     values = _initial_values_for(resolved, chain_index)
     point = None if values is None else np.asarray(model.unconstrain(values), dtype=np.float64)
@@ -423,11 +428,12 @@ def _require_warm_records(body: dict, model: Any = None) -> None:
         raise InvalidSubmission(problems)
 
 
-def resume_chain(body: dict, chain_index: int, blob: bytes) -> ChainRun:
+def resume_chain(body: dict, chain_index: int, blob: bytes, model: Any = None) -> ChainRun:
     """Continue chain ``chain_index`` from a snapshot taken by ``ChainRun.snapshot`` or a
-    checkpoint; refuses a snapshot made with other settings than the body's."""
+    checkpoint; refuses a snapshot made with other settings than the body's. ``model`` as for
+    ``start_chain``."""
     resolved = _resolved_with_seed(body)
-    model = _compile(body)
+    model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
     chain = Chain.restore(model, blob)
     if chain.settings != _chain_settings(resolved):
@@ -488,7 +494,8 @@ def run_in_process(body: dict) -> dict:
         _require_warm_records(body)
     resolved = resolve_sampler(body.get("sampler"))
     job = {**body, "sampler": {k: v for k, v in resolved.items() if v is not None}}
-    results = [start_chain(job, i).run() for i in range(resolved["chains"])]
+    model = compile_body(job)  # once for every chain: the chains run one after another
+    results = [start_chain(job, i, model).run() for i in range(resolved["chains"])]
     outcome = finish_job(job, results)
     return {
         **outcome,

@@ -92,6 +92,16 @@ class Plan:
             self.terms.append(term_kernel(term.variate, term.distribution, term.argument_names,
                                           term.argument_nodes, graph, term.sign_guaranteed))
 
+    def arrays(self) -> list[np.ndarray]:
+        """Every array the plan holds: node values, and the buffers and data of its kernels."""
+        held = [value for value in self._template if isinstance(value, np.ndarray)]
+        for term in self.terms:
+            for name in getattr(type(term), "__slots__", ()):
+                value = getattr(term, name, None)
+                if isinstance(value, np.ndarray):
+                    held.append(value)
+        return held
+
     # ---- forward
     def _forward(self, u: np.ndarray) -> list[Any]:
         v = self._values
