@@ -444,6 +444,22 @@ def resume_chain(body: dict, chain_index: int, blob: bytes, model: Any = None) -
 # ---- the whole job ---------------------------------------------------------------------------
 
 
+def pooled_draws(results: list[ChainResult]) -> np.ndarray:
+    """(chains, draws, quantities) of the results' values, without a copy when they are already
+    the consecutive rows of one such array (as the service's finishing step loads them)."""
+    first = results[0].values
+    base = first.base if isinstance(first, np.ndarray) else None
+    if (isinstance(base, np.ndarray) and base.dtype == np.float64
+            and base.shape == (len(results), *first.shape) and base.flags.c_contiguous):
+        start, row = base.__array_interface__["data"][0], base.strides[0]
+        if all(isinstance(r.values, np.ndarray) and r.values.base is base
+               and r.values.shape == first.shape
+               and r.values.__array_interface__["data"][0] == start + i * row
+               for i, r in enumerate(results)):
+            return base
+    return np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
+
+
 def finish_job(body: dict, results: list[ChainResult]) -> dict:
     """Summary, sampler report and verdict of a job's completed chains, all JSON-able.
 
@@ -459,7 +475,7 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     if len(lengths) != 1:
         raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
-    draws = np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
+    draws = pooled_draws(results)
     summary = summarize(draws, list(results[0].names))
     depth = resolved["maximum_tree_depth"] if resolved["method"] == "nuts" else None
     report = sampler_checks([dict(r.stats) for r in results], depth)
