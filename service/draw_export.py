@@ -13,8 +13,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-# Rows formatted per block: bounds the text held in memory for a long chain.
-ROWS_PER_BLOCK = 2000
+# Cells formatted per block: bounds the text (and the Python numbers it is made from) held in
+# memory at once, about 2 MB, however long the chain and however many its quantities. Our choice:
+# large enough that the per-block Python work is noise beside the formatting itself.
+CELLS_PER_BLOCK = 50_000
+
+
+def _rows_per_block(columns: int) -> int:
+    return max(1, CELLS_PER_BLOCK // max(1, columns))
 
 
 @dataclass(frozen=True)
@@ -50,8 +56,9 @@ def json_rows(values: np.ndarray) -> Iterator[str]:
     """``[a,b,...]`` rows separated by commas, block by block."""
     values = np.asarray(values, dtype=np.float64)
     line = "[" + ",".join([_CELL] * values.shape[1]) + "]"
-    for start in range(0, values.shape[0], ROWS_PER_BLOCK):
-        block = values[start : start + ROWS_PER_BLOCK]
+    step = _rows_per_block(values.shape[1])
+    for start in range(0, values.shape[0], step):
+        block = values[start : start + step]
         template = ",".join([line] * block.shape[0])
         text = _formatted(template, block.ravel().tolist(), block, _NON_FINITE_JSON)
         yield ("," if start else "") + text
@@ -62,8 +69,9 @@ def csv_rows(chain_number: int, first_draw: int, thin: int, values: np.ndarray) 
     values = np.asarray(values, dtype=np.float64)
     columns = values.shape[1]
     line = f"{chain_number},%d" + "".join(["," + _CELL] * columns) + "\n"
-    for start in range(0, values.shape[0], ROWS_PER_BLOCK):
-        block = values[start : start + ROWS_PER_BLOCK]
+    step = _rows_per_block(columns)
+    for start in range(0, values.shape[0], step):
+        block = values[start : start + step]
         rows = block.shape[0]
         # each row's draw number (exact as a float64 below 2^53; %d prints it whole), then its
         # cells, in one flat list matching the template

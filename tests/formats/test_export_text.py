@@ -43,7 +43,7 @@ def _reference_cell(x: float, words: dict[str, float], quoted: bool) -> str:
                                                       (3, 0, False)])
 def test_csv_text_matches_the_cell_by_cell_reference_and_reads_back(
         rows, columns, non_finite, monkeypatch):
-    monkeypatch.setattr(draw_export, "ROWS_PER_BLOCK", 1000)
+    monkeypatch.setattr(draw_export, "CELLS_PER_BLOCK", 7000)
     values = _values(rows, columns, non_finite)
     text = "".join(csv_rows(3, 2, 5, values))
     expected = "".join(
@@ -59,7 +59,7 @@ def test_csv_text_matches_the_cell_by_cell_reference_and_reads_back(
 @pytest.mark.parametrize("rows,columns,non_finite", [(1, 1, False), (5, 3, True), (4500, 7, True)])
 def test_json_text_matches_the_cell_by_cell_reference_and_reads_back(
         rows, columns, non_finite, monkeypatch):
-    monkeypatch.setattr(draw_export, "ROWS_PER_BLOCK", 1000)
+    monkeypatch.setattr(draw_export, "CELLS_PER_BLOCK", 7000)
     values = _values(rows, columns, non_finite)
     text = "[" + "".join(json_rows(values)) + "]"
     expected = "[" + ",".join(
