@@ -38,8 +38,11 @@ def encode_array(values: np.ndarray) -> EncodedArray:
     little = np.ascontiguousarray(values, dtype=values.dtype.newbyteorder("<"))
     buffer = io.BytesIO()
     np.save(buffer, little, allow_pickle=False)
+    # compressed straight from the buffer's memory (getvalue() would copy a long chain once more)
+    with buffer.getbuffer() as view:
+        data = zlib.compress(view, level=6)
     return EncodedArray(
-        data=zlib.compress(buffer.getvalue(), level=6),
+        data=data,
         dtype=little.dtype.str,
         shape=list(little.shape),
         sha256=_sha256(little),
