@@ -101,26 +101,37 @@ def _product_gradient(g: Array, other: Array, shape: tuple[int, ...]) -> Array:
 
 
 class ProductCombined(Operation):
-    """a + b*c, b*c + a, a - b*c or b*c - a as one step (inputs a, b, c), fused at plan time.
+    """a + p, p + a, a - p or p - a with p = b * c or b @ c, as one step (inputs a, b, c), fused
+    at plan time.
 
     Each call does the same floating-point operations as the addition (or subtraction) and the
     product it replaces, forward and backward, so values and gradients keep their bits; only the
-    order in which several gradient contributions to one node are added up may change.
+    order in which several gradient contributions to one node are added up may change. When the
+    product has the result's shape, the sum is written over the product's fresh array: one array
+    and one pass fewer (a linear predictor ``intercept + X @ beta`` over 50,000 rows).
     """
 
-    __slots__ = ("subtract", "product_first", "product_shape", "name")
+    __slots__ = ("subtract", "product_first", "product_shape", "product", "in_place", "name")
 
-    def __init__(self, subtract: bool, product_first: bool, product_shape: tuple[int, ...]):
+    def __init__(self, subtract: bool, product_first: bool, product_shape: tuple[int, ...],
+                 product: Operation, result_shape: tuple[int, ...]):
         self.subtract = subtract
         self.product_first = product_first
         self.product_shape = product_shape
-        self.name = ("(b * c) - a" if product_first else "a - (b * c)") if subtract \
-            else "a + (b * c)"
+        self.product = product
+        self.in_place = bool(product_shape) and product_shape == result_shape
+        symbol = product.name
+        self.name = (f"(b {symbol} c) - a" if product_first else f"a - (b {symbol} c)") \
+            if subtract else f"a + (b {symbol} c)"
 
     def forward(self, a, b, c):
-        p = b * c
+        p = self.product.forward(b, c)
+        if self.in_place and p.dtype == np.float64:  # (a product of two booleans stays boolean)
+            if not self.subtract:
+                return np.add(p, a, out=p)  # IEEE addition is commutative: the bits of a + p
+            return np.subtract(p, a, out=p) if self.product_first else np.subtract(a, p, out=p)
         if not self.subtract:
-            return a + p  # IEEE addition is commutative: the same bits as p + a
+            return a + p
         return p - a if self.product_first else a - p
 
     def backward(self, g, inputs, out, needs):
@@ -131,10 +142,7 @@ class ProductCombined(Operation):
         if needs[1] or needs[2]:
             gp = _reduce_to(-g if self.subtract and not self.product_first else g,
                             self.product_shape)
-            if needs[1]:
-                gb = _product_gradient(gp, c, b.shape)
-            if needs[2]:
-                gc = _product_gradient(gp, b, c.shape)
+            gb, gc = self.product.backward(gp, [b, c], None, (needs[1], needs[2]))
         return [ga, gb, gc]
 
 

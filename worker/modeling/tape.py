@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 
 from .graph import Graph
-from .operations import Add, Multiply, ProductCombined, Subtract
+from .operations import Add, MatrixProduct, Multiply, ProductCombined, Subtract
 from .term_kernels import term_kernel
 
 
@@ -282,10 +282,12 @@ def _bound_backward(out: int, backward, inputs: tuple[int, ...], needs: tuple[bo
 
 
 def _fuse_products(graph: Graph, steps: list[tuple], wanted: set[int]) -> list[tuple]:
-    """Merge each product whose only use is one addition or subtraction into that step.
+    """Merge each product (elementwise or matrix) whose only use is one addition or subtraction
+    into that step.
 
-    ``a + b * c`` is the commonest chain in models (a location plus a scaled effect); as one step
-    it costs one closure call forward and one backward instead of two. A product that a term,
+    ``a + b * c`` is the commonest chain in models (a location plus a scaled effect), and
+    ``a + X @ b`` the linear predictor; as one step each costs one closure call forward and one
+    backward instead of two, and the sum can overwrite the product's array. A product that a term,
     an output or a second step also reads is left alone.
     """
     by_output = {step[0]: step for step in steps}
@@ -301,13 +303,15 @@ def _fuse_products(graph: Graph, steps: list[tuple], wanted: set[int]) -> list[t
         for position in (1, 0):  # prefer a - (b * c) when both sides are products
             product = inputs[position]
             record = by_output.get(product)
-            if (record is None or not isinstance(record[1], Multiply) or product in wanted
+            if (record is None or not isinstance(record[1], Multiply | MatrixProduct)
+                    or product in wanted
                     or uses.get(product) != 1 or product in absorbed):
                 continue
             other = inputs[1 - position]
             b, c = record[2]
             operation_fused = ProductCombined(isinstance(operation, Subtract), position == 0,
-                                              graph.type_of(product).shape)
+                                              graph.type_of(product).shape, record[1],
+                                              graph.type_of(out).shape)
             fused[out] = (out, operation_fused, (other, b, c),
                           (needs[1 - position], *record[3]))
             absorbed.add(product)
