@@ -268,15 +268,15 @@ class LogOddsCountsData:
     """bernoulli(y; log_odds) or binomial(y; trials, log_odds) for fixed data y (and trials n).
 
     log p = c + y . eta - sum(n softplus(eta)),  d/deta = y - n expit(eta),  in one pass of exp:
-    with a = |eta| and e = exp(-a), softplus(eta) = max(eta, 0) + log1p(e), where
-    max(eta, 0) = (eta + a)/2, and q = e/(1 + e) = expit(-a) <= 1/2 keeps full relative precision;
-    expit(eta) is q where eta is negative and 1 - q elsewhere, so the residual is
-    y - n + n [eta < 0] + n copysign(q, eta), with the exact integer part settled once per call
-    by a sign test. Every array lives in a buffer kept from call to call.
+    with e = exp(-|eta|), softplus(eta) = max(eta, 0) + log1p(e), and q = e/(1 + e) = expit(-|eta|)
+    <= 1/2 keeps full relative precision; expit(eta) is q where eta is negative and 1 - q
+    elsewhere. With the exact integer part r0 = y - n [eta >= 0] (one sign test),
+    y . eta - n . max(eta, 0) is the single dot product r0 . eta, and the residual is
+    r0 + n copysign(q, eta). Every array lives in a buffer kept from call to call.
     """
 
-    __slots__ = ("eta", "eta_reduce", "y", "trials", "y_minus_trials", "constant", "count",
-                 "a", "e", "r", "negative")
+    __slots__ = ("eta", "eta_reduce", "y", "trials", "y_minus_trials", "constant",
+                 "a", "e", "r", "scratch", "negative")
 
     def __init__(self, y: np.ndarray, eta: int, graph: Graph, trials: np.ndarray | None = None,
                  constant: float = 0.0):
@@ -289,40 +289,35 @@ class LogOddsCountsData:
         self.eta = eta
         self.eta_reduce = _reducer(graph.type_of(eta).shape, batch)
         self.constant = constant
-        self.a, self.e, self.r = np.empty(batch), np.empty(batch), np.empty(batch)
+        self.a, self.e, self.r, self.scratch = (np.empty(batch) for _ in range(4))
         self.negative = np.empty(batch, dtype=bool)
 
     def _eta(self, v: list[Any]) -> np.ndarray:
         eta = v[self.eta]
         return eta if self.eta_reduce is None else np.broadcast_to(eta, self.y.shape)
 
-    def _value(self, eta: np.ndarray) -> float:
-        """The log mass; leaves e = exp(-|eta|) in its buffer."""
+    def _value(self, eta: np.ndarray, r0: np.ndarray) -> float:
+        """The log mass; leaves e = exp(-|eta|) in its buffer and y - n [eta >= 0] in r0."""
         a = np.abs(eta, out=self.a)
         e = np.exp(np.negative(a, out=self.e), out=self.e)
+        negative = np.signbit(eta, out=self.negative)
         if self.trials is None:
-            positive_part = 0.5 * (float(eta.sum()) + float(a.sum()))
-            log1p_total = float(np.log1p(e, out=self.a).sum())
+            np.add(self.y_minus_trials, negative, out=r0)
+            log1p_total = float(np.log1p(e, out=a).sum())
         else:
-            np.add(eta, a, out=a)
-            positive_part = 0.5 * sum_of_products(self.trials, a)
-            log1p_total = sum_of_products(self.trials, np.log1p(e, out=self.a))
-        return self.constant + sum_of_products(self.y, eta) - positive_part - log1p_total
+            np.add(self.y_minus_trials, np.multiply(self.trials, negative, out=r0), out=r0)
+            log1p_total = sum_of_products(self.trials, np.log1p(e, out=a))
+        return self.constant + sum_of_products(r0, eta) - log1p_total
 
     def value(self, v: list[Any]) -> float:
-        return self._value(self._eta(v))
+        return self._value(self._eta(v), self.scratch)
 
     def run(self, v: list[Any], adjoint: list[Any]) -> float:
         eta = self._eta(v)
-        total = self._value(eta)
+        r = self.r
+        total = self._value(eta, r)
         e = self.e
-        q = np.divide(e, np.add(e, 1.0, out=self.a), out=e)
-        np.copysign(q, eta, out=q)
-        r = np.add(self.y_minus_trials, np.signbit(eta, out=self.negative), out=self.r) \
-            if self.trials is None else \
-            np.add(self.y_minus_trials,
-                   np.multiply(self.trials, np.signbit(eta, out=self.negative), out=self.r),
-                   out=self.r)
+        q = np.copysign(np.divide(e, np.add(e, 1.0, out=self.a), out=e), eta, out=e)
         if self.trials is None:
             np.add(r, q, out=r)
         else:
