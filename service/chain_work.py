@@ -43,6 +43,8 @@ class Lease:
     attempt: int
     checkpoint: bytes | None
     body: dict[str, Any]
+    # the spec's and the data's fingerprints from submission: the compiled model's cache key
+    model_key: str | None = None
 
 
 def take_lease(
@@ -125,7 +127,8 @@ def take_lease(
         if started == 1:
             events.record(session, job_id, "job_state", "running")
         return Lease(
-            chain.id, job_id, chain_index, token, chain.attempts, chain.checkpoint, job.body
+            chain.id, job_id, chain_index, token, chain.attempts, chain.checkpoint, job.body,
+            f"{job.spec_sha256}:{job.data_sha256}",
         )
 
 
@@ -276,8 +279,12 @@ def run_chain(
         _resend_finish_if_due(runtime, job_id)
         return ChainOutcome("dropped")
     monitor = ChainMonitor(runtime, lease).start()
+    model = None
     try:
-        chain_run = _start_or_resume(lease)
+        from worker.runner import compile_body
+
+        model = runtime.models.borrow(lease.model_key, lambda: compile_body(lease.body))
+        chain_run = _start_or_resume(lease, model)
         monitor.snapshot_source = chain_run.snapshot
         result = chain_run.run(
             progress=monitor.progress,
@@ -287,11 +294,13 @@ def run_chain(
         )
     except Exception as error:
         monitor.close()
+        runtime.models.give_back(lease.model_key, model)
         log.exception("chain %s of job %s failed", chain_index + 1, job_id)
         outcome = "failed"
         ended = end_chain(runtime, lease, "failed", f"{type(error).__name__}: {error}", monitor)
     else:
         monitor.close()
+        runtime.models.give_back(lease.model_key, model)
         if result.completed:
             outcome = "succeeded"
             ended = store_result(runtime, lease, result, monitor)
@@ -314,7 +323,7 @@ def run_chain(
     return ChainOutcome(outcome if ended else "lease lost")
 
 
-def _start_or_resume(lease: Lease) -> Any:
+def _start_or_resume(lease: Lease, model: Any = None) -> Any:
     """The chain from its checkpoint, or from the start when the checkpoint cannot be used.
 
     Starting over costs time but not correctness: a chain's draws depend only on the body and its
@@ -324,7 +333,7 @@ def _start_or_resume(lease: Lease) -> Any:
 
     if lease.checkpoint is not None:
         try:
-            return runner.resume_chain(lease.body, lease.chain_index, lease.checkpoint)
+            return runner.resume_chain(lease.body, lease.chain_index, lease.checkpoint, model)
         except Exception as error:  # any unreadable or mismatched snapshot: start over
             log.warning(
                 "checkpoint of chain %s of job %s unusable (%s); starting it over",
@@ -332,7 +341,7 @@ def _start_or_resume(lease: Lease) -> Any:
                 lease.job_id,
                 error,
             )
-    return runner.start_chain(lease.body, lease.chain_index)
+    return runner.start_chain(lease.body, lease.chain_index, model)
 
 
 def end_chain(

@@ -34,6 +34,9 @@ class Settings:
     max_draws: int = 100_000
     max_body_bytes: int = 10 * 1024 * 1024
     checkpoint_every: int = 200
+    # MB of compiled models a worker process keeps between chains (worker/model_cache.py); 0
+    # compiles every chain afresh. Our choice: a few large data sets' worth on a worker of 2 GB.
+    model_cache_mb: int = 256
     # Seconds between checkpoints as well (whichever comes first); 0 means by iterations only.
     checkpoint_seconds: float = 30.0
     # Deliveries of one chain that may take its lease; the next ends the chain as failed, so a

@@ -285,7 +285,7 @@ def _approximation_problems(body: dict) -> list[Problem]:
         problems.append(Problem("/warm_start", f"a {method} job does not start from an earlier "
                                                "job's chains"))
     if method == "grid":
-        reason = grid_dimension_problem(_compile(body))
+        reason = grid_dimension_problem(compile_body(body))
         if reason is not None:
             problems.append(Problem("/sampler/method", reason))
     return problems
@@ -334,7 +334,7 @@ def warm_start_problems(body: dict, model: Any = None) -> list[Problem]:
     if structural:
         return structural
     method = (body.get("sampler") or {}).get("method", SamplerSettings().method)
-    return record_problems(member, method, model if model is not None else _compile(body))
+    return record_problems(member, method, model if model is not None else compile_body(body))
 
 
 # ---- settings and seeds ----------------------------------------------------------------------
@@ -455,18 +455,23 @@ class ChainRun:
         return self.chain.snapshot()
 
 
-def _compile(body: dict) -> Any:
+def compile_body(body: dict) -> Any:
+    """The compiled model of a submission's spec and data."""
     from worker.modeling import compile_model
 
     return compile_model(body["model"], body.get("data") or {})
 
 
-def start_chain(body: dict, chain_index: int) -> ChainRun | ApproximationRun:
-    """Compile the model and initialise chain ``chain_index`` (0-based) of a checked submission."""
+def start_chain(body: dict, chain_index: int, model: Any = None) -> ChainRun | ApproximationRun:
+    """Initialise chain ``chain_index`` (0-based) of a checked submission.
+
+    ``model`` is the body's compiled model when the caller has it already (a worker keeps them
+    between chains: worker/model_cache.py); it is compiled here otherwise.
+    """
     resolved = _resolved_with_seed(body)
     if not 0 <= chain_index < resolved["chains"]:
         raise ValueError(f"chain index {chain_index} outside 0..{resolved['chains'] - 1}")
-    model = _compile(body)
+    model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
     if resolved["method"] in APPROXIMATION_METHODS:
         return ApproximationRun(model, resolved["method"], seed, resolved["draws"], ChainResult)
@@ -494,11 +499,12 @@ def _require_warm_records(body: dict, model: Any = None) -> None:
         raise InvalidSubmission(problems)
 
 
-def resume_chain(body: dict, chain_index: int, blob: bytes) -> ChainRun:
+def resume_chain(body: dict, chain_index: int, blob: bytes, model: Any = None) -> ChainRun:
     """Continue chain ``chain_index`` from a snapshot taken by ``ChainRun.snapshot`` or a
-    checkpoint; refuses a snapshot made with other settings than the body's."""
+    checkpoint; refuses a snapshot made with other settings than the body's. ``model`` as for
+    ``start_chain``."""
     resolved = _resolved_with_seed(body)
-    model = _compile(body)
+    model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
     chain = Chain.restore(model, blob)
     if chain.settings != _chain_settings(resolved):
@@ -507,6 +513,22 @@ def resume_chain(body: dict, chain_index: int, blob: bytes) -> ChainRun:
 
 
 # ---- the whole job ---------------------------------------------------------------------------
+
+
+def pooled_draws(results: list[ChainResult]) -> np.ndarray:
+    """(chains, draws, quantities) of the results' values, without a copy when they are already
+    the consecutive rows of one such array (as the service's finishing step loads them)."""
+    first = results[0].values
+    base = first.base if isinstance(first, np.ndarray) else None
+    if (isinstance(base, np.ndarray) and base.dtype == np.float64
+            and base.shape == (len(results), *first.shape) and base.flags.c_contiguous):
+        start, row = base.__array_interface__["data"][0], base.strides[0]
+        if all(isinstance(r.values, np.ndarray) and r.values.base is base
+               and r.values.shape == first.shape
+               and r.values.__array_interface__["data"][0] == start + i * row
+               for i, r in enumerate(results)):
+            return base
+    return np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
 
 
 def finish_job(body: dict, results: list[ChainResult]) -> dict:
@@ -524,7 +546,7 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     if len(lengths) != 1:
         raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
-    draws = np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
+    draws = pooled_draws(results)
     summary = summarize(draws, list(results[0].names), summary_interval(body))
     if resolved["method"] in APPROXIMATION_METHODS:
         report, checked = approximation_verdict(results)
@@ -562,7 +584,8 @@ def run_in_process(body: dict) -> dict:
         _require_warm_records(body)
     resolved = resolve_sampler(body.get("sampler"))
     job = {**body, "sampler": {k: v for k, v in resolved.items() if v is not None}}
-    results = [start_chain(job, i).run() for i in range(resolved["chains"])]
+    model = compile_body(job)  # once for every chain: the chains run one after another
+    results = [start_chain(job, i, model).run() for i in range(resolved["chains"])]
     outcome = finish_job(job, results)
     return {
         **outcome,

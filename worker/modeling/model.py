@@ -118,6 +118,18 @@ class CompiledModel:
         return {n: values[k] for n, k in zip(term.argument_names, term.argument_nodes,
                                              strict=True)}
 
+    def memory_bytes(self) -> int:
+        """Bytes of the arrays the compiled model holds (data, constants, kernels' buffers)."""
+        seen: dict[int, int] = {}
+        for plan in (self._density, self._report):
+            for array in plan.arrays():
+                base = array if array.base is None else array.base
+                if isinstance(base, np.ndarray):
+                    seen[id(base)] = base.nbytes
+                else:
+                    seen[id(array)] = array.nbytes
+        return sum(seen.values())
+
     # ---- the sampler's interface
     def log_density(self, u: np.ndarray) -> float:
         try:
