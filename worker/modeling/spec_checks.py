@@ -11,6 +11,7 @@ from jsonschema import Draft202012Validator, ValidationError
 
 from ..problems import InvalidSubmission, Problem, pointer
 from .assembly import assemble
+from .distributions import distribution_names
 from .model import CompiledModel
 
 _TYPE_WORDS = {"object": "an object", "array": "an array", "string": "a string",
@@ -93,13 +94,47 @@ def _sentence(error: ValidationError) -> tuple[str, str]:
     return at, message
 
 
+# Where distribution terms live in a spec: priors, likelihood terms, per-draw predictions.
+_TERM_LISTS = (("priors",), ("likelihood",), ("generated", "predictions"))
+
+
+def _unknown_distributions(spec: dict) -> list[Problem]:
+    """A term naming a distribution that does not exist, at its `distribution` member.
+
+    Said before anything about the term's arguments: which arguments are right depends on the
+    distribution, so a complaint about them alone (an empty object, say) would send the user to
+    the wrong field.
+    """
+    known = distribution_names()
+    problems: list[Problem] = []
+    for path in _TERM_LISTS:
+        items: Any = spec
+        for key in path:
+            items = items.get(key) if isinstance(items, dict) else None
+        if not isinstance(items, list):
+            continue
+        for i, item in enumerate(items):
+            name = item.get("distribution") if isinstance(item, dict) else None
+            if isinstance(name, str) and name not in known:
+                shown = name if len(name) <= 64 else name[:61] + "..."
+                problems.append(Problem(pointer("model", *path, i, "distribution"),
+                                        f"unknown distribution '{shown}'; known distributions: "
+                                        f"{', '.join(known)}"))
+    return problems
+
+
 def schema_problems(spec: Any) -> list[Problem]:
-    """Every place the spec breaks schemas/model_spec.json (JSON Schema 2020-12)."""
+    """Every place the spec breaks schemas/model_spec.json (JSON Schema 2020-12), and first of
+    all every term whose distribution does not exist."""
     if not isinstance(spec, dict):
         return [Problem("/model", "the model must be a JSON object")]
+    problems = _unknown_distributions(spec)
+    # the term's other members are judged against a distribution it does not have: leave them
+    silenced = tuple(p.pointer.removesuffix("/distribution") + "/" for p in problems)
     errors = sorted(_validator().iter_errors(spec), key=lambda e: list(map(str, e.absolute_path)))
-    problems: list[Problem] = []
     for error in errors:
+        if silenced and pointer("model", *error.absolute_path).startswith(silenced):
+            continue
         # a oneOf failure carries one sub-error per alternative; the summary sentence is enough
         at, message = _sentence(error)
         problem = Problem(at, message)
@@ -110,8 +145,10 @@ def schema_problems(spec: Any) -> list[Problem]:
 
 def _build(spec: Any, data: Any) -> tuple[list[Problem], CompiledModel | None]:
     problems = schema_problems(spec)
-    if problems:
+    if problems and (not isinstance(spec, dict) or problems != _unknown_distributions(spec)):
         return problems, None
+    # Unknown distributions alone leave the spec's shape intact: the semantic checks still run,
+    # so every other problem is reported too; they say the same about those terms, in context.
     problems, assembly = assemble(spec, {} if data is None else data)
     if problems:
         return problems, None
