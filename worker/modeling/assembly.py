@@ -31,7 +31,8 @@ from .transforms import make_transform
 SECTIONS = ("inputs", "unknowns", "derived")
 # Variate kinds a prior may put on a continuous unknown, and what the declaration must guarantee.
 POSITIVE_KINDS = {"positive", "nonnegative"}
-DISCRETE_KINDS = {"binary", "nonnegative_integer", "count_up_to_trials", "category"}
+DISCRETE_KINDS = {"binary", "nonnegative_integer", "count_up_to_trials", "category",
+                  "counts_summing_to_trials"}
 
 
 @dataclass
@@ -465,6 +466,7 @@ class _Assembler:
         constants = {n: graph.nodes[k].value for n, k in zip(*args, strict=True)
                      if graph.nodes[k].constant}
         needs = {"interval": ("lower", "upper"), "count_up_to_trials": ("trials",),
+                 "counts_summing_to_trials": ("trials",),
                  "category": distribution.arguments}.get(distribution.variate_kind, ())
         if any(n not in constants for n in needs):
             return True  # the bound depends on unknowns; the density itself will say -inf

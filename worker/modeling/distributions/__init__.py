@@ -51,6 +51,8 @@ _CLASSES: list[type[Distribution]] = [
     discrete.NegativeBinomialLogMean,
     discrete.Categorical,
     discrete.OrderedLogistic,
+    discrete.MultinomialProbability,
+    discrete.MultinomialLogWeights,
 ]
 
 # one shared instance per (name, argument set): instances hold no state

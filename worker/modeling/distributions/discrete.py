@@ -9,8 +9,9 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import digamma, gammaln, xlog1py, xlogy
 
-from ..special import expit, max_last, softplus, sum_last
+from ..special import expit, max_last, softmax, softplus, sum_last
 from .base import (
+    STRUCTURE_TOLERANCE,
     Array,
     Distribution,
     Summed,
@@ -375,3 +376,81 @@ class OrderedLogistic(Distribution):
 
     def _default_shape(self, values):
         return np.broadcast_shapes(values[0].shape, values[1].shape[:-1])
+
+
+def _multinomial_bad(x: Array, trials: Array) -> Array:
+    """Per event: some count is not a non-negative integer, or the counts do not add to trials."""
+    return np.any(_not_count(x), axis=-1) | ~(np.sum(x, axis=-1) == trials) | _not_count(trials)
+
+
+class _Multinomial(Distribution):
+    """Counts of K outcomes in `trials` independent draws, one event per last axis:
+    log p = lgamma(n + 1) - sum_k lgamma(x_k + 1) + sum_k x_k log p_k (Johnson, Kotz &
+    Balakrishnan 1997, Discrete Multivariate Distributions, ch. 35)."""
+
+    name = "multinomial"
+    variate_kind = "counts_summing_to_trials"
+    event_ndim = 1
+    discrete = True
+
+    def _coefficient(self, x: Array, trials: Array) -> Array:
+        return gammaln(trials + 1.0) - sum_last(gammaln(x + 1.0))
+
+    def _default_shape(self, values):
+        trials, weights = values
+        return np.broadcast_shapes(trials.shape, weights.shape[:-1]) + (weights.shape[-1],)
+
+    def _draw(self, rng, shape, trials, probability):
+        n = np.broadcast_to(trials, shape[:-1]).astype(np.int64)
+        return rng.multinomial(n, probability, size=shape[:-1]).astype(np.int64)
+
+
+class MultinomialProbability(_Multinomial):
+    arguments = ("trials", "probability")
+    argument_support = {"trials": "nonnegative_integer", "probability": "simplex"}
+    argument_event_ndim = {"probability": 1}
+
+    def _log_density_and_pointwise(self, x, trials, probability, wrt) -> Pointwise:
+        p = probability
+        val = self._coefficient(x, trials) + sum_last(xlogy(x, p))
+        grads: dict[str, Array] = {}
+        if "probability" in wrt:
+            # x / p, with a zero count contributing nothing even where p is 0
+            grads["probability"] = np.where(x == 0, 0.0, x / p)
+        if "trials" in wrt:
+            grads["trials"] = np.zeros(np.shape(trials))
+        off_simplex = np.any(~(p >= 0), axis=-1) | ~(
+            np.abs(np.sum(p, axis=-1) - 1.0) <= STRUCTURE_TOLERANCE * p.shape[-1])
+        bad = np.broadcast_to(_multinomial_bad(x, trials) | off_simplex, np.shape(val))
+        return val, grads, mask_or_none(bad)
+
+    def _sample(self, rng, shape, trials, probability):
+        return self._draw(rng, shape, trials, probability)
+
+
+class MultinomialLogWeights(_Multinomial):
+    """Probabilities softmax(log_weights) over the last axis."""
+
+    arguments = ("trials", "log_weights")
+    argument_support = {"trials": "nonnegative_integer", "log_weights": "real"}
+    argument_event_ndim = {"log_weights": 1}
+
+    def _log_density_and_pointwise(self, x, trials, log_weights, wrt) -> Pointwise:
+        w = log_weights
+        top = max_last(w)
+        top = np.where(np.isfinite(top), top, 0.0)
+        shifted = np.exp(w - top[..., None])
+        total = sum_last(shifted)
+        log_total = top + np.log(total)
+        n = np.sum(x, axis=-1)
+        val = self._coefficient(x, trials) + sum_last(x * w) - n * log_total
+        grads: dict[str, Array] = {}
+        if "log_weights" in wrt:
+            grads["log_weights"] = x - (n / total)[..., None] * shifted
+        if "trials" in wrt:
+            grads["trials"] = np.zeros(np.shape(trials))
+        bad = np.broadcast_to(_multinomial_bad(x, trials), np.shape(val))
+        return val, grads, mask_or_none(bad)
+
+    def _sample(self, rng, shape, trials, log_weights):
+        return self._draw(rng, shape, trials, softmax(log_weights))
