@@ -24,6 +24,7 @@ from .distributions import (
     support_holds,
 )
 from .graph import Graph, IndexRangeError
+from .linearity import NONLINEAR, classify
 from .shapes import ValueType, batch_shape, describe
 from .tape import Term, UnknownSlot
 from .transforms import make_transform
@@ -31,6 +32,8 @@ from .transforms import make_transform
 SECTIONS = ("inputs", "unknowns", "derived")
 # Variate kinds a prior may put on a continuous unknown, and what the declaration must guarantee.
 POSITIVE_KINDS = {"positive", "nonnegative"}
+# A prior's flag saying that a prior on a nonlinear derived quantity is meant without its Jacobian.
+JACOBIAN_FLAG = "jacobian_omitted_on_purpose"
 DISCRETE_KINDS = {"binary", "nonnegative_integer", "count_up_to_trials", "category",
                   "counts_summing_to_trials"}
 
@@ -353,6 +356,16 @@ class _Assembler:
             shape = graph.type_of(variate).shape
             if not self.elementwise_shapes(context, at, distribution, *args, shape,
                                            f"'{target}'"):
+                continue
+            if (target in derived_names and not item.get(JACOBIAN_FLAG, False)
+                    and classify(graph, variate) == NONLINEAR):
+                self.problem(pointer(*at, "on"),
+                             f"{context}: '{target}' is a nonlinear function of the unknowns, and "
+                             "a prior on it leaves out the Jacobian of that function, so "
+                             f"'{target}' would not have the stated distribution; put the prior "
+                             "on an unknown (declare the unknown on the scale the prior is meant "
+                             f"for), or add {JACOBIAN_FLAG}: true to this prior if the density "
+                             "is meant as written")
                 continue
             if target in self.declared_unknowns and distribution.variate_kind == "interval":
                 self.interval_support(target, dict(zip(*args, strict=True)),
