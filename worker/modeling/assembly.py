@@ -7,13 +7,15 @@ declaration is broken its name is marked, and expressions that use it are not re
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 
 from ..problems import Problem, pointer
 from . import expressions as ex
+from . import operations as ops
+from . import reparametrisation
 from .data_checks import DimensionTable, InputValue, check_inputs, element_pointer, flat_label
 from .distributions import (
     SUPPORT_PHRASES,
@@ -25,6 +27,7 @@ from .distributions import (
 )
 from .graph import Graph, IndexRangeError
 from .linearity import NONLINEAR, classify
+from .reparametrisation import QrReparametrisation
 from .shapes import ValueType, batch_shape, describe
 from .tape import Term, UnknownSlot
 from .transforms import make_transform
@@ -67,6 +70,10 @@ class Assembly:
     predictions: list[DistributionTerm] = field(default_factory=list)
     replicates: list[str] = field(default_factory=list)
     pointwise: list[str] = field(default_factory=list)
+    reparametrised: list[QrReparametrisation] = field(default_factory=list)
+    # the other unknowns the reparametrisation considered, each with the reason it was not used
+    not_reparametrised: list[dict[str, str]] = field(default_factory=list)
+    reparametrise: bool = True
 
     def terms(self) -> list[Term]:
         return [
@@ -77,8 +84,9 @@ class Assembly:
 
 
 class _Assembler:
-    def __init__(self, spec: dict, data: Any):
+    def __init__(self, spec: dict, data: Any, reparametrise: bool = True):
         self.spec = spec
+        self.reparametrise = reparametrise
         self.problems: list[Problem] = []
         self.broken: set[str] = set()
         self.out = Assembly()
@@ -104,6 +112,7 @@ class _Assembler:
             else:
                 self.broken.add(name)
         self.unknowns(dims)
+        self.reparametrised_unknowns()
         self.derived()
         covered = self.priors()
         self.likelihood()
@@ -263,6 +272,36 @@ class _Assembler:
                                               None if unbounded else transform))
             offset += size
         self.out.dimension = offset
+
+    def reparametrised_unknowns(self) -> None:
+        """beta = R*^-1 (centre + spread u) for each unknown the QR plan takes; u is sampled."""
+        graph = self.out.graph
+        live = {name: value for name, value in self.out.inputs.items()
+                if name not in self.broken}
+        applied, skipped = reparametrisation.plan(self.spec, live, self.reparametrise)
+        self.out.reparametrise = self.reparametrise
+        self.out.not_reparametrised = skipped
+        positions = {slot.name: k for k, slot in enumerate(self.out.slots)}
+        for qr in applied:
+            if qr.unknown not in positions:
+                continue  # broken declaration, reported already
+            k = positions[qr.unknown]
+            slot = self.out.slots[k]
+            vector = ValueType("real", slot.shape)
+            fitted_type = ValueType("real", (qr.q_scaled.shape[0],))
+            u = graph.leaf(vector)
+            beta = graph.operation(ops.BINARY["@"], (
+                graph.constant(qr.spread * qr.r_inverse, "real"), u), vector)
+            beta = graph.operation(ops.BINARY["+"], (
+                beta, graph.constant(qr.r_inverse @ qr.centre, "real")), vector)
+            fitted = graph.operation(ops.BINARY["@"], (
+                graph.constant(qr.spread * qr.q_scaled, "real"), u), fitted_type)
+            fitted = graph.operation(ops.BINARY["+"], (
+                fitted, graph.constant(qr.q_scaled @ qr.centre, "real")), fitted_type)
+            graph.products[(graph.names[qr.matrix], beta)] = fitted
+            graph.names[qr.unknown] = beta
+            self.out.slots[k] = replace(slot, node=u)
+            self.out.reparametrised.append(qr)
 
     # ---- derived quantities
     def derived(self) -> None:
@@ -549,8 +588,12 @@ class _Assembler:
                                                          name=item["name"], at=pointer(*at)))
 
 
-def assemble(spec: dict, data: Any) -> tuple[list[Problem], Assembly]:
-    """Build the graph and terms of a schema-valid spec; problems empty means it is usable."""
-    assembler = _Assembler(spec, data)
+def assemble(spec: dict, data: Any, reparametrise: bool = True,
+             ) -> tuple[list[Problem], Assembly]:
+    """Build the graph and terms of a schema-valid spec; problems empty means it is usable.
+
+    `reparametrise` allows the QR reparametrisation of linear predictors (reparametrisation.py).
+    """
+    assembler = _Assembler(spec, data, reparametrise)
     assembly = assembler.run()
     return assembler.problems, assembly

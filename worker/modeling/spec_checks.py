@@ -143,13 +143,14 @@ def schema_problems(spec: Any) -> list[Problem]:
     return problems
 
 
-def _build(spec: Any, data: Any) -> tuple[list[Problem], CompiledModel | None]:
+def _build(spec: Any, data: Any, reparametrise: bool = True,
+           ) -> tuple[list[Problem], CompiledModel | None]:
     problems = schema_problems(spec)
     if problems and (not isinstance(spec, dict) or problems != _unknown_distributions(spec)):
         return problems, None
     # Unknown distributions alone leave the spec's shape intact: the semantic checks still run,
     # so every other problem is reported too; they say the same about those terms, in context.
-    problems, assembly = assemble(spec, {} if data is None else data)
+    problems, assembly = assemble(spec, {} if data is None else data, reparametrise)
     if problems:
         return problems, None
     try:
@@ -163,9 +164,12 @@ def check_model(spec: dict, data: dict) -> list[Problem]:
     return _build(spec, data)[0]
 
 
-def compile_model(spec: dict, data: dict) -> CompiledModel:
-    """The compiled model, or InvalidSubmission carrying every problem found."""
-    problems, model = _build(spec, data)
+def compile_model(spec: dict, data: dict, reparametrise: bool = True) -> CompiledModel:
+    """The compiled model, or InvalidSubmission carrying every problem found.
+
+    `reparametrise` allows the automatic QR reparametrisation of linear predictors.
+    """
+    problems, model = _build(spec, data, reparametrise)
     if model is None:
         raise InvalidSubmission(problems)
     return model
