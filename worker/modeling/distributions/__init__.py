@@ -38,6 +38,8 @@ _CLASSES: list[type[Distribution]] = [
     continuous.HalfNormal,
     continuous.HalfCauchy,
     continuous.HalfStudentT,
+    continuous.Gumbel,
+    continuous.SkewNormal,
     multivariate.Dirichlet,
     multivariate.MultivariateNormal,
     multivariate.LkjCorrelationFactor,
@@ -53,6 +55,8 @@ _CLASSES: list[type[Distribution]] = [
     discrete.OrderedLogistic,
     discrete.MultinomialProbability,
     discrete.MultinomialLogWeights,
+    discrete.BetaBinomial,
+    discrete.ZeroInflatedPoisson,
 ]
 
 # one shared instance per (name, argument set): instances hold no state
