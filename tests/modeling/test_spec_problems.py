@@ -317,3 +317,10 @@ def test_every_pointer_resolves(label, change, where, fragment):
     change(spec, data)
     for problem in check_model(spec, data):
         assert _resolves({"model": spec, "data": data}, problem.pointer), problem
+
+
+def test_unknown_distribution_with_malformed_arguments_is_still_a_clean_problem():
+    spec, data = copy.deepcopy(BASE), copy.deepcopy(DATA)
+    spec["priors"][0]["distribution"], spec["priors"][0]["arguments"] = "normall", "location"
+    problems = check_model(spec, data)
+    assert [p.pointer for p in problems] == ["/model/priors/0/distribution"]

@@ -143,10 +143,26 @@ def schema_problems(spec: Any) -> list[Problem]:
     return problems
 
 
+def _only_unknown_names(spec: Any, problems: list[Problem]) -> bool:
+    """Whether the schema's only objections are unknown distribution names, with at most an empty
+    arguments object beside them: what the semantic checks can take as it is."""
+    if not isinstance(spec, dict) or problems != _unknown_distributions(spec):
+        return False
+    flagged = {p.pointer.removesuffix("/distribution") for p in problems}
+    for error in _validator().iter_errors(spec):
+        at = pointer("model", *error.absolute_path)
+        item, _, member = at.rpartition("/")
+        if item not in flagged or (member, error.validator) not in (
+                ("distribution", "pattern"), ("distribution", "maxLength"),
+                ("arguments", "minProperties")):
+            return False
+    return True
+
+
 def _build(spec: Any, data: Any, reparametrise: bool = True,
            ) -> tuple[list[Problem], CompiledModel | None]:
     problems = schema_problems(spec)
-    if problems and (not isinstance(spec, dict) or problems != _unknown_distributions(spec)):
+    if problems and not _only_unknown_names(spec, problems):
         return problems, None
     # Unknown distributions alone leave the spec's shape intact: the semantic checks still run,
     # so every other problem is reported too; they say the same about those terms, in context.
