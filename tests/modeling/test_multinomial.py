@@ -84,7 +84,7 @@ def _model(arguments, counts=COUNTS):
         ],
         "likelihood": [{"name": "counts", "observed": "y", "distribution": "multinomial",
                         "arguments": arguments}],
-        "generated": {"replicates": ["counts"], "pointwise_log_likelihood": ["counts"]},
+        "per_draw": {"replicates": ["counts"], "pointwise": ["counts"]},
     }
     return spec, {"y": counts.tolist(), "n": counts.sum(axis=1).tolist()}
 
@@ -112,7 +112,7 @@ def test_pointwise_column_is_scipys_log_mass():
     row = model.report(u, np.random.default_rng(0))
     a = u[model.dimension - 3:]
     p = special.softmax(np.array([a[0], a[1], a[2], 0.0]))
-    pointwise = row[[i for i, n in enumerate(model.quantity_names) if n.startswith("log_lik")]]
+    pointwise = row[[i for i, n in enumerate(model.quantity_names) if n.startswith("pointwise.")]]
     np.testing.assert_allclose(pointwise, stats.multinomial.logpmf(COUNTS, TRIALS, p),
                                rtol=1e-10)
 
@@ -141,7 +141,7 @@ def test_draws_match_scipy_moments(form):
 
 def test_prediction_shape_follows_the_arguments():
     spec, data = _model({"trials": "n", "probability": "w"})
-    spec["generated"]["predictions"] = [{"name": "next", "distribution": "multinomial",
+    spec["per_draw"]["predictions"] = [{"name": "next", "distribution": "multinomial",
                                          "arguments": {"trials": [3, 9], "probability": "w"}}]
     model = compile_model(spec, data)
     names = [n for n in model.quantity_names if n.startswith("next")]

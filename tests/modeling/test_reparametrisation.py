@@ -38,7 +38,7 @@ SPEC = {
                 "arguments": {"location": 0, "scale": 1e6}}],
     "likelihood": [{"name": "y", "observed": "y", "distribution": "normal",
                     "arguments": {"location": "fitted", "scale": "sigma"}}],
-    "generated": {"quantities": {"first": "beta[1] + 0"}},
+    "per_draw": {"formulas": {"first": "beta[1] + 0"}},
 }
 OLS = np.linalg.lstsq(X, Y, rcond=None)[0]
 

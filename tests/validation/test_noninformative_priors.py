@@ -79,7 +79,7 @@ def test_flat_scale_priors_match_their_closed_forms(prior: str) -> None:
     for name, truth in (("mu", mu_truth), ("sigma", sigma_truth)):
         record = summary_of(column(outcome, name), name)
         if name == "mu":
-            assert record["mcse_of_sd"] <= POWER_BOUND * record["sd"], record
+            assert record["sd_error"] <= POWER_BOUND * record["sd"], record
         problems += mismatches(record, truth)
     assert not problems, problems
     # the other prior's answer is rejected by the same draws

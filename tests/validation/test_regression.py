@@ -135,7 +135,7 @@ def test_raw_longley_reaches_the_certified_values_with_the_qr_reparametrisation(
     problems = []
     for j in range(k):
         record = summary_of(column(outcome, f"beta[{j + 1}]"), f"beta[{j + 1}]")
-        assert record["mcse_of_sd"] <= POWER_BOUND * record["sd"], record
+        assert record["sd_error"] <= POWER_BOUND * record["sd"], record
         problems += mismatches(record, {"mean": LONGLEY_CERTIFIED[j],
                                         "sd": LONGLEY_CERTIFIED_SE[j] * inflation})
     variance = stats.invgamma((n - k) / 2, scale=(n - k) * LONGLEY_CERTIFIED_RESIDUAL_SD**2 / 2)
@@ -179,9 +179,9 @@ def test_logistic_regression_posterior_mean_matches_mle(method: str) -> None:
     for j, name in enumerate(names):
         record = summary_of(column(outcome, name), name)
         mean_gap = abs(record["mean"] - fit.params[j])
-        if mean_gap > 0.1 * fit.bse[j] + 4 * record["mcse_mean"]:
+        if mean_gap > 0.1 * fit.bse[j] + 4 * record["mean_error"]:
             problems.append(f"{name}: mean {record['mean']} vs MLE {fit.params[j]}")
         sd_gap = abs(record["sd"] - fit.bse[j])
-        if sd_gap > 0.1 * fit.bse[j] + 4 * record["mcse_of_sd"]:
+        if sd_gap > 0.1 * fit.bse[j] + 4 * record["sd_error"]:
             problems.append(f"{name}: sd {record['sd']} vs MLE se {fit.bse[j]}")
     assert not problems, problems

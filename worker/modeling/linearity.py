@@ -15,7 +15,7 @@ from .graph import Graph
 CONSTANT, AFFINE, NONLINEAR = 0, 1, 2
 
 # operations that are linear in each of their inputs together (sums, selections, rearrangements)
-_LINEAR = (ops.Add, ops.Subtract, ops.Negate, ops.Sum, ops.Mean, ops.CumulativeSum,
+_LINEAR = (ops.Add, ops.Subtract, ops.Negate, ops.Sum, ops.Mean, ops.RunningSum,
            ops.TakeElements, ops.TakeRows, ops.TakeMatrixElements, ops.Stack)
 # operations that are linear in each input while the others are held fixed: affine overall only
 # when at most one input depends on the unknowns

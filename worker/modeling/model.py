@@ -57,7 +57,7 @@ class CompiledModel:
         report_nodes = (
             list(self._value_nodes)
             + list(assembly.derived.values())
-            + list(assembly.quantities.values())
+            + list(assembly.formulas.values())
             # every term's arguments: the trial below evaluates priors and likelihood terms too
             + [n for t in (*assembly.priors, *assembly.likelihood, *assembly.predictions)
                for n in t.argument_nodes]
@@ -70,7 +70,7 @@ class CompiledModel:
         names = list(self.unknown_names)
         for name, node in assembly.derived.items():
             names += flat_names(name, graph.type_of(node).shape)
-        for name, node in assembly.quantities.items():
+        for name, node in assembly.formulas.items():
             names += flat_names(name, graph.type_of(node).shape)
         for term, shape in zip(assembly.predictions, self._prediction_shapes, strict=True):
             names += flat_names(term.name, shape)
@@ -79,7 +79,7 @@ class CompiledModel:
         for name in assembly.pointwise:
             term = self._likelihood[name]
             batch = term.shape[:len(term.shape) - term.distribution.event_ndim]
-            names += flat_names(f"log_likelihood.{name}", batch)
+            names += flat_names(f"pointwise.{name}", batch)
         self.quantity_names = names
 
     @property
@@ -187,7 +187,7 @@ class CompiledModel:
         values = self._report.values_at(u)
         pieces: list[np.ndarray] = [np.ravel(values[n]) for n in self._value_nodes]
         pieces += [np.ravel(values[n]) for n in a.derived.values()]
-        pieces += [np.ravel(values[n]) for n in a.quantities.values()]
+        pieces += [np.ravel(values[n]) for n in a.formulas.values()]
         with np.errstate(all="ignore"):
             for term, shape in zip(a.predictions, self._prediction_shapes, strict=True):
                 pieces.append(np.ravel(_report_draw(term.distribution, self._args(term, values),

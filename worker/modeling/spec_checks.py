@@ -95,7 +95,7 @@ def _sentence(error: ValidationError) -> tuple[str, str]:
 
 
 # Where distribution terms live in a spec: priors, likelihood terms, per-draw predictions.
-_TERM_LISTS = (("priors",), ("likelihood",), ("generated", "predictions"))
+_TERM_LISTS = (("priors",), ("likelihood",), ("per_draw", "predictions"))
 
 
 def _unknown_distributions(spec: dict) -> list[Problem]:

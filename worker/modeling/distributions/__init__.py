@@ -52,7 +52,7 @@ _CLASSES: list[type[Distribution]] = [
     discrete.NegativeBinomialMean,
     discrete.NegativeBinomialLogMean,
     discrete.Categorical,
-    discrete.OrderedLogistic,
+    discrete.CumulativeLogit,
     discrete.MultinomialProbability,
     discrete.MultinomialLogWeights,
     discrete.BetaBinomial,

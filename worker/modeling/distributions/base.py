@@ -35,7 +35,7 @@ VARIATE_PHRASES: dict[str, str] = {
     "category": "integers from 1 to the number of categories",
     "simplex": "non-negative vectors summing to 1",
     "counts_summing_to_trials": "vectors of non-negative integers summing to the argument 'trials'",
-    "cholesky_correlation": "Cholesky factors of correlation matrices",
+    "correlation_factor": "Cholesky factors of correlation matrices",
 }
 
 # Tolerance for structural equalities of floating-point variates (sums to one, unit-norm rows).
@@ -192,8 +192,8 @@ class Distribution:
                 )
             elif kind == "counts_summing_to_trials":
                 ok = np.all(integral & (v >= 0), axis=-1) & (np.sum(v, axis=-1) == args["trials"])
-            elif kind == "cholesky_correlation":
-                ok = cholesky_correlation_valid(v)
+            elif kind == "correlation_factor":
+                ok = correlation_factor_valid(v)
             else:
                 raise ValueError(f"unknown variate kind {kind!r}")
         return np.asarray(ok)
@@ -229,7 +229,7 @@ class Distribution:
         raise NotImplementedError
 
 
-def cholesky_correlation_valid(v: Array) -> Array:
+def correlation_factor_valid(v: Array) -> Array:
     """Per matrix: square, lower triangular, positive diagonal, rows of unit length."""
     if v.ndim < 2 or v.shape[-1] != v.shape[-2]:
         return np.zeros(v.shape[:-2] if v.ndim >= 2 else (), dtype=bool)
