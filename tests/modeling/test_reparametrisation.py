@@ -17,6 +17,7 @@ from scipy import stats
 from statsmodels.datasets import longley
 
 from worker.modeling import compile_model
+from worker.problems import InvalidSubmission
 
 from .central_differences import assert_gradient_close, central_gradient
 
@@ -172,3 +173,11 @@ def test_without_a_location_scale_likelihood_it_is_not_centred():
     assert model.log_density(u) == pytest.approx(expected + jacobian, rel=1e-10)
     assert plain.log_density(plain.unconstrain({"beta": [0.2, 0.3]})) == pytest.approx(
         expected, rel=1e-10)
+
+
+def test_a_coefficient_vector_of_the_wrong_length_is_reported_not_reparametrised():
+    spec = copy.deepcopy(SPEC)
+    spec["unknowns"]["beta"]["shape"] = [6]
+    with pytest.raises(InvalidSubmission) as caught:
+        compile_model(spec, DATA)
+    assert [p.pointer for p in caught.value.problems] == ["/model/derived/fitted"]

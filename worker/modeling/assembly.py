@@ -287,6 +287,8 @@ class _Assembler:
                 continue  # broken declaration, reported already
             k = positions[qr.unknown]
             slot = self.out.slots[k]
+            if slot.shape != qr.r_inverse.shape[:1]:
+                continue  # X @ beta does not fit: reported where the product is written
             vector = ValueType("real", slot.shape)
             fitted_type = ValueType("real", (qr.q_scaled.shape[0],))
             u = graph.leaf(vector)
