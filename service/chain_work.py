@@ -128,7 +128,9 @@ def take_lease(
             events.record(session, job_id, "job_state", "running")
         return Lease(
             chain.id, job_id, chain_index, token, chain.attempts, chain.checkpoint, job.body,
-            f"{job.spec_sha256}:{job.data_sha256}",
+            # the reparametrisation setting changes the compiled model's coordinates
+            f"{job.spec_sha256}:{job.data_sha256}:"
+            f"{(job.body.get('sampler') or {}).get('reparametrise', True)}",
         )
 
 

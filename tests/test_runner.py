@@ -164,6 +164,7 @@ def test_resolve_sampler_fills_every_default() -> None:
     assert resolved["chains"] == runner.DEFAULT_CHAINS
     assert resolved["draws"] == 1000 and resolved["warmup_iterations"] == 1000
     assert set(runner.CHAIN_SETTINGS) <= set(resolved)
+    assert resolved["reparametrise"] is True
     drawn = {runner.resolve_sampler({})["seed"] for _ in range(5)}
     assert len(drawn) == 5  # drawn from OS entropy, not a fixed default
 
@@ -185,6 +186,7 @@ def test_resolve_sampler_fills_every_default() -> None:
         ({"divergence_threshold": float("inf")}, ["/sampler/divergence_threshold"]),
         ({"initialisation": "given"}, ["/sampler/initial_values"]),
         ({"start_spread": 0}, ["/sampler/start_spread"]),
+        ({"reparametrise": "no"}, ["/sampler/reparametrise"]),
         ({"step_size": 0.1}, ["/sampler/step_size"]),
         ({"initial_values": [{"mu": 1.0}]}, ["/sampler/initial_values"]),
         ({"initial_values": {"mu": [1.0, 2.0]}}, ["/sampler/initial_values/mu"]),

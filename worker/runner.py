@@ -53,7 +53,7 @@ TOP_LEVEL_MEMBERS = (
     "warm_start",
 )
 # settings of the runner itself, beside those of one chain (SamplerSettings)
-JOB_SETTINGS = ("chains", "seed", "initial_values")
+JOB_SETTINGS = ("chains", "seed", "initial_values", "reparametrise")
 CHAIN_SETTINGS = tuple(f.name for f in dataclasses.fields(SamplerSettings))
 GENERATED_CHILD = 1  # DEVELOPERS.md: child 1 of a chain's sequence drives the per-draw outputs
 
@@ -97,8 +97,8 @@ def _acceptance_problem(value: Any) -> str | None:
     return f"The target acceptance must be strictly between 0 and 1 (or null), got {value!r}."
 
 
-def _flag_problem(value: Any) -> str | None:
-    return None if isinstance(value, bool) else f"The jitter must be true or false, got {value!r}."
+def _flag_problem(value: Any, what: str = "jitter") -> str | None:
+    return None if isinstance(value, bool) else f"The {what} must be true or false, got {value!r}."
 
 
 def sampler_problems(
@@ -124,6 +124,7 @@ def sampler_problems(
         "initialisation": lambda v: _choice_problem(v, INITIALISATIONS, "initialisation"),
         "start_spread": lambda v: _positive_problem(v, "start spread"),
         "initial_values": lambda v: None,  # checked against the model below
+        "reparametrise": lambda v: _flag_problem(v, "setting reparametrise"),
     }  # fmt: skip
     problems = []
     for name, value in sampler.items():
@@ -193,13 +194,11 @@ def _initial_values_for(sampler: dict, chain_index: int) -> dict | None:
 
 def _initial_value_problems(body: dict) -> list[Problem]:
     """Initial values the compiled model cannot take (unknown names, wrong shapes, bounds)."""
-    from worker.modeling import compile_model
-
     sampler = body.get("sampler") or {}
     values = sampler.get("initial_values")
     if values is None:
         return []
-    model = compile_model(body["model"], body.get("data") or {})
+    model = compile_body(body)
     sets = values if isinstance(values, list) else [values]
     known = set(body["model"].get("unknowns") or {})
     problems = []
@@ -355,7 +354,7 @@ def resolve_sampler(body_sampler: dict | None) -> dict:
         resolved.update({"chains": 1, "warmup_iterations": 0})
     else:
         resolved["chains"] = DEFAULT_CHAINS
-    resolved.update({"seed": None, "initial_values": None})
+    resolved.update({"seed": None, "initial_values": None, "reparametrise": True})
     resolved.update(given)
     if resolved["seed"] is None:
         resolved["seed"] = secrets.randbits(63)
@@ -456,10 +455,12 @@ class ChainRun:
 
 
 def compile_body(body: dict) -> Any:
-    """The compiled model of a submission's spec and data."""
+    """The body's compiled model, with the QR reparametrisation unless the sampler turns it off
+    (the sampled coordinates depend on it, so every chain, resume and check compiles alike)."""
     from worker.modeling import compile_model
 
-    return compile_model(body["model"], body.get("data") or {})
+    reparametrise = (body.get("sampler") or {}).get("reparametrise", True)
+    return compile_model(body["model"], body.get("data") or {}, reparametrise=reparametrise)
 
 
 def start_chain(body: dict, chain_index: int, model: Any = None) -> ChainRun | ApproximationRun:
@@ -563,6 +564,7 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     report["log_density_evaluations_per_chain"] = [
         None if r.evaluations is None else dict(r.evaluations.log_density) for r in results
     ]
+    report["reparametrisation"] = compile_body(body).reparametrisation
     return {
         "summary": summary,
         "sampler": report,

@@ -113,6 +113,37 @@ def test_every_problem_is_reported_at_once(app, queue) -> None:
     assert queue.length() == 0
 
 
+def test_unknown_distribution_with_empty_arguments_is_named_first(app, queue) -> None:
+    """Issue 11 item 6: the problem document names the unknown distribution, listing the valid
+    ones, and says nothing about the empty arguments beside it."""
+    body = normal_mean()
+    body["model"]["priors"][0].update(distribution="nromal", arguments={})
+    response, problem = post(app.test_client(), body)
+    assert response.status_code == 422
+    errors = problem["errors"]
+    assert [e["pointer"] for e in errors] == ["/model/priors/0/distribution"]
+    assert "unknown distribution 'nromal'" in errors[0]["message"]
+    assert "normal" in errors[0]["message"].split("known distributions:")[1]
+    assert row_counts(app) == {"jobs": 0, "chains": 0, "events": 0} and queue.length() == 0
+
+
+def test_prior_on_a_nonlinear_derived_quantity_is_refused_unless_flagged(app, queue) -> None:
+    """Issue 11 item 5: a prior on exp(mu) leaves out the Jacobian: 422 at the prior's `on`;
+    with jacobian_omitted_on_purpose the same job is accepted."""
+    body = normal_mean()
+    body["model"]["derived"] = {"level": "exp(mu)"}
+    body["model"]["priors"].append({"on": "level", "distribution": "lognormal",
+                                    "arguments": {"log_location": 0, "log_scale": 2}})
+    response, problem = post(app.test_client(), body)
+    assert response.status_code == 422
+    assert [e["pointer"] for e in problem["errors"]] == ["/model/priors/1/on"]
+    assert "jacobian_omitted_on_purpose" in problem["errors"][0]["message"]
+    assert queue.length() == 0
+    body["model"]["priors"][1]["jacobian_omitted_on_purpose"] = True
+    response, _ = post(app.test_client(), body)
+    assert response.status_code == 202
+
+
 def test_wrong_content_type_bad_json_and_oversized_bodies(app, queue) -> None:
     client = app.test_client()
     cases = [

@@ -49,6 +49,9 @@ class Graph:
         self.nodes: list[GraphNode] = []
         self.names: dict[str, int] = {}
         self.input_names: set[str] = set()
+        # (data matrix node, coefficient node) -> the node that computes their product another
+        # way: X @ beta as Q* @ u + Q* centre where beta is reparametrised (reparametrisation.py)
+        self.products: dict[tuple[int, int], int] = {}
 
     # ---- building blocks
     def constant(self, value: np.ndarray, kind: str) -> int:
@@ -126,6 +129,8 @@ class Graph:
         kind = arithmetic_kind(a.kind, b.kind, operator)
         if operator == "@":
             shape = matrix_product_shape(a.shape, b.shape)
+            if (args[0], args[1]) in self.products:
+                return self.products[(args[0], args[1])]
             return self.operation(ops.BINARY["@"], tuple(args), ValueType("real", shape))
         shape = broadcast(a.shape, b.shape, f"operator '{operator}'")
         return self.operation(ops.BINARY[operator], tuple(args), ValueType(kind, shape))

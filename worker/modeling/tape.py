@@ -46,7 +46,8 @@ class Plan:
     """The compiled log density of a graph: unknown slots, steps, and terms."""
 
     def __init__(self, graph: Graph, slots: list[UnknownSlot], terms: list[Term],
-                 dimension: int, extra_outputs: tuple[int, ...] = ()):
+                 dimension: int, extra_outputs: tuple[int, ...] = (), constant: float = 0.0):
+        """`constant` is added to every log density (a constant log-Jacobian)."""
         self.dimension = dimension
         self.slots = slots
         nodes = graph.nodes
@@ -78,7 +79,7 @@ class Plan:
         self._vectors, self._unbounded, self._bounded, self._transformed = _slot_kinds(slots)
 
         # Terms that involve no unknown add the same number at every point: settle it now.
-        self.constant_total = 0.0
+        self.constant_total = float(constant)
         self.terms = []
         for term in terms:
             if nodes[term.variate].constant and all(nodes[k].constant
