@@ -32,6 +32,11 @@ class Settings:
     max_chains: int = 16
     max_draws: int = 100_000
     max_body_bytes: int = 10 * 1024 * 1024
+    # Seconds a client may take to send a request's line and headers, and then its body
+    # (service/buffered_worker.py); our choice: 10 s is ample for headers on any link, and 60 s
+    # lets the largest body arrive at 175 kB/s. Past them the connection is closed.
+    header_read_seconds: float = 10.0
+    body_read_seconds: float = 60.0
     checkpoint_every: int = 200
     # Seconds between checkpoints as well (whichever comes first); 0 means by iterations only.
     checkpoint_seconds: float = 30.0
