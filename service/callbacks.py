@@ -6,8 +6,9 @@ GET /v1/jobs/<id> returns it. The signature is HMAC-SHA256 (Krawczyk, Bellare, C
 RFC 2104) keyed with DRAWYARD_CALLBACK_SECRET over ``<timestamp>.<body bytes>``; the timestamp is
 sent in its own header and is part of the signed message, so a receiver that rejects old
 timestamps cannot be fed a recorded request again. Delivery runs in a Celery task that retries
-with doubling delays up to DRAWYARD_CALLBACK_ATTEMPTS attempts; every attempt is written to the
-job's event log.
+with doubling delays up to DRAWYARD_CALLBACK_ATTEMPTS attempts, each within one deadline of
+DRAWYARD_CALLBACK_TIMEOUT seconds for the whole exchange; every attempt is written to the job's
+event log. The task runs on the closing queue's own worker, never in a chain's process.
 """
 
 from __future__ import annotations
@@ -19,13 +20,14 @@ import logging
 import re
 import time
 from dataclasses import dataclass
+from http.client import HTTPException
 from typing import Any
 from urllib.parse import urlsplit
 
-import requests
 from sqlalchemy import select
 
 from service import events
+from service.bounded_post import post_within
 from service.config import Settings
 from service.job_resources import job_resource
 from service.runtime import Runtime
@@ -103,7 +105,7 @@ def queue_callback(runtime: Runtime, job_id: str) -> None:
     if callback_url(runtime, job_id) is None:
         return
     runtime.celery.send_task(
-        DELIVER_CALLBACK, args=[job_id], queue=runtime.settings.queue, retry=True
+        DELIVER_CALLBACK, args=[job_id], queue=runtime.settings.closing_queue, retry=True
     )
 
 
@@ -160,17 +162,11 @@ def deliver(runtime: Runtime, job_id: str, attempt: int) -> Outcome:
     }
     detail: dict[str, Any] = {"attempt": attempt, "url": url}
     try:
-        # No redirects: a redirect could lead outside the allowed prefixes.
-        response = requests.post(
-            url,
-            data=body,
-            headers=headers,
-            timeout=settings.callback_timeout,
-            allow_redirects=False,
-        )
-        detail["status_code"] = response.status_code
-        delivered = 200 <= response.status_code < 300
-    except requests.RequestException as error:
+        # One deadline for the whole attempt, and no redirects (they could leave the prefixes).
+        status = post_within(url, body, headers, settings.callback_timeout)
+        detail["status_code"] = status
+        delivered = 200 <= status < 300
+    except (OSError, HTTPException) as error:
         detail["error"] = f"{type(error).__name__}: {error}"[:500]
         delivered = False
     detail["delivered"] = delivered

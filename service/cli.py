@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import NoReturn
 
 from service.access.commands import add_keys_command, serve_host
+from service.config import load_settings
 from service.local_stack import CELERY_APP, LocalStack, StartupError
 
 BANNER_WIDTH = 78
@@ -79,8 +80,13 @@ def _add_worker(commands: argparse._SubParsersAction) -> None:
             "to the store in DRAWYARD_DATABASE_URL. Start one per core."
         ),
     )
-    worker.add_argument("--concurrency", type=int, default=1,
-                        help="pool processes in this worker (default: 1)")
+    worker.add_argument("--concurrency", type=int, default=None,
+                        help="pool processes in this worker (default: 1), or threads of the "
+                             "closing worker (default: 4)")
+    worker.add_argument("--closing", action="store_true",
+                        help="consume the closing queue (DRAWYARD_CLOSING_QUEUE: finishing steps "
+                             "and completion callbacks) with a thread pool instead of chains; "
+                             "a deployment runs at least one such worker")
     worker.add_argument("--name", default="worker@%h",
                         help="worker node name (default: worker@%%h)")
     worker.add_argument("--loglevel", default="INFO", help="log level (default: INFO)")
@@ -204,11 +210,14 @@ def _sweeper_main(argv: list[str]) -> int:
 
 
 def run_worker(args: argparse.Namespace) -> NoReturn:
+    concurrency = args.concurrency or (4 if args.closing else 1)
     argv = [
         sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
-        "--concurrency", str(args.concurrency), "--prefetch-multiplier", "1",
+        "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
         "-n", args.name, "--loglevel", args.loglevel,
     ]
+    if args.closing:
+        argv += ["-Q", load_settings().closing_queue, "--pool", "threads"]
     # Replace this process so that signals from a supervisor reach the worker itself.
     os.execv(sys.executable, argv)
 

@@ -24,6 +24,9 @@ class Settings:
     # Folder of the serverless broker used when broker_url is "filesystem://" (one machine only).
     broker_folder: str = "var/broker"
     queue: str = "drawyard"
+    # The queue of finishing steps and completion callbacks, consumed by its own worker (started
+    # with `-Q` on this name) so that neither waits behind chains nor holds a chain's process.
+    closing_queue: str = "drawyard.closing"
     # A JSON object of extra broker transport options, merged over the ones derived here.
     broker_transport_options: str = ""
     # Seconds; 0 means "derive from chain_time_limit" so a running chain is never redelivered.
