@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from typing import Any
 
 from flask import Blueprint, Response, jsonify, request
@@ -10,6 +9,7 @@ from werkzeug.exceptions import RequestEntityTooLarge
 
 from service.job_queries import JobFilter, bad_parameter, cancel_job, get_job, list_jobs
 from service.job_resources import job_resource
+from service.json_body import parse_json_body
 from service.problem_details import ApiProblem
 from service.submissions import submit
 from service.views.context import runtime
@@ -27,17 +27,7 @@ def _json_body() -> Any:
             f"Send the submission as application/json, not {request.mimetype or 'nothing'}.",
             [{"pointer": "", "message": "The body must be sent as application/json."}],
         )
-    data = _body_within_limit()
-    try:
-        return json.loads(data)
-    except (ValueError, UnicodeDecodeError) as error:
-        raise ApiProblem(
-            400,
-            "invalid-json",
-            "The body is not JSON",
-            f"The body could not be parsed: {error}.",
-            [{"pointer": "", "message": "The body is not valid JSON."}],
-        ) from error
+    return parse_json_body(_body_within_limit())
 
 
 def _body_within_limit() -> bytes:

@@ -97,6 +97,51 @@ def by_name(ref: Any) -> Callable[[dict], None]:
     return edit
 
 
+def renamed(path: tuple, old: str, new: str) -> Callable[[dict], None]:
+    """Rename member ``old`` of the object at ``path`` (the name-ending-in-newline cases)."""
+
+    def edit(body: dict) -> None:
+        target = body
+        for step in path:
+            target = target[step]
+        target[new] = target.pop(old)
+
+    return edit
+
+
+def repeated_seed() -> bytes:
+    """Two "seed" members in one object: JSON text a dict cannot hold (issue 13 item 8)."""
+    text = json.dumps(base())
+    return text.replace('"seed": 5', '"seed": 2026, "seed": 7', 1).encode()
+
+
+def huge_integer() -> bytes:
+    """y[0] as the integer 10^400, beyond double precision (issue 13 item 6)."""
+    text = json.dumps(base())
+    return text.replace('"y": [1.0,', '"y": [1' + "0" * 400 + ",", 1).encode()
+
+
+def deep_data(depth: int) -> bytes:
+    """An undeclared data member nested ``depth`` arrays deep."""
+    text = json.dumps(base())
+    return text.replace('"data": {', '"data": {"deep": ' + "[" * depth + "]" * depth + ", ", 1
+                        ).encode()
+
+
+def outer_product(body: dict) -> None:
+    """A 2,000 x 2,000 matrix product and two more values that size: past the element budget."""
+    size = 2_000
+    body["model"]["inputs"].update({"column": {"type": "real", "shape": [size, 1]},
+                                    "row": {"type": "real", "shape": [1, size]}})
+    body["data"].update({"column": [[1]] * size, "row": [[1] * size]})
+    body["model"]["derived"] = {"outer": "column @ row", "shifted": "outer + mu",
+                                "scaled": "outer * mu"}
+
+
+def newline_term(body: dict) -> None:
+    body["model"]["likelihood"][0]["name"] = "obs\n"
+
+
 # An id of the right shape that no job has (the table's store is empty).
 NO_SUCH_JOB = "0" * 32
 
@@ -234,4 +279,20 @@ CASES = [
          changed(set_in(("warm_start",), {"job": NO_SUCH_JOB})), says=("no job",)),
     Case("warm_start_unsupported_method", 422, "/warm_start/job", changed(lambda b: (
         b["sampler"].update({"method": "gibbs"}), b.update({"warm_start": {"job": NO_SUCH_JOB}})))),
+    # Issue 13: input that used to get through or end in a 500.
+    Case("repeated_key", 400, "/sampler/seed", repeated_seed(), says=("seed",)),
+    Case("integer_beyond_double", 422, "/data/y/0", huge_integer()),
+    Case("nested_past_the_parser", 400, "", deep_data(9_000)),
+    Case("nested_past_the_depth_limit", 400, "/data/deep", deep_data(70)),
+    Case("unknown_name_newline", 422, "/model/unknowns", changed(renamed(("model", "unknowns"),
+                                                                          "mu", "mu\n"))),
+    Case("input_name_newline", 422, "/model/inputs", changed(renamed(("model", "inputs"),
+                                                                      "y", "y\n"))),
+    Case("derived_name_newline", 422, "/model/derived",
+         changed(set_in(("model", "derived"), {"shift\n": "mu + 1"}))),
+    Case("generated_name_newline", 422, "/model/generated",
+         changed(set_in(("model", "generated"), {"quantities": {"twice\n": "2 * mu"}}))),
+    Case("term_name_newline", 422, LIK, changed(newline_term)),
+    Case("element_budget", 422, "/model/derived/scaled", changed(outer_product),
+         says=("work budget",)),
 ]
