@@ -49,19 +49,77 @@ def allowed_prefixes(settings: Settings) -> list[str]:
     return [part for part in re.split(r"[\s,]+", settings.callback_allow) if part]
 
 
+class UnusableUrl(ValueError):
+    """A callback URL that cannot be parsed or is refused outright; the message says why."""
+
+
+DEFAULT_PORTS = {"http": 80, "https": 443}
+UNRESERVED = frozenset("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789-._~")
+PERCENT_TRIPLET = re.compile(r"%([0-9A-Fa-f]{2})")
+DOT_SEGMENT = re.compile(r"(^|/)\.{1,2}(/|$)")
+
+
+def _percent_normalised(text: str) -> str:
+    """RFC 3986 section 6.2.2.2: unreserved characters decoded, other triplets in upper case."""
+
+    def one(match: re.Match[str]) -> str:
+        char = chr(int(match.group(1), 16))
+        return char if char in UNRESERVED else "%" + match.group(1).upper()
+
+    return PERCENT_TRIPLET.sub(one, text)
+
+
+def normalised_url(url: str) -> str:
+    """The URL in RFC 3986 section 6.2.2 normal form (case, percent-encoding, default port,
+    empty path), or UnusableUrl.
+
+    Refused outright rather than resolved: dot segments and encoded dots (which would reach
+    other paths on an allowed host), user information (``https://allowed@other/``), backslashes
+    and control characters (which parsers disagree about).
+    """
+    if any(ord(c) < 0x21 or c in "\\\x7f" for c in url):
+        raise UnusableUrl("The URL holds spaces, control characters or backslashes.")
+    try:
+        parts = urlsplit(url)
+        port = parts.port
+    except ValueError as error:
+        raise UnusableUrl(f"The URL cannot be parsed ({error}).") from None
+    scheme = parts.scheme.lower()
+    if scheme not in DEFAULT_PORTS:
+        raise UnusableUrl("The URL must start with http:// or https://.")
+    if not parts.hostname:
+        raise UnusableUrl("The URL names no host.")
+    if "@" in parts.netloc:
+        raise UnusableUrl("The URL may not carry user information ('name@' before the host).")
+    if re.search(r"%2e", url, re.IGNORECASE):
+        raise UnusableUrl("The URL may not hold encoded dots ('%2e').")
+    if DOT_SEGMENT.search(parts.path):
+        raise UnusableUrl("The URL's path may not hold '.' or '..' segments.")
+    host = parts.hostname.lower()
+    if ":" in host:
+        host = f"[{host}]"
+    authority = host if port in (None, DEFAULT_PORTS[scheme]) else f"{host}:{port}"
+    path = _percent_normalised(parts.path) or "/"
+    query = f"?{_percent_normalised(parts.query)}" if parts.query else ""
+    return f"{scheme}://{authority}{path}{query}"
+
+
 def url_allowed(url: str, prefixes: list[str]) -> bool:
-    """True when ``url`` is http(s) and starts with a prefix at a boundary.
+    """True when ``url``, normalised, starts with a normalised prefix at a boundary.
 
     The boundary matters: the prefix "https://hooks.example" must not admit
     "https://hooks.example.evil.net/", so after a prefix not ending in "/" the URL must end or
-    go on with "/", "?" or "#".
+    go on with "/", "?" or "#". UnusableUrl when the URL itself is refused.
     """
-    if urlsplit(url).scheme not in ("http", "https"):
-        return False
-    for prefix in prefixes:
-        if not url.startswith(prefix):
+    target = normalised_url(url)
+    for raw in prefixes:
+        try:
+            prefix = normalised_url(raw)
+        except UnusableUrl:
             continue
-        rest = url[len(prefix) :]
+        if not target.startswith(prefix):
+            continue
+        rest = target[len(prefix) :]
         if prefix.endswith("/") or rest == "" or rest[0] in "/?#":
             return True
     return False
@@ -76,7 +134,11 @@ def notify_problems(body: Any, settings: Settings) -> list[Problem]:
         return []  # the schema reports the missing or mistyped URL
     if not settings.callback_secret:
         return [Problem(POINTER, "This service is not set up to send completion callbacks.")]
-    if not url_allowed(url, allowed_prefixes(settings)):
+    try:
+        allowed = url_allowed(url, allowed_prefixes(settings))
+    except UnusableUrl as error:
+        return [Problem(POINTER, str(error))]
+    if not allowed:
         return [
             Problem(
                 POINTER,

@@ -16,7 +16,9 @@ from typing import Any
 from tests.service.bodies import normal_mean
 
 # The limits the table's app is built with (the oversized cases go just past them).
-LIMITS = {"max_chains": 8, "max_draws": 5_000, "max_body_bytes": 20_000, "max_unknowns": 100}
+LIMITS = {"max_chains": 8, "max_draws": 5_000, "max_body_bytes": 20_000, "max_unknowns": 100,
+          "callback_allow": "http://127.0.0.1:9/hooks/", "callback_secret": "table-secret"}
+HOOKS = "http://127.0.0.1:9/hooks/"
 
 
 @dataclass(frozen=True)
@@ -295,4 +297,18 @@ CASES = [
     Case("term_name_newline", 422, LIK, changed(newline_term)),
     Case("element_budget", 422, "/model/derived/scaled", changed(outer_product),
          says=("work budget",)),
+    # Callback URLs (issue 13 items 4 and 5): normalised before the prefix check, dot segments,
+    # encoded dots and user information refused outright, unparsable URLs a 422 at the pointer.
+    Case("callback_dot_segments", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": HOOKS + "../../admin"})), says=("segments",)),
+    Case("callback_encoded_dots", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": HOOKS + "%2e%2e/%2E%2E/admin"})), says=("dots",)),
+    Case("callback_user_information", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": "http://127.0.0.1:9@evil.invalid/hooks/x"}))),
+    Case("callback_unparsable", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": "http://["})), says=("parsed",)),
+    Case("callback_port_out_of_range", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": "http://127.0.0.1:99999/hooks/x"}))),
+    Case("callback_other_path", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": "http://127.0.0.1:9/admin"})), says=("prefix",)),
 ]
