@@ -60,6 +60,12 @@ class Settings:
     # Requests per key per window (0: no limit), counted in Redis so all API processes share it.
     rate_limit: int = 600
     rate_window: int = 60
+    # Failed authentications (invalid, revoked or malformed keys) one client address may make in
+    # a sliding window before every request from it is refused for the rest of the window (0: no
+    # limit). Our choice: 20 a minute is far more than a person mistyping a key, and slows a
+    # guessing client to a useless rate.
+    auth_failure_limit: int = 20
+    auth_failure_window: int = 60
     # Queued plus running jobs one tenant may have at once (0: no cap).
     max_active_jobs: int = 100
     # Scalar unknowns (after shapes are resolved from the data) one model may declare.
