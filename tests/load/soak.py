@@ -177,7 +177,7 @@ def run(
     burst_timeout: float = 900.0,
     folder: Path | None = None,
     slow_clients: int = 50,
-) -> tuple[ReadFigures, BurstFigures, HealthFigures]:
+) -> tuple[ReadFigures, BurstFigures, tuple[HealthFigures, HealthFigures]]:
     """Start a private stack, run both phases, stop everything; returns the figures."""
     folder = folder or Path(tempfile.mkdtemp(prefix="drawyard-soak-"))
     redis = RedisServer(folder / "redis").start()
@@ -190,8 +190,11 @@ def run(
         done = [_submit(base, tiny_job(10_000 + i)) for i in range(4)]
         _wait_all(base, done, 300)
         running = [_submit(base, tiny_job(20_000 + i, draws=90_000)) for i in range(4)]
+        port = int(base.rsplit(":", 1)[1])
+        # The slow clients alone first, then beside the readers.
+        alone = hold_and_probe("127.0.0.1", port, base, slow_clients, min(seconds, 15.0))
         probe = ThreadPoolExecutor(1).submit(
-            hold_and_probe, "127.0.0.1", int(base.rsplit(":", 1)[1]), base, slow_clients, seconds
+            hold_and_probe, "127.0.0.1", port, base, slow_clients, seconds
         )
         reads = read_load(base, running, done, clients, seconds)
         health = probe.result()
@@ -202,7 +205,7 @@ def run(
     finally:
         service.stop()
         redis.stop()
-    return reads, figures, health
+    return reads, figures, (alone, health)
 
 
 def _submit(base: str, body: dict) -> str:
@@ -230,18 +233,19 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--slow-clients", type=int, default=50)
     args = parser.parse_args(argv)
-    reads, figures, health = run(args.clients, args.seconds, args.jobs, args.workers,
-                                 slow_clients=args.slow_clients)
+    reads, figures, (alone, health) = run(args.clients, args.seconds, args.jobs, args.workers,
+                                          slow_clients=args.slow_clients)
+    print("alone:", alone.line(), flush=True)
     print(reads.line(), flush=True)
     for error in reads.errors[:5]:
         print("  read error:", error)
-    print(health.line(), flush=True)
-    for error in health.errors[:5]:
+    print("beside the readers:", health.line(), flush=True)
+    for error in [*alone.errors, *health.errors][:5]:
         print("  health error:", error)
     print(figures.line(), flush=True)
     for refusal in figures.refusals:
         print("  refused:", refusal)
-    ok = not reads.errors and not health.errors and figures.exact
+    ok = not reads.errors and not alone.errors and not health.errors and figures.exact
     print("load run:", "PASS" if ok else "FAIL")
     return 0 if ok else 1
 
