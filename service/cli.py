@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import os
 import signal
+import socket
 import sys
 import textwrap
 import time
@@ -15,6 +16,8 @@ from typing import NoReturn
 from service.access.commands import add_keys_command, serve_host
 from service.config import load_settings
 from service.local_stack import CELERY_APP, LocalStack, StartupError
+
+LOG_LEVELS = ("DEBUG", "INFO", "WARNING", "ERROR")
 
 BANNER_WIDTH = 78
 
@@ -80,16 +83,19 @@ def _add_worker(commands: argparse._SubParsersAction) -> None:
             "to the store in DRAWYARD_DATABASE_URL. Start one per core."
         ),
     )
-    worker.add_argument("--concurrency", type=int, default=None,
-                        help="pool processes in this worker (default: 1), or threads of the "
-                             "closing worker (default: 4)")
+    worker.add_argument("--processes", type=int, default=None,
+                        help="chains this worker runs side by side, one process each (default: "
+                             "1); with --closing, threads (default: 4)")
     worker.add_argument("--closing", action="store_true",
-                        help="consume the closing queue (DRAWYARD_CLOSING_QUEUE: finishing steps "
-                             "and completion callbacks) with a thread pool instead of chains; "
-                             "a deployment runs at least one such worker")
-    worker.add_argument("--name", default="worker@%h",
-                        help="worker node name (default: worker@%%h)")
-    worker.add_argument("--loglevel", default="INFO", help="log level (default: INFO)")
+                        help="run finishing steps and completion callbacks (the closing queue, "
+                             "DRAWYARD_CLOSING_QUEUE) in threads instead of chains; a deployment "
+                             "runs at least one such worker")
+    worker.add_argument("--name", default=None,
+                        help="this worker's name in logs and metrics (default: drawyard@<host>)")
+    worker.add_argument("--logging", default="INFO", choices=LOG_LEVELS,
+                        help="the least severe log records written (default: INFO)")
+    worker.add_argument("library_options", nargs=argparse.REMAINDER, metavar="-- OPTION",
+                        help="after --, options passed unchanged to the queue library's worker")
     worker.set_defaults(run=run_worker)
 
 
@@ -210,11 +216,15 @@ def _sweeper_main(argv: list[str]) -> int:
 
 
 def run_worker(args: argparse.Namespace) -> NoReturn:
-    concurrency = args.concurrency or (4 if args.closing else 1)
+    name = args.name or f"drawyard{'-closing' if args.closing else ''}@{socket.gethostname()}"
+    passed = [o for o in args.library_options if o != "--"]
+    processes = args.processes or (4 if args.closing else 1)
+    # drawyard's words mapped onto the library's options; one task per process at a time, so a
+    # long chain never holds a second one back
     argv = [
         sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
-        "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
-        "-n", args.name, "--loglevel", args.loglevel,
+        "--concurrency", str(processes), "--prefetch-multiplier", "1",
+        "-n", name, "--loglevel", args.logging, *passed,
     ]
     if args.closing:
         argv += ["-Q", load_settings().closing_queue, "--pool", "threads"]

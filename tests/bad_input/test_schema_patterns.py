@@ -3,7 +3,7 @@
 JSON Schema 2020-12 Validation section 6.3.3: patterns are ECMA-262 regular expressions, in which
 "$" (no multiline flag) matches only at the end of the input (ECMA-262, 22.2.2.6). Python's "$"
 also matches before a final newline; issue 13 item 7 found names ending in a newline accepted for
-unknowns, inputs, derived and generated quantities and likelihood terms. For each pattern a
+unknowns, inputs, derived quantities, per-draw formulas and likelihood terms. For each pattern a
 string it matches is drawn, then the same string with a newline added must be refused.
 """
 
@@ -74,7 +74,7 @@ def test_the_plain_python_reading_would_let_the_newline_through():
     assert not SchemaValidator({"pattern": "^[A-Za-z][A-Za-z0-9_]*$"}).is_valid("mu\n")
 
 
-@pytest.mark.parametrize("where", ["inputs", "unknowns", "derived", "quantities", "term"])
+@pytest.mark.parametrize("where", ["inputs", "unknowns", "derived", "formulas", "term"])
 def test_names_ending_in_a_newline_are_refused_in_every_section(where: str):
     from tests.modeling.test_spec_problems import BASE, DATA
     from worker.modeling import check_model
@@ -87,11 +87,11 @@ def test_names_ending_in_a_newline_are_refused_in_every_section(where: str):
         spec["unknowns"]["extra\n"] = {"flat_prior": True}
     elif where == "derived":
         spec["derived"]["extra\n"] = "mu"
-    elif where == "quantities":
-        spec["generated"]["quantities"] = {"extra\n": "mu"}
+    elif where == "formulas":
+        spec["per_draw"]["formulas"] = {"extra\n": "mu"}
     else:
         spec["likelihood"][0]["name"] = "effects\n"
-        spec["generated"] = {}
+        spec["per_draw"] = {}
     problems = check_model(spec, data)
     assert problems, where
     assert all(p.pointer.startswith("/model") for p in problems), problems
