@@ -13,6 +13,7 @@ from service.config import load_settings
 from service.problem_details import ApiProblem, http_problem, problem_response
 from service.runtime import build_runtime
 from service.structured_logs import configure_logging, install_request_context
+from service.views.comparisons import bayes_factors, comparisons
 from service.views.health import health
 from service.views.jobs import jobs
 from service.views.metrics import metrics
@@ -31,9 +32,9 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     install_request_context(app)
     runtime = build_runtime(settings)
     app.extensions["drawyard"] = runtime
-    for blueprint in (jobs, results, models, health, metrics, web):
+    for blueprint in (jobs, results, models, comparisons, bayes_factors, health, metrics, web):
         app.register_blueprint(blueprint)
-    install_access(app, runtime, (jobs, results, models))
+    install_access(app, runtime, (jobs, results, models, comparisons, bayes_factors))
 
     @app.errorhandler(ApiProblem)
     def api_problem(problem: ApiProblem):

@@ -123,6 +123,9 @@ def build_parser() -> argparse.ArgumentParser:
     from service.model_commands import add_models_command
 
     add_models_command(commands)
+    from service.assessment_commands import add_assessment_commands
+
+    add_assessment_commands(commands)
     return parser
 
 

@@ -50,6 +50,29 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
     },
     ("get", "/v1/jobs/{job_id}/diagnostics"): {200: "diagnostics", 404: "problem", 409: "problem"},
     ("get", "/v1/jobs/{job_id}/audit"): {200: "audit", 404: "problem"},
+    ("get", "/v1/jobs/{job_id}/predictive-accuracy"): {
+        200: "predictive_accuracy",
+        404: "problem",
+        409: "problem",
+    },
+    ("get", "/v1/jobs/{job_id}/evidence"): {
+        200: "evidence",
+        404: "problem",
+        409: "problem",
+        422: "problem",
+    },
+    ("post", "/v1/bayes-factors"): {
+        200: "bayes_factor",
+        400: "problem",
+        415: "problem",
+        422: "problem",
+    },
+    ("post", "/v1/comparisons"): {
+        200: "comparison",
+        400: "problem",
+        415: "problem",
+        422: "problem",
+    },
     ("get", "/v1/health/live"): {200: "health"},
     ("get", "/v1/health/ready"): {200: "health", 503: "health"},
     ("get", "/v1/models"): {200: "model_list", 400: "problem"},
@@ -81,6 +104,16 @@ SUMMARIES = {
     ("get", "/v1/jobs/{job_id}/sampler-stats"): "Per-draw sampler statistics, JSON or CSV",
     ("get", "/v1/jobs/{job_id}/diagnostics"): "R-hat, ESS, the sampler report and the verdict",
     ("get", "/v1/jobs/{job_id}/audit"): "Who, when, hashes, seeds, settings and software",
+    ("get", "/v1/jobs/{job_id}/predictive-accuracy"): (
+        "PSIS-LOO from the stored pointwise log likelihood: elpd_loo, p_loo, Pareto k-hat"
+    ),
+    ("get", "/v1/jobs/{job_id}/evidence"): (
+        "Log marginal likelihood by bridge sampling, with its error (proper priors only)"
+    ),
+    ("post", "/v1/bayes-factors"): "The Bayes factor of two succeeded jobs on the same data",
+    ("post", "/v1/comparisons"): (
+        "Order succeeded jobs on the same data by elpd_loo, with paired differences (read-only)"
+    ),
     ("get", "/v1/health/live"): "The API process is up",
     ("get", "/v1/health/ready"): "The database and the broker are reachable",
     ("get", "/v1/models"): "Registered model names, each with its latest version",
@@ -162,7 +195,7 @@ PATH_PARAMETERS = {
 def _operation(method: str, path: str) -> dict[str, Any]:
     responses = {}
     declared = dict(RESPONSES[(method, path)])
-    if path.startswith(("/v1/jobs", "/v1/models")):
+    if path.startswith(("/v1/jobs", "/v1/models", "/v1/comparisons", "/v1/bayes-factors")):
         # service/access/: no or a wrong key, a missing scope, the rate or job cap reached.
         declared.update({status: "problem" for status in ACCESS_STATUSES})
     for status, stem in declared.items():
@@ -214,6 +247,15 @@ def _operation(method: str, path: str) -> dict[str, Any]:
             "content": {
                 "application/json": {
                     "schema": {"$ref": "#/components/schemas/model_registration"}
+                }
+            },
+        }
+    if (method, path) in (("post", "/v1/comparisons"), ("post", "/v1/bayes-factors")):
+        operation["requestBody"] = {
+            "required": True,
+            "content": {
+                "application/json": {
+                    "schema": {"$ref": "#/components/schemas/comparison_request"}
                 }
             },
         }

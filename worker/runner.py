@@ -17,6 +17,12 @@ from typing import Any
 
 import numpy as np
 
+from worker.approximation.runs import (
+    APPROXIMATION_METHODS,
+    ApproximationRun,
+    approximation_verdict,
+    grid_dimension_problem,
+)
 from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
 from worker.diagnostics.summary import DEFAULT_INTERVAL, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
@@ -104,7 +110,7 @@ def sampler_problems(
     if not isinstance(sampler, dict):
         return [Problem("/sampler", "The sampler settings must be an object.")]
     checks: dict[str, Callable[[Any], str | None]] = {
-        "method": lambda v: _choice_problem(v, METHODS, "method"),
+        "method": lambda v: _choice_problem(v, METHODS + APPROXIMATION_METHODS, "method"),
         "warmup_iterations": lambda v: _integer_problem(v, 0, max_draws, "warm-up length"),
         "draws": lambda v: _integer_problem(v, 1, max_draws, "number of draws per chain"),
         "chains": lambda v: _integer_problem(v, 1, max_chains, "number of chains"),
@@ -253,9 +259,35 @@ def check_submission(
     problems.extend(check_thresholds(body.get("checks")))
     problems.extend(member_problems(body.get("warm_start"), max_chains))
     if not problems:
+        problems.extend(_approximation_problems(body))
+    if not problems:
         problems.extend(_initial_value_problems(body))
     if not problems:
         problems.extend(warm_start_problems(body))
+    return problems
+
+
+def _approximation_problems(body: dict) -> list[Problem]:
+    """A Laplace or grid job runs as one task, starts from no earlier chain, and a grid covers
+    at most two unconstrained coordinates."""
+    sampler = body.get("sampler") or {}
+    method = sampler.get("method")
+    if method not in APPROXIMATION_METHODS:
+        return []
+    problems = []
+    if sampler.get("chains", 1) != 1:
+        problems.append(Problem("/sampler/chains", f"a {method} job runs once: leave chains "
+                                                    "out or set it to 1"))
+    if sampler.get("warmup_iterations", 0) != 0:
+        problems.append(Problem("/sampler/warmup_iterations", f"a {method} job has no warm-up: "
+                                                               "leave it out or set it to 0"))
+    if body.get("warm_start") is not None:
+        problems.append(Problem("/warm_start", f"a {method} job does not start from an earlier "
+                                               "job's chains"))
+    if method == "grid":
+        reason = grid_dimension_problem(_compile(body))
+        if reason is not None:
+            problems.append(Problem("/sampler/method", reason))
     return problems
 
 
@@ -318,7 +350,12 @@ def resolve_sampler(body_sampler: dict | None) -> dict:
     """
     given = dict(body_sampler or {})
     resolved: dict[str, Any] = SamplerSettings().as_dict()
-    resolved.update({"chains": DEFAULT_CHAINS, "seed": None, "initial_values": None})
+    if given.get("method") in APPROXIMATION_METHODS:
+        # One task, no warm-up: the deployment's iteration limit then bounds the draws alone.
+        resolved.update({"chains": 1, "warmup_iterations": 0})
+    else:
+        resolved["chains"] = DEFAULT_CHAINS
+    resolved.update({"seed": None, "initial_values": None})
     resolved.update(given)
     if resolved["seed"] is None:
         resolved["seed"] = secrets.randbits(63)
@@ -424,13 +461,15 @@ def _compile(body: dict) -> Any:
     return compile_model(body["model"], body.get("data") or {})
 
 
-def start_chain(body: dict, chain_index: int) -> ChainRun:
+def start_chain(body: dict, chain_index: int) -> ChainRun | ApproximationRun:
     """Compile the model and initialise chain ``chain_index`` (0-based) of a checked submission."""
     resolved = _resolved_with_seed(body)
     if not 0 <= chain_index < resolved["chains"]:
         raise ValueError(f"chain index {chain_index} outside 0..{resolved['chains'] - 1}")
     model = _compile(body)
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
+    if resolved["method"] in APPROXIMATION_METHODS:
+        return ApproximationRun(model, resolved["method"], seed, resolved["draws"], ChainResult)
     values = _initial_values_for(resolved, chain_index)
     point = None if values is None else np.asarray(model.unconstrain(values), dtype=np.float64)
     warm = None
@@ -487,6 +526,9 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
     draws = np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
     summary = summarize(draws, list(results[0].names), summary_interval(body))
+    if resolved["method"] in APPROXIMATION_METHODS:
+        report, checked = approximation_verdict(results)
+        return {"summary": summary, "sampler": report, "verdict": checked}
     depth = resolved["maximum_tree_depth"] if resolved["method"] == "nuts" else None
     report = sampler_checks([dict(r.stats) for r in results], depth)
     report["step_size_per_chain"] = [

@@ -1,4 +1,5 @@
-"""A job's results: summary, draws, sampler statistics, diagnostics, the audit record."""
+"""A job's results: summary, draws, sampler statistics, diagnostics, predictive accuracy, the
+evidence (bridge sampling), the audit record."""
 
 from __future__ import annotations
 
@@ -7,8 +8,10 @@ from typing import Any
 
 from flask import Blueprint, Response, jsonify, request
 
+from service.evidence import evidence_document
 from service.formats.downloads import download
 from service.formats.negotiation import chosen_format, chosen_layout
+from service.predictive import predictive_accuracy
 from service.results import (
     audit_document,
     diagnostics_document,
@@ -79,6 +82,16 @@ def _array_download(
         runtime(), request, kind, job_id, chains, selection, loader_of(chains, names),
         format_name, layout, is_partial(job),
     )
+
+
+@results.get("/predictive-accuracy")
+def loo(job_id: str) -> Response:
+    return jsonify(predictive_accuracy(runtime(), job_id))
+
+
+@results.get("/evidence")
+def evidence(job_id: str) -> Response:
+    return jsonify(evidence_document(runtime(), job_id))
 
 
 @results.get("/audit")

@@ -12,6 +12,7 @@ from service.job_queries import JobFilter, cancel_job, get_job, list_jobs
 from service.job_resources import job_resource
 from service.partial_results import partial_record
 from service.plots.job_arrays import quantity_names
+from service.predictive import comparison
 from service.problem_details import ApiProblem
 from service.store.models import JOB_STATES, TERMINAL_STATES, Chain, Job
 from service.submissions import submit, validate
@@ -119,6 +120,28 @@ def partial_downloads(job: Job) -> list[tuple[str, str, str | None]]:
         return [item for item in DOWNLOADS if item[1] == "audit"]
     summarised = job.summary is not None
     return [i for i in DOWNLOADS if summarised or i[1] not in ("summary", "diagnostics")]
+
+
+@web.get("/compare")
+def compare_page() -> tuple[str, int]:
+    """The jobs ticked on the jobs page, ordered by PSIS-LOO, or why they cannot be compared."""
+    chosen = request.args.getlist("jobs")
+    problems: list[dict[str, str]] = []
+    result = None
+    status = 200
+    if len(chosen) < 2:
+        problems.append({"pointer": "/jobs", "message": "tick two or more succeeded jobs on the "
+                                                        "same data on the jobs page"})
+        status = 422
+    else:
+        try:
+            result = comparison(runtime(), {"jobs": chosen})
+        except ApiProblem as problem:
+            if problem.status != 422:
+                raise
+            problems, status = problem.errors, 422
+    return render_template("compare.html", result=result, chosen=chosen,
+                           problems=problems), status
 
 
 @web.post("/jobs/<job_id>/cancel")

@@ -28,7 +28,7 @@ SAMPLER_FIELDS: dict[str, type] = {
     "seed": int,
     "target_acceptance": float,
 }
-METHODS = ("nuts", "hmc", "metropolis")
+METHODS = ("nuts", "hmc", "metropolis", "laplace", "grid")
 GENERAL = "general"
 # Lines of context shown around a flagged line in the spec or data excerpt.
 CONTEXT_LINES = 2

@@ -165,6 +165,26 @@ class CompiledModel:
             raise InvalidSubmission(problems)
         return u
 
+    def unconstrain_draws(self, rows: np.ndarray) -> np.ndarray:
+        """Stored draws of the unknowns' columns (S, len(unknown_names)), constrained as report()
+        gives them, back to the unconstrained scale (S, dimension); NaN where a value lies
+        outside its support."""
+        rows = np.asarray(rows, dtype=float)
+        out = np.empty((rows.shape[0], self.dimension))
+        column = 0
+        with np.errstate(all="ignore"):
+            for slot in self._slots:
+                size = int(np.prod(slot.shape, dtype=int))
+                block = rows[:, column:column + size]
+                column += size
+                if slot.transform is None:
+                    out[:, slot.start:slot.stop] = block
+                    continue
+                for s in range(rows.shape[0]):
+                    out[s, slot.start:slot.stop] = slot.transform.unconstrain(
+                        block[s].reshape(slot.shape))
+        return out
+
     def report(self, u: np.ndarray, rng: np.random.Generator) -> np.ndarray:
         """One row of quantity_names at u; draws come from rng in a fixed order."""
         a = self._assembly
