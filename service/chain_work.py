@@ -321,7 +321,7 @@ def run_chain(
             reason = "the sampler stopped before the last draw"
             ended = end_chain(runtime, lease, "failed", reason, monitor)
     if ended and claim_finish(runtime, job_id):
-        send_finish_task(runtime.celery, runtime.settings.queue, job_id)
+        send_finish_task(runtime.celery, runtime.settings.closing_queue, job_id)
     return ChainOutcome(outcome if ended else "lease lost")
 
 
@@ -546,7 +546,7 @@ def _resend_finish_if_due(runtime: Runtime, job_id: str) -> None:
     finishing task is safe to run more than once.
     """
     if claim_finish(runtime, job_id):
-        send_finish_task(runtime.celery, runtime.settings.queue, job_id)
+        send_finish_task(runtime.celery, runtime.settings.closing_queue, job_id)
         return
     with runtime.sessions() as session:
         job_state = session.scalar(select(Job.state).where(Job.id == job_id))
@@ -556,4 +556,4 @@ def _resend_finish_if_due(runtime: Runtime, job_id: str) -> None:
             .where(Chain.job_id == job_id, Chain.state.not_in(TERMINAL_STATES))
         )
     if job_state is not None and job_state not in TERMINAL_STATES and pending == 0:
-        send_finish_task(runtime.celery, runtime.settings.queue, job_id)
+        send_finish_task(runtime.celery, runtime.settings.closing_queue, job_id)

@@ -24,6 +24,9 @@ class Settings:
     # Folder of the serverless broker used when broker_url is "filesystem://" (one machine only).
     broker_folder: str = "var/broker"
     queue: str = "drawyard"
+    # The queue of finishing steps and completion callbacks, consumed by its own worker (started
+    # with `-Q` on this name) so that neither waits behind chains nor holds a chain's process.
+    closing_queue: str = "drawyard.closing"
     # A pass-through: a JSON object of the queue library's own transport options (its names),
     # merged over the ones derived here.
     broker_library_options: str = ""
@@ -33,6 +36,11 @@ class Settings:
     max_chains: int = 16
     max_draws: int = 100_000
     max_body_bytes: int = 10 * 1024 * 1024
+    # Seconds a client may take to send a request's line and headers, and then its body
+    # (service/buffered_worker.py); our choice: 10 s is ample for headers on any link, and 60 s
+    # lets the largest body arrive at 175 kB/s. Past them the connection is closed.
+    header_read_seconds: float = 10.0
+    body_read_seconds: float = 60.0
     checkpoint_every: int = 200
     # MB of compiled models a worker process keeps between chains (worker/model_cache.py); 0
     # compiles every chain afresh. Our choice: a few large data sets' worth on a worker of 2 GB.
@@ -56,6 +64,12 @@ class Settings:
     # Requests per key per window (0: no limit), counted in Redis so all API processes share it.
     rate_limit: int = 600
     rate_window: int = 60
+    # Failed authentications (invalid, revoked or malformed keys) one client address may make in
+    # a sliding window before every request from it is refused for the rest of the window (0: no
+    # limit). Our choice: 20 a minute is far more than a person mistyping a key, and slows a
+    # guessing client to a useless rate.
+    auth_failure_limit: int = 20
+    auth_failure_window: int = 60
     # Queued plus running jobs one tenant may have at once (0: no cap).
     max_active_jobs: int = 100
     # Scalar unknowns (after shapes are resolved from the data) one model may declare.

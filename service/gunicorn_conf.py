@@ -9,9 +9,10 @@ import os
 bind = os.environ.get("GUNICORN_BIND", "0.0.0.0:8000")
 # WEB_CONCURRENCY is the conventional name platforms set for the number of web processes.
 workers = int(os.environ.get("WEB_CONCURRENCY", "2"))
-# Threaded workers keep heart-beating to the arbiter while a thread streams a large draws download,
-# so a long download is not mistaken for a hung worker.
-worker_class = "gthread"
+# Each worker reads whole requests in an event loop before an app thread sees them, so slow or
+# idle clients cannot hold the threads (service/buffered_worker.py); its loop keeps heart-beating
+# to the arbiter while a thread streams a large draws download.
+worker_class = "service.buffered_worker.BufferedRequestWorker"
 threads = int(os.environ.get("GUNICORN_THREADS", "4"))
 timeout = 120
 graceful_timeout = 10

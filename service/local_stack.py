@@ -315,6 +315,26 @@ def start_worker(
                        grace_seconds=15.0)
 
 
+def start_closing_worker(env: Mapping[str, str], log_path: Path, threads: int = 4) -> ChildProcess:
+    """The Celery worker of the closing queue: finishing steps and completion callbacks.
+
+    Its own process and queue, so a job's end never waits behind other jobs' chains and a slow
+    callback receiver never holds a chain's process. Threads, not forked processes: callbacks
+    mostly wait on the network, and a finishing step is short.
+    """
+    from service.config import load_settings
+
+    queue = load_settings(environ={**os.environ, **env}).closing_queue
+    argv = [
+        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
+        "-Q", queue, "--pool", "threads", "--concurrency", str(threads),
+        "--prefetch-multiplier", "1", "-n", "closing@%h", "--loglevel", "INFO",
+        "--without-heartbeat", "--without-gossip", "--without-mingle",
+    ]
+    return start_child("closing worker", argv, log_path, single_threaded_numerics(env),
+                       grace_seconds=15.0)
+
+
 NUMERIC_THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
 
 
@@ -371,6 +391,7 @@ class LocalStack:
     redis: RedisServer | None = None
     api: ChildProcess | None = None
     worker_processes: list[ChildProcess] = field(default_factory=list)
+    closing_worker: ChildProcess | None = None
     sweeper: ChildProcess | None = None
     broker_url: str = ""
     broker_note: str = ""
@@ -424,10 +445,11 @@ class LocalStack:
                 start_worker(i, env, logs / f"worker{i}.log", self.concurrency)
                 for i in range(self.workers)
             ]
+            self.closing_worker = start_closing_worker(env, logs / "closing.log")
             self.sweeper = start_sweeper(env, logs / "sweeper.log")
             wait_until(
                 api_ready(self.base_url),
-                [self.api, *self.worker_processes],
+                [self.api, *self.worker_processes, self.closing_worker],
                 timeout,
                 f"the API to answer {self.base_url}{READY_PATH}",
             )
@@ -437,7 +459,8 @@ class LocalStack:
         return self
 
     def children(self) -> list[ChildProcess]:
-        out = [c for c in [self.api, *self.worker_processes, self.sweeper] if c is not None]
+        out = [c for c in [self.api, *self.worker_processes, self.closing_worker, self.sweeper]
+               if c is not None]
         if self.redis is not None and self.redis.child is not None:
             out.append(self.redis.child)
         return out
@@ -448,6 +471,8 @@ class LocalStack:
             worker.signal_leader(worker.stop_signal)
         for worker in self.worker_processes:
             worker.stop()
+        if self.closing_worker is not None:
+            self.closing_worker.stop()
         if self.sweeper is not None:
             self.sweeper.stop()
         if self.api is not None:

@@ -190,7 +190,7 @@ def _resend_finishes(runtime: Runtime, report: SweepReport) -> None:
                 .execution_options(synchronize_session=False)
             ).rowcount
         if claimed:
-            send_finish_task(runtime.celery, settings.queue, job_id)
+            send_finish_task(runtime.celery, settings.closing_queue, job_id)
             report.finishes_sent.append(job_id)
 
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import threading
 
 from celery import Task, shared_task
 
@@ -14,14 +15,17 @@ from service.finishing import finish
 from service.runtime import Runtime, build_runtime
 
 _runtimes: dict[tuple[int, int], Runtime] = {}
+# The closing worker runs a thread pool: its threads share one runtime, built once.
+_runtimes_lock = threading.Lock()
 
 
 def _runtime(task: Task) -> Runtime:
     # One database engine per pool process: connections must not cross a fork.
     key = (os.getpid(), id(task.app))
-    if key not in _runtimes:
-        _runtimes[key] = build_runtime(task.app.conf.drawyard_settings, task.app)
-    return _runtimes[key]
+    with _runtimes_lock:
+        if key not in _runtimes:
+            _runtimes[key] = build_runtime(task.app.conf.drawyard_settings, task.app)
+        return _runtimes[key]
 
 
 @shared_task(

@@ -15,7 +15,11 @@ import logging
 from flask import Blueprint, Flask, Request, g, request
 
 from service.access.keys import KeyIdentity, keys_configured, verify_key
-from service.access.limits import check_rate
+from service.access.limits import (
+    check_failed_authentications,
+    check_rate,
+    count_failed_authentication,
+)
 from service.access.redaction import install_redaction
 from service.access.tenancy import IDENTITY
 from service.problem_details import ApiProblem
@@ -57,11 +61,18 @@ def authenticate(runtime: Runtime, request: Request) -> KeyIdentity | None:
     """The caller's identity (None in open mode); ApiProblem 401, 403 or 429 to refuse."""
     if not runtime.settings.require_keys and not keys_configured(runtime.sessions):
         return None
-    key = presented_key(request)
+    address = request.remote_addr
+    check_failed_authentications(runtime, address)
+    try:
+        key = presented_key(request)
+    except ApiProblem:
+        count_failed_authentication(runtime, address)
+        raise
     if key is None:
         raise unauthorised("Send an API key as 'Authorization: Bearer <key>'.")
     identity = verify_key(runtime.sessions, key)
     if identity is None:
+        count_failed_authentication(runtime, address)
         raise unauthorised("The API key is not valid or has been revoked.")
     scope = needed_scope(request)
     if scope not in identity.scopes:

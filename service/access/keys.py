@@ -65,7 +65,7 @@ def parse_scopes(raw: str | Iterable[str]) -> tuple[str, ...]:
 def create_key(
     sessions: sessionmaker[Session], tenant: str, scopes: Iterable[str], label: str | None = None
 ) -> NewKey:
-    if not TENANT_PATTERN.match(tenant):
+    if not TENANT_PATTERN.fullmatch(tenant):
         raise ValueError(
             "a tenant name is 1 to 64 letters, digits, '.', '_' or '-', starting with a letter "
             "or digit"

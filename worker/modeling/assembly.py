@@ -31,6 +31,7 @@ from .reparametrisation import QrReparametrisation
 from .shapes import ValueType, batch_shape, describe
 from .tape import Term, UnknownSlot
 from .transforms import make_transform
+from .work_budget import BudgetExceeded, WorkBudget
 
 SECTIONS = ("inputs", "unknowns", "derived")
 # Variate kinds a prior may put on a continuous unknown, and what the declaration must guarantee.
@@ -93,7 +94,9 @@ class _Assembler:
         self.declared_inputs: dict[str, dict] = spec.get("inputs", {})
         self.declared_unknowns: dict[str, dict] = spec["unknowns"]
         self.declared_derived: dict[str, str] = spec.get("derived", {})
+        self.derived_trees: dict[str, ex.Node] = {}
         self.data = data
+        self.budget: WorkBudget = self.out.graph.budget
 
     def problem(self, at: str, message: str) -> None:
         self.problems.append(Problem(at, message))
@@ -152,13 +155,24 @@ class _Assembler:
                 seen[name] = section_words[section]
 
     # ---- expressions and arguments
-    def expression(self, text: str, at: str, context: str) -> int | None:
+    def parse(self, text: str, at: str, context: str) -> ex.Node | None:
+        """The syntax tree, charged to the work budget; None (with a problem) when it is bad."""
         try:
             tree = ex.parse(text)
         except ex.ExpressionError as error:
             self.problem(at, f"{context}: {error.message} (at character {error.position + 1})")
             return None
-        if ex.names_in(tree) & self.broken:
+        try:
+            self.budget.charge_expression(tree)
+        except BudgetExceeded as error:
+            self.problem(at, f"{context}: {error}")
+            raise
+        return tree
+
+    def expression(self, text: str, at: str, context: str,
+                   tree: ex.Node | None = None) -> int | None:
+        tree = tree or self.parse(text, at, context)
+        if tree is None or ex.names_in(tree) & self.broken:
             return None
         try:
             return self.out.graph.add_expression(tree)
@@ -171,6 +185,9 @@ class _Assembler:
                 self.problem(at, f"{context}: {error.message} (at character {error.position + 1})")
         except ex.ExpressionError as error:
             self.problem(at, f"{context}: {error.message} (at character {error.position + 1})")
+        except BudgetExceeded as error:
+            self.problem(at, f"{context}: {error}")
+            raise
         return None
 
     def argument(self, raw: Any, at: str, context: str) -> int | None:
@@ -307,17 +324,15 @@ class _Assembler:
 
     # ---- derived quantities
     def derived(self) -> None:
-        trees: dict[str, ex.Node] = {}
+        trees = self.derived_trees
         for name, text in self.declared_derived.items():
             if name in self.broken:
                 continue
-            try:
-                trees[name] = ex.parse(text)
-            except ex.ExpressionError as error:
-                self.problem(pointer("model", "derived", name),
-                             f"derived quantity '{name}': {error.message} "
-                             f"(at character {error.position + 1})")
+            tree = self.parse(text, pointer("model", "derived", name), f"derived quantity '{name}'")
+            if tree is None:
                 self.broken.add(name)
+            else:
+                trees[name] = tree
         depends = {name: sorted(ex.names_in(tree) & set(self.declared_derived))
                    for name, tree in trees.items()}
         order = self.topological_order(depends)
@@ -326,7 +341,7 @@ class _Assembler:
                 self.broken.add(name)
                 continue
             node = self.expression(self.declared_derived[name], pointer("model", "derived", name),
-                                   f"derived quantity '{name}'")
+                                   f"derived quantity '{name}'", trees[name])
             if node is None:
                 self.broken.add(name)
                 continue
@@ -427,10 +442,10 @@ class _Assembler:
             if name in seen or name not in self.declared_derived:
                 continue
             seen.add(name)
-            try:
-                names = ex.names_in(ex.parse(self.declared_derived[name]))
-            except ex.ExpressionError:
+            tree = self.derived_trees.get(name)
+            if tree is None:
                 continue
+            names = ex.names_in(tree)
             found.update(names & set(self.declared_unknowns))
             stack.extend(names & set(self.declared_derived))
         return found
@@ -596,5 +611,10 @@ def assemble(spec: dict, data: Any, reparametrise: bool = True,
     `reparametrise` allows the QR reparametrisation of linear predictors (reparametrisation.py).
     """
     assembler = _Assembler(spec, data, reparametrise)
-    assembly = assembler.run()
+    try:
+        assembly = assembler.run()
+    except BudgetExceeded:
+        # The crossing expression's problem is recorded; checking the rest would be the very work
+        # the budget refuses, and its findings would only follow from the parts left unbuilt.
+        return assembler.problems, assembler.out
     return assembler.problems, assembly

@@ -400,3 +400,20 @@ def matrix_product_partners(node: Node, name: str) -> list[str | None]:
             for row in n.rows:
                 stack.extend(row)
     return partners
+
+
+def children(node: Node) -> list[Node]:
+    """The direct sub-expressions of a node, in source order."""
+    if isinstance(node, Unary):
+        return [node.operand]
+    if isinstance(node, Binary):
+        return [node.left, node.right]
+    if isinstance(node, Call):
+        return list(node.arguments)
+    if isinstance(node, Index):
+        return [node.target, *node.indices]
+    if isinstance(node, VectorLiteral):
+        return list(node.items)
+    if isinstance(node, MatrixLiteral):
+        return [item for row in node.rows for item in row]
+    return []

@@ -9,6 +9,8 @@ from typing import Any
 
 from jsonschema import Draft202012Validator, ValidationError
 
+from schemas.validation import SchemaValidator
+
 from ..problems import InvalidSubmission, Problem, pointer
 from .assembly import assemble
 from .distributions import distribution_names
@@ -33,7 +35,7 @@ def model_schema() -> dict:
 
 @cache
 def _validator() -> Draft202012Validator:
-    return Draft202012Validator(model_schema())
+    return SchemaValidator(model_schema())
 
 
 def _json_type(value: Any) -> str:
