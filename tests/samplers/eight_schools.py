@@ -9,8 +9,10 @@ tau ~ half-Cauchy(0, 5).
 Exact answers by one-dimensional quadrature over tau (BDA3 section 5.4, with the normal prior on
 mu in place of the flat one): integrating mu out of N(mu | 0, 5^2) prod N(y_j | mu, sigma_j^2 +
 tau^2) gives, with s_j = sigma_j^2 + tau^2, P = 1/25 + sum 1/s_j, mu_hat = sum(y_j / s_j) / P,
-    p(tau | y) ~ p(tau) P^(-1/2) prod s_j^(-1/2) exp(-sum (y_j - mu_hat)^2 / (2 s_j) - mu_hat^2 / 50),
-then mu | tau, y ~ N(mu_hat, 1/P) and theta_j | mu, tau, y ~ N(V_j (y_j / sigma_j^2 + mu / tau^2), V_j)
+    p(tau | y) ~ p(tau) P^(-1/2) prod s_j^(-1/2)
+                 exp(-sum (y_j - mu_hat)^2 / (2 s_j) - mu_hat^2 / 50),
+then mu | tau, y ~ N(mu_hat, 1/P) and
+    theta_j | mu, tau, y ~ N(V_j (y_j / sigma_j^2 + mu / tau^2), V_j)
 with V_j = 1 / (1/sigma_j^2 + 1/tau^2) (completing the square; BDA3 equations 5.17-5.20).
 So theta_1 | tau, y is normal with mean m(tau) = V_1 (y_1/sigma_1^2 + mu_hat/tau^2) and variance
 V_1 + (V_1/tau^2)^2 / P, and its distribution function is the p(tau | y)-mixture of those.

@@ -33,9 +33,7 @@ from worker.samplers import SamplerSettings
 LEVELS = (0.01, 0.05, 0.25, 0.5, 0.75, 0.95, 0.99)
 
 
-def _assert_checks_with_power(
-    checks: list[Check], scaled_checks: dict[float, list[Check]]
-) -> None:
+def _assert_checks_with_power(checks: list[Check], scaled_checks: dict[float, list[Check]]) -> None:
     strongest = max(checks, key=lambda c: c.shift_per_scale_error)
     print(
         f"{len(checks)} checks, largest |z| {max(abs(c.z) for c in checks):.2f}; a 2 % sd error "
