@@ -98,7 +98,7 @@ def leapfrog_total(runtime: Runtime, keys: list[tuple[str, int]]) -> int:
                 .where(
                     Chain.job_id.in_(jobs),
                     ChainArray.kind == "stat",
-                    ChainArray.name == "leapfrog_steps",
+                    ChainArray.name == "gradient_calls",
                 )
             ).all()
         for key in missing:

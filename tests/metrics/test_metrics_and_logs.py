@@ -110,7 +110,7 @@ def test_metrics_match_the_store_and_worker_logs_are_json_lines(
         assert sample(families, "drawyard_chain_duration_seconds_bucket", le=str(bound)) == expected
     for job_id in ids[:2]:
         stats = requests.get(f"{base}/v1/jobs/{job_id}/sampler-stats", timeout=30).json()
-        column = stats["statistics"].index("leapfrog_steps")
+        column = stats["statistics"].index("gradient_calls")
         steps = [sum(row[column] for row in chain["draws"]) for chain in stats["chains"]]
         stored = sorted((c.chain_index, c.sampling_gradient_evaluations) for c in chains
                         if c.job_id == job_id)  # fmt: skip

@@ -54,7 +54,7 @@ def test_upgrade_from_0004_keeps_chains_and_leaves_their_counts_null(unmigrated_
     try:
         with engine.connect() as connection:
             version = connection.execute(text("SELECT version_num FROM alembic_version")).scalar()
-            assert version == "0005"
+            assert version == "0006"
             columns = {c["name"] for c in inspect(connection).get_columns("chains")}
             assert set(COLUMNS) <= columns
             row = connection.execute(
@@ -132,7 +132,7 @@ def test_stored_counts_are_the_engines_and_reused_chains_have_none(
         runtime.close()
 
 
-def test_chains_stored_before_the_counts_fall_back_to_leapfrog_steps(
+def test_chains_stored_before_the_counts_fall_back_to_gradient_calls(
     database_url: str, redis_url: str
 ):
     app = create_app({"database_url": database_url, "broker_url": redis_url})
@@ -156,7 +156,7 @@ def test_chains_stored_before_the_counts_fall_back_to_leapfrog_steps(
         report = client.get(f"/v1/jobs/{job['id']}/diagnostics").get_json()["sampler"]
         assert report["gradient_evaluations_per_chain"] == [None]
         stats = client.get(f"/v1/jobs/{job['id']}/sampler-stats").get_json()
-        column = stats["statistics"].index("leapfrog_steps")
+        column = stats["statistics"].index("gradient_calls")
         steps = sum(row[column] for row in stats["chains"][0]["draws"])
         assert steps == counted  # NUTS: one gradient per leapfrog step in sampling
         with runtime.sessions() as session:

@@ -38,7 +38,7 @@ def test_upgrade_from_0003_keeps_existing_jobs_and_adds_the_registry(unmigrated_
     try:
         with engine.connect() as connection:
             assert connection.execute(text("SELECT version_num FROM alembic_version")).scalar() == (
-                "0005"
+                "0006"
             )
             columns = {c["name"] for c in inspect(connection).get_columns("jobs")}
             assert {"model_name", "model_version", "run_sha256", "reused_from",
