@@ -79,7 +79,7 @@ ADVICE: dict[str, Advice] = {
         "coefficients of raw, collinear covariates.",
         "Put the quantities on comparable scales: centre and scale covariates (or decorrelate "
         "them), give unknowns units of similar size, or reparameterise. For strong correlations "
-        'try the metric "dense". Raising maximum_tree_depth lets trajectories run longer but '
+        'try the preconditioning "full". Raising maximum_tree_depth lets trajectories run longer but '
         "makes every iteration slower and seldom removes the cause.",
     ),
 }

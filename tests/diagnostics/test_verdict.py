@@ -216,8 +216,8 @@ def _depth_report(depths_per_chain: list[list[int]], maximum: int = 10) -> dict:
     stats_per_chain = [
         {
             "divergent": np.zeros(len(d), dtype=bool),
-            "tree_depth": np.array(d),
-            "acceptance": np.full(len(d), 0.8),
+            "doublings": np.array(d),
+            "accept_probability": np.full(len(d), 0.8),
             "energy": np.random.default_rng(c).standard_normal(len(d)),
         }
         for c, d in enumerate(depths_per_chain)
@@ -250,5 +250,5 @@ def test_tree_depth_saturation_fails_above_its_share_and_names_the_chains() -> N
 
 
 def test_methods_without_trees_are_not_checked_for_depth() -> None:
-    report = sampler_checks([{"acceptance": np.full(50, 0.3)}], maximum_tree_depth=None)
+    report = sampler_checks([{"accept_probability": np.full(50, 0.3)}], maximum_tree_depth=None)
     assert not verdict([], report, {"min_ebfmi": None})["failed_checks"]

@@ -112,8 +112,9 @@ def test_ten_dimensional_student_t() -> None:
 
 @pytest.mark.slow
 def test_strongly_correlated_two_dimensional_gaussian() -> None:
-    """N(0, S) with sds (1, 3) and correlation 0.99, default (diagonal) metric: the metric cannot
-    remove the correlation, so trajectories are long and the U-turn checks do real work.
+    """N(0, S) with sds (1, 3) and correlation 0.99 under the default (per-coordinate)
+    preconditioning, which cannot remove the correlation: trajectories are long and the U-turn
+    checks do real work.
 
     Exact: x_1 ~ N(0, 1), x_2 ~ N(0, 9), and the principal directions
     (x_1 + x_2 / 3) / sqrt(2 (1 + rho)) and (x_1 - x_2 / 3) / sqrt(2 (1 - rho)) are N(0, 1)
