@@ -79,8 +79,8 @@ ADVICE: dict[str, Advice] = {
         "coefficients of raw, collinear covariates.",
         "Put the quantities on comparable scales: centre and scale covariates (or decorrelate "
         "them), give unknowns units of similar size, or reparameterise. For strong correlations "
-        'try the preconditioning "full". Raising maximum_tree_depth lets trajectories run longer but '
-        "makes every iteration slower and seldom removes the cause.",
+        'try the preconditioning "full". Raising maximum_tree_depth lets trajectories run longer '
+        "but makes every iteration slower and seldom removes the cause.",
     ),
 }
 
