@@ -139,7 +139,7 @@ def test_transitions_from_exact_draws_of_the_eight_schools(
     from one-dimensional quadrature. Power for a 2 % error in sd(theta_1): theta_1 is a normal
     mixture over tau with kurtosis about 6.5 (measured on 2 million exact draws), so se(sd)/sd =
     sqrt((6.5 - 1) / (4 N)); with N = 100,000 that is 0.0037 and the error is 5.4 se; the
-    quantiles of tau near p = 0.75 carry more (f(q) q 0.02 / sqrt(p (1 - p) / N) = 6.4 se), above
+    quantiles of tau near p = 0.75 carry more (f(q) q 0.02 / sqrt(p (1 - p) / N) = 5.9 se), above
     the 5.7 needed (critical value 3.4 for 15 checks at family level 0.01, plus 2.33).
     At the adapted step size about 1 transition in 1,400 diverges (trajectories that reach
     large tau, where eta's conditional sd sigma_j / tau is smaller than the step size can
