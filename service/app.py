@@ -33,7 +33,7 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app.extensions["drawyard"] = runtime
     for blueprint in (jobs, results, models, health, metrics, web):
         app.register_blueprint(blueprint)
-    install_access(app, runtime, (jobs, results, models))
+    install_access(app, runtime, (jobs, results, models, metrics))
 
     @app.errorhandler(ApiProblem)
     def api_problem(problem: ApiProblem):

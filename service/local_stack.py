@@ -12,6 +12,7 @@ import contextlib
 import ctypes
 import json
 import os
+import secrets
 import shutil
 import signal
 import socket
@@ -24,6 +25,7 @@ from pathlib import Path
 
 import requests
 
+SESSION_SECRET_VARIABLES = ("DRAWYARD_SESSION_SECRET", "DRAWYARD_SESSION_SECRET_FILE")
 READY_PATH = "/v1/health/ready"
 LIVE_PATH = "/v1/health/live"
 APP_FACTORY = "service.app:create_app()"
@@ -270,6 +272,10 @@ class RedisServer:
 def service_env(database_url: str, broker_url: str, extra: Mapping[str, str] | None = None) -> dict:
     """The DRAWYARD_* settings the API and the workers share."""
     env = {"DRAWYARD_DATABASE_URL": database_url, "DRAWYARD_BROKER_URL": broker_url}
+    # One secret for the whole stack signs browser sessions, so any API process can read a cookie
+    # another made; a new one each start signs every browser out, which a local stack can afford.
+    if not any(name in os.environ for name in SESSION_SECRET_VARIABLES):
+        env["DRAWYARD_SESSION_SECRET"] = secrets.token_urlsafe(32)
     # Child Pythons must not buffer logs, or a crash loses the lines that explain it.
     env["PYTHONUNBUFFERED"] = "1"
     if extra:
