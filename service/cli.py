@@ -103,7 +103,10 @@ def build_parser() -> argparse.ArgumentParser:
         "tasks again (service/sweeper.py). Safe to run more than one.",
     )
     sweeper.add_argument("--once", action="store_true", help="sweep once and exit")
-    sweeper.set_defaults(run=lambda args: _sweeper_main(["--once"] if args.once else []))
+    sweeper.add_argument("--check", action="store_true",
+                         help="exit 0 if a sweep reached the store recently, else 1")
+    sweeper.set_defaults(run=lambda args: _sweeper_main(
+        ["--once"] * args.once + ["--check"] * args.check))
     add_keys_command(commands)
     from service.job_commands import add_job_commands
 

@@ -52,6 +52,8 @@ class Settings:
     # for a worker before its task is sent again (the broker may have lost it).
     sweep_interval: float = 10.0
     requeue_queued_after: float = 300.0
+    # A file the sweeper touches after each good sweep, for `drawyard sweeper --check`.
+    sweeper_heartbeat: str = ""
     # How often a running chain writes progress, renews its lease and looks at the cancel flag.
     progress_interval: float = 1.0
     # A lease not renewed for this long is taken to belong to a dead worker.

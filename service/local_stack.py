@@ -30,6 +30,7 @@ READY_PATH = "/v1/health/ready"
 LIVE_PATH = "/v1/health/live"
 APP_FACTORY = "service.app:create_app()"
 CELERY_APP = "worker.celery_app:celery_app"
+GUNICORN_CONFIG = "python:service.gunicorn_conf"
 
 _PR_SET_PDEATHSIG = 1
 
@@ -283,6 +284,30 @@ def service_env(database_url: str, broker_url: str, extra: Mapping[str, str] | N
     return env
 
 
+# What each long-running part runs, without the interpreter: docker-compose.yml runs the same
+# (tests/infra/test_compose.py compares them), so a local stack and a deployment cannot drift.
+def api_command(host: str, port: int, processes: int) -> list[str]:
+    return [
+        "gunicorn",
+        "--config", GUNICORN_CONFIG,
+        "--bind", f"{host}:{port}",
+        "--workers", str(processes),
+        APP_FACTORY,
+    ]
+
+
+def worker_command(name: str, concurrency: int) -> list[str]:
+    return [
+        "celery", "-A", CELERY_APP, "worker",
+        "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
+        "-n", name, "--loglevel", "INFO",
+    ]
+
+
+# The console command `drawyard sweeper` (pyproject's drawyard = service.cli:main).
+SWEEPER_COMMAND = ["service.cli", "sweeper"]
+
+
 def start_api(
     port: int,
     env: Mapping[str, str],
@@ -291,13 +316,7 @@ def start_api(
     processes: int = 1,
 ) -> ChildProcess:
     """gunicorn serving the app factory with the production settings of gunicorn_conf.py."""
-    argv = [
-        sys.executable, "-m", "gunicorn",
-        "--config", "python:service.gunicorn_conf",
-        "--bind", f"{host}:{port}",
-        "--workers", str(processes),
-        APP_FACTORY,
-    ]
+    argv = [sys.executable, "-m", *api_command(host, port, processes)]
     # SIGINT is gunicorn's quick shutdown; SIGTERM would wait for slow clients.
     return start_child("api", argv, log_path, env, stop_signal=signal.SIGINT, grace_seconds=10.0)
 
@@ -309,12 +328,9 @@ def start_worker(
     concurrency: int = 1,
 ) -> ChildProcess:
     """One Celery worker process (a main process plus `concurrency` pool processes)."""
-    argv = [
-        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
-        "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
-        "-n", f"w{index}@%h", "--loglevel", "INFO",
-        "--without-heartbeat", "--without-gossip", "--without-mingle",
-    ]
+    argv = [sys.executable, "-m", *worker_command(f"w{index}@%h", concurrency)]
+    # One machine: no worker-to-worker chatter to wait for at start-up.
+    argv += ["--without-heartbeat", "--without-gossip", "--without-mingle"]
     # Warm shutdown (SIGTERM) lets a running chain notice and stop; late acknowledgement puts any
     # unfinished chain back on the queue, so the grace period can be short.
     return start_child(f"worker {index}", argv, log_path, single_threaded_numerics(env),
@@ -339,7 +355,7 @@ def single_threaded_numerics(env: Mapping[str, str]) -> dict[str, str]:
 
 def start_sweeper(env: Mapping[str, str], log_path: Path) -> ChildProcess:
     """The sweeper (service/sweeper.py): requeues chains whose worker died or task was lost."""
-    argv = [sys.executable, "-m", "service.sweeper"]
+    argv = [sys.executable, "-m", *SWEEPER_COMMAND]
     return start_child("sweeper", argv, log_path, env, grace_seconds=5.0)
 
 
