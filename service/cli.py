@@ -208,7 +208,7 @@ def _sweeper_main(argv: list[str]) -> int:
 
 def run_worker(args: argparse.Namespace) -> NoReturn:
     argv = [
-        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
+        sys.executable, "-m", "celery", "-A", CELERY_APP, "--quiet", "worker",
         "--concurrency", str(args.concurrency), "--prefetch-multiplier", "1",
         "-n", args.name, "--loglevel", args.loglevel,
     ]

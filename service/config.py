@@ -86,8 +86,6 @@ class Settings:
     session_hours: float = 8.0
     # Log lines: "json" (one JSON object a line, for log collectors) or "text".
     log_format: str = "json"
-    # Seconds the metrics endpoint waits for workers to answer a ping.
-    metrics_ping_timeout: float = 1.0
 
     @property
     def effective_visibility_timeout(self) -> int:

@@ -297,8 +297,9 @@ def api_command(host: str, port: int, processes: int) -> list[str]:
 
 
 def worker_command(name: str, concurrency: int) -> list[str]:
+    # --quiet: no start-up banner, which is plain text among the JSON log lines.
     return [
-        "celery", "-A", CELERY_APP, "worker",
+        "celery", "-A", CELERY_APP, "--quiet", "worker",
         "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
         "-n", name, "--loglevel", "INFO",
     ]
@@ -306,6 +307,15 @@ def worker_command(name: str, concurrency: int) -> list[str]:
 
 # The console command `drawyard sweeper` (pyproject's drawyard = service.cli:main).
 SWEEPER_COMMAND = ["service.cli", "sweeper"]
+
+
+def metrics_env(folder: Path) -> dict[str, str]:
+    """The metrics folder every process of one stack shares (service/metrics.py), emptied first:
+    a new stack starts its counters from zero, as a restarted deployment may."""
+    folder.mkdir(parents=True, exist_ok=True)
+    for stale in folder.glob("*.db"):
+        stale.unlink()
+    return {"PROMETHEUS_MULTIPROC_DIR": str(folder)}
 
 
 def start_api(
@@ -436,6 +446,7 @@ class LocalStack:
             self.database_url = f"sqlite:///{(self.var_dir / 'drawyard.sqlite').resolve()}"
         try:
             env = self._choose_broker()
+            env.update(metrics_env(self.var_dir / "metrics"))
             env.update(self.extra_env)
             env = service_env(self.database_url, self.broker_url, env)
             run_migrations(self.database_url)

@@ -19,6 +19,7 @@ from service.callbacks import notify_problems, queue_callback_safely
 from service.canonical import NOT_JSON_NUMBER, non_finite_pointers, sha256_of_json
 from service.config import Settings
 from service.dispatch import send_chain_tasks
+from service.metrics import JOBS_SUBMITTED
 from service.problem_details import ApiProblem
 from service.registry import ModelReference, reference_problems, resolve_reference
 from service.reuse import copy_result, find_source, run_fingerprint, wants_reuse
@@ -391,6 +392,7 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
     if source is not None:
         # Final from the start: a completion callback, if asked for, goes out now.
         queue_callback_safely(runtime, job.id)
+        JOBS_SUBMITTED.inc()
         return Accepted(job, created=True)
     try:
         send_chain_tasks(runtime.celery, runtime.settings.queue, job.id, chains)
@@ -409,4 +411,5 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
             "The job could not be queued and was marked failed; try again shortly.",
             headers={"Retry-After": "5"},
         ) from error
+    JOBS_SUBMITTED.inc()
     return Accepted(job, created=True)

@@ -6,7 +6,7 @@ from __future__ import annotations
 from flask import Blueprint, Response, render_template, request
 
 from service.access.tenancy import current_identity
-from service.problem_details import ApiProblem, problem_response
+from service.problem_details import ApiProblem, note_problem, problem_response
 from service.web.access import check_access, form_token, set_form_cookie
 
 web = Blueprint(
@@ -48,5 +48,6 @@ def security_headers(response: Response) -> Response:
 def problem_page(problem: ApiProblem):
     if request.endpoint == PLOT_ENDPOINT:
         return problem_response(problem, request.path)
+    note_problem(problem.slug)
     page = render_template("error.html", problem=problem)
     return page, problem.status, problem.headers
