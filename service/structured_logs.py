@@ -17,6 +17,7 @@ import sys
 from datetime import UTC, datetime
 from typing import Any
 
+from service.access.redaction import redact
 from service.config import Settings
 
 job_id_var: contextvars.ContextVar[str | None] = contextvars.ContextVar("job_id", default=None)
@@ -65,8 +66,10 @@ class JsonLineFormatter(logging.Formatter):
             document.update({k: v for k, v in extra.items() if k not in document})
         if record.exc_info:
             document["exception"] = self.formatException(record.exc_info)
-        # default=str: a stray object in a message argument must not lose the line.
-        return json.dumps(document, default=str)
+        # default=str: a stray object in a message argument must not lose the line. Credentials
+        # are blanked in the whole line, so a key sent where none belongs (a request id, a path)
+        # is caught as well as one in the message.
+        return redact(json.dumps(document, default=str))
 
 
 def configure_logging(settings: Settings, level: int = logging.INFO) -> None:
