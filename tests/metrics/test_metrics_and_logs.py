@@ -1,4 +1,4 @@
-"""The metrics endpoint and the structured logs, against the store, Redis, gunicorn and real workers.
+"""The metrics endpoint and the structured logs: store, Redis, gunicorn and real workers.
 
 The scrape is parsed with prometheus_client's parser (the reference reader of the Prometheus text
 exposition format, from PyPI), and every number is recomputed from the store with plain SQL and
