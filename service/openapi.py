@@ -313,6 +313,17 @@ def _operation(method: str, path: str) -> dict[str, Any]:
         }
         for name, text in QUERY_PARAMETERS.get((method, path), [])
     ]
+    parameters.append(
+        {
+            "name": REQUEST_ID_HEADER,
+            "in": "header",
+            "required": False,
+            "description": "An id for this request (1 to 128 of A-Z a-z 0-9 - . _ :); any other "
+            "value is replaced by a new id. Answered in X-Request-Id and written on every log "
+            "line the request causes.",
+            "schema": {"type": "string"},
+        }
+    )
     if (method, path) in CONDITIONAL:
         parameters.append(
             {
