@@ -2,16 +2,22 @@
 
 Only URLs under a configured prefix are accepted (DRAWYARD_CALLBACK_ALLOW), so a submission cannot
 make the workers call arbitrary hosts. The body is the job's status document, exactly as
-GET /v1/jobs/<id> returns it. The signature is HMAC-SHA256 (Krawczyk, Bellare, Canetti 1997,
-RFC 2104) keyed with DRAWYARD_CALLBACK_SECRET over ``<timestamp>.<body bytes>``; the timestamp is
-sent in its own header and is part of the signed message, so a receiver that rejects old
-timestamps cannot be fed a recorded request again. Delivery runs in a Celery task that retries
-with doubling delays up to DRAWYARD_CALLBACK_ATTEMPTS attempts; every attempt is written to the
-job's event log.
+GET /v1/jobs/<id> returns it. It is signed as the Standard Webhooks specification (an open
+specification for signed webhooks, standardwebhooks.com) says: headers ``webhook-id`` (one id per
+job's callback, the same on every retry, so a receiver can drop duplicates), ``webhook-timestamp``
+(Unix seconds of this attempt) and ``webhook-signature``: ``v1,`` and the base64 of the
+HMAC-SHA256 (RFC 2104) of ``<id>.<timestamp>.<body bytes>``. The key is the secret
+DRAWYARD_CALLBACK_SECRET: in the specification's form ``whsec_<base64>`` it is the decoded bytes;
+any other string is used as its UTF-8 bytes. The timestamp is part of the signed message, so a
+receiver that rejects old timestamps cannot be fed a recorded request again. Delivery runs in a
+Celery task that retries with doubling delays up to DRAWYARD_CALLBACK_ATTEMPTS attempts; every
+attempt is written to the job's event log.
 """
 
 from __future__ import annotations
 
+import base64
+import binascii
 import hashlib
 import hmac
 import json
@@ -35,9 +41,11 @@ from worker.problems import Problem
 
 log = logging.getLogger(__name__)
 
-SIGNATURE_HEADER = "X-Drawyard-Signature"
-TIMESTAMP_HEADER = "X-Drawyard-Timestamp"
-ATTEMPT_HEADER = "X-Drawyard-Attempt"
+ID_HEADER = "webhook-id"
+SIGNATURE_HEADER = "webhook-signature"
+TIMESTAMP_HEADER = "webhook-timestamp"
+ATTEMPT_HEADER = "drawyard-attempt"  # ours, beside the specification's three
+SECRET_PREFIX = "whsec_"
 POINTER = "/notify/url"
 # The task is sent by name so the API needs no task code imported (as in service/dispatch.py).
 DELIVER_CALLBACK = "drawyard.deliver_callback"
@@ -85,10 +93,26 @@ def notify_problems(body: Any, settings: Settings) -> list[Problem]:
     return []
 
 
-def sign(secret: str, timestamp: str, body: bytes) -> str:
-    """The signature header's value: ``sha256=`` and the hex HMAC of ``timestamp.body``."""
-    digest = hmac.new(secret.encode(), timestamp.encode() + b"." + body, hashlib.sha256)
-    return "sha256=" + digest.hexdigest()
+def signing_key(secret: str) -> bytes:
+    """The HMAC key: a ``whsec_`` secret's base64-decoded bytes, else the secret's UTF-8 bytes."""
+    if secret.startswith(SECRET_PREFIX):
+        try:
+            return base64.b64decode(secret[len(SECRET_PREFIX) :], validate=True)
+        except binascii.Error:
+            pass  # not base64 after all: the whole string is the key
+    return secret.encode()
+
+
+def sign(secret: str, message_id: str, timestamp: str, body: bytes) -> str:
+    """The webhook-signature value: `v1,` and the base64 HMAC-SHA256 of `id.timestamp.body`."""
+    signed = message_id.encode() + b"." + timestamp.encode() + b"." + body
+    digest = hmac.new(signing_key(secret), signed, hashlib.sha256).digest()
+    return "v1," + base64.b64encode(digest).decode()
+
+
+def message_id(job_id: str) -> str:
+    """One id per job's completion callback, kept across retries (a job ends only once)."""
+    return f"msg_{job_id}"
 
 
 def callback_url(runtime: Runtime, job_id: str) -> str | None:
@@ -152,9 +176,11 @@ def deliver(runtime: Runtime, job_id: str, attempt: int) -> Outcome:
     job, chains = _job_and_chains(runtime, job_id)
     body = json.dumps(job_resource(job, chains), separators=(",", ":")).encode()
     timestamp = str(int(time.time()))
+    identity = message_id(job_id)
     headers = {
         "Content-Type": "application/json",
-        SIGNATURE_HEADER: sign(settings.callback_secret, timestamp, body),
+        ID_HEADER: identity,
+        SIGNATURE_HEADER: sign(settings.callback_secret, identity, timestamp, body),
         TIMESTAMP_HEADER: timestamp,
         ATTEMPT_HEADER: str(attempt),
     }

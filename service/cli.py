@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import os
 import signal
+import socket
 import sys
 import textwrap
 import time
@@ -14,6 +15,8 @@ from typing import NoReturn
 
 from service.access.commands import add_keys_command, serve_host
 from service.local_stack import CELERY_APP, LocalStack, StartupError
+
+LOG_LEVELS = ("DEBUG", "INFO", "WARNING", "ERROR")
 
 BANNER_WIDTH = 78
 
@@ -79,11 +82,14 @@ def _add_worker(commands: argparse._SubParsersAction) -> None:
             "to the store in DRAWYARD_DATABASE_URL. Start one per core."
         ),
     )
-    worker.add_argument("--concurrency", type=int, default=1,
-                        help="pool processes in this worker (default: 1)")
-    worker.add_argument("--name", default="worker@%h",
-                        help="worker node name (default: worker@%%h)")
-    worker.add_argument("--loglevel", default="INFO", help="log level (default: INFO)")
+    worker.add_argument("--processes", type=int, default=1,
+                        help="chains this worker runs side by side, one process each (default: 1)")
+    worker.add_argument("--name", default=None,
+                        help="this worker's name in logs and metrics (default: drawyard@<host>)")
+    worker.add_argument("--logging", default="INFO", choices=LOG_LEVELS,
+                        help="the least severe log records written (default: INFO)")
+    worker.add_argument("library_options", nargs=argparse.REMAINDER, metavar="-- OPTION",
+                        help="after --, options passed unchanged to the queue library's worker")
     worker.set_defaults(run=run_worker)
 
 
@@ -207,10 +213,14 @@ def _sweeper_main(argv: list[str]) -> int:
 
 
 def run_worker(args: argparse.Namespace) -> NoReturn:
+    name = args.name or f"drawyard@{socket.gethostname()}"
+    passed = [o for o in args.library_options if o != "--"]
+    # drawyard's words mapped onto the library's options; one task per process at a time, so a
+    # long chain never holds a second one back
     argv = [
         sys.executable, "-m", "celery", "-A", CELERY_APP, "--quiet", "worker",
-        "--concurrency", str(args.concurrency), "--prefetch-multiplier", "1",
-        "-n", args.name, "--loglevel", args.loglevel,
+        "--concurrency", str(args.processes), "--prefetch-multiplier", "1",
+        "-n", name, "--loglevel", args.logging, *passed,
     ]
     # Replace this process so that signals from a supervisor reach the worker itself.
     os.execv(sys.executable, argv)

@@ -34,10 +34,11 @@ class Settings:
     # Folder of the serverless broker used when broker_url is "filesystem://" (one machine only).
     broker_folder: str = "var/broker"
     queue: str = "drawyard"
-    # A JSON object of extra broker transport options, merged over the ones derived here.
-    broker_transport_options: str = ""
+    # A pass-through: a JSON object of the queue library's own transport options (its names),
+    # merged over the ones derived here.
+    broker_library_options: str = ""
     # Seconds; 0 means "derive from chain_time_limit" so a running chain is never redelivered.
-    visibility_timeout: int = 0
+    redelivery_timeout: int = 0
     chain_time_limit: int = 3600
     max_chains: int = 16
     max_draws: int = 100_000
@@ -88,10 +89,10 @@ class Settings:
     log_format: str = "json"
 
     @property
-    def effective_visibility_timeout(self) -> int:
+    def effective_redelivery_timeout(self) -> int:
         """The broker's redelivery timeout: explicit, or longer than the longest allowed chain."""
-        if self.visibility_timeout > 0:
-            return self.visibility_timeout
+        if self.redelivery_timeout > 0:
+            return self.redelivery_timeout
         # Margin covers queueing behind other chains on the same worker process and the finish.
         return self.chain_time_limit + max(600, self.chain_time_limit // 4)
 
@@ -153,11 +154,11 @@ def load_settings(
             values.get("database_url", Settings.database_url), values["database_password"]
         )
     settings = Settings(**values)
-    if 0 < settings.visibility_timeout <= settings.chain_time_limit:
+    if 0 < settings.redelivery_timeout <= settings.chain_time_limit:
         log.warning(
-            "visibility timeout %ss is not longer than the chain time limit %ss: the broker will "
+            "redelivery timeout %ss is not longer than the chain time limit %ss: the broker will "
             "redeliver long chains (the chain lease drops the duplicates)",
-            settings.visibility_timeout,
+            settings.redelivery_timeout,
             settings.chain_time_limit,
         )
     return settings

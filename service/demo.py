@@ -70,8 +70,8 @@ def bakery_model() -> dict[str, Any]:
             {"name": "weekly_orders", "observed": "orders", "distribution": "poisson",
              "arguments": {"log_rate": "branch_log_orders[branch] + promotion_effect * promotion"}},
         ],
-        "generated": {
-            "quantities": {
+        "per_draw": {
+            "formulas": {
                 "typical_weekly_orders": "exp(mean_log_orders)",
                 "promotion_uplift": "exp(promotion_effect) - 1",
             },
@@ -141,14 +141,15 @@ def fixed(value: Any, decimals: int) -> str:
 
 
 def summary_table(quantities: list[dict[str, Any]], truth: dict[str, float]) -> str:
-    quantile_keys = list(quantities[0]["quantiles"]) if quantities else []
-    header = ["quantity", "mean", *quantile_keys, "R-hat", "bulk ESS",
+    level = quantities[0]["interval"]["level"] if quantities else 0.0
+    header = ["quantity", "median", f"{100 * level:g}% from", "to", "mean", "R-hat", "bulk ESS",
               "tail ESS", "true"]
     rows = [header]
     for q in quantities:
         rows.append([
-            q["name"], format_number(q.get("mean")),
-            *(format_number(q["quantiles"][k]) for k in quantile_keys),
+            q["name"], format_number(q.get("median")),
+            format_number(q["interval"]["lower"]), format_number(q["interval"]["upper"]),
+            format_number(q.get("mean")),
             fixed(q.get("rhat"), 3), fixed(q.get("bulk_ess"), 0), fixed(q.get("tail_ess"), 0),
             format_number(truth.get(q["name"])),
         ])
@@ -225,7 +226,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--broker", default="auto",
                         help="'auto' (redis-server if installed, else filesystem), 'redis', "
                              "'filesystem' or a broker URL")
-    parser.add_argument("--concurrency", type=int, default=2,
+    parser.add_argument("--processes", type=int, default=2,
                         help="pool processes of the one worker (chains run side by side)")
     parser.add_argument("--timeout", type=float, default=300.0,
                         help="seconds to wait for the job before giving up")
@@ -242,7 +243,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         flush=True,
     )
     stack = LocalStack(var_dir=args.var.resolve(), broker=args.broker, workers=1,
-                       concurrency=args.concurrency)
+                       concurrency=args.processes)
     try:
         stack.start()
     except StartupError as error:

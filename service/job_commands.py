@@ -147,7 +147,7 @@ def build_submission(args: argparse.Namespace) -> dict[str, Any]:
         "seed": args.seed,
         "target_acceptance": args.target_acceptance,
         "maximum_tree_depth": args.maximum_tree_depth,
-        "metric": args.metric,
+        "preconditioning": args.preconditioning,
     }
     sampler.update({name: value for name, value in chosen.items() if value is not None})
     for item in args.set:
@@ -157,11 +157,15 @@ def build_submission(args: argparse.Namespace) -> dict[str, Any]:
     for item in args.check:
         name, value = _pair(item, "=", "--check")
         checks[name] = _json_value(value)
+    summary = _member(body, "summary", args.settings)
+    if args.interval_level is not None:
+        summary["interval"] = args.interval_level
     labels = _member(body, "labels", args.settings)
     for item in args.label:
         key, value = _pair(item, "=", "--label")
         labels[key] = value
-    for name, member in (("sampler", sampler), ("checks", checks), ("labels", labels)):
+    members = (("sampler", sampler), ("summary", summary), ("checks", checks), ("labels", labels))
+    for name, member in members:
         if member or name in body:
             body[name] = member
     return body
@@ -497,11 +501,11 @@ def _submission_options() -> argparse.ArgumentParser:
                                "settings and seed succeeded (default: return that result at once)")
     registry.add_argument("--warm-start", default=None, metavar="JOB",
                           help="start from this earlier succeeded job of the same model: its "
-                               "adapted step size, metric and final positions")
+                               "adapted step size, preconditioning and final positions")
     group = common.add_argument_group("sampler and checks")
     group.add_argument("--settings", type=Path, default=None, metavar="FILE",
-                       help="a JSON file with any of the submission members 'sampler', 'checks' "
-                            "and 'labels'; the options below override it")
+                       help="a JSON file with any of the submission members 'sampler', "
+                            "'summary', 'checks' and 'labels'; the options below override it")
     group.add_argument("--method", choices=("nuts", "hmc", "metropolis"), default=None)
     group.add_argument("--chains", type=int, default=None, metavar="N")
     group.add_argument("--warmup", type=int, default=None, metavar="N",
@@ -512,9 +516,13 @@ def _submission_options() -> argparse.ArgumentParser:
                        help="seed of the whole job (default: drawn by the service and recorded)")
     group.add_argument("--target-acceptance", type=float, default=None, metavar="P")
     group.add_argument("--maximum-tree-depth", type=int, default=None, metavar="N")
-    group.add_argument("--metric", choices=("diagonal", "dense", "unit"), default=None)
+    group.add_argument("--preconditioning", choices=("none", "per_coordinate", "full"),
+                       default=None)
+    group.add_argument("--interval-level", type=float, default=None, metavar="LEVEL",
+                       help="the level of each quantity's central interval in the summary "
+                            "(default 0.8)")
     group.add_argument("--set", action="append", default=[], metavar="NAME=JSON",
-                       help="any other sampler setting, e.g. --set init_radius=1 (repeatable)")
+                       help="any other sampler setting, e.g. --set start_spread=1 (repeatable)")
     group.add_argument("--check", action="append", default=[], metavar="NAME=JSON",
                        help="a quality-check threshold, e.g. --check min_bulk_ess=1000 or "
                             "--check max_divergences=null to switch one off (repeatable)")

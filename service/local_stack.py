@@ -427,8 +427,8 @@ class LocalStack:
             env["DRAWYARD_BROKER_FOLDER"] = str(folder)
             # The filesystem transport finds new messages by polling the folder, once a second by
             # default; a fifth of a second keeps chains from idling in the queue for long.
-            if "DRAWYARD_BROKER_TRANSPORT_OPTIONS" not in os.environ:
-                env["DRAWYARD_BROKER_TRANSPORT_OPTIONS"] = json.dumps({"polling_interval": 0.2})
+            if "DRAWYARD_BROKER_LIBRARY_OPTIONS" not in os.environ:
+                env["DRAWYARD_BROKER_LIBRARY_OPTIONS"] = json.dumps({"polling_interval": 0.2})
             self.broker_note = f"filesystem broker in {folder} (single machine only)"
             self.broker_warning = (
                 f"SERVERLESS FILESYSTEM BROKER in {folder}: SINGLE MACHINE ONLY. Workers on other "

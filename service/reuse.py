@@ -1,7 +1,8 @@
 """Result reuse: a job that would repeat an earlier succeeded one gets that result at once.
 
 A chain's draws are fixed by the spec, the data, the resolved settings (the seed and the number of
-chains among them), the warm-start source and the engine's code; the verdict also by the checks.
+chains among them), the warm-start source and the engine's code; the verdict also by the checks,
+and the summary by its interval level.
 Their canonical-JSON SHA-256 is the job's ``run_sha256``. A new submission whose fingerprint
 matches an earlier succeeded job of the same tenant, and whose submitter gave the seed (a drawn
 seed is new each time, so nothing could match), becomes a job of its own that is succeeded from
@@ -29,13 +30,16 @@ def run_fingerprint(
     resolved: dict[str, Any],
     checks: Any,
     warm_start_from: str | None,
+    summary_interval: float,
 ) -> str:
-    """SHA-256 of everything that fixes a job's draws and verdict, engine version included."""
+    """SHA-256 of everything that fixes a job's draws, summary and verdict, engine version
+    included."""
     return sha256_of_json(
         {
             "model": spec_sha256,
             "data": data_sha256,
             "settings": resolved,
+            "summary_interval": float(summary_interval),
             "checks": verdict_thresholds(checks),
             "warm_start_from": warm_start_from,
             # An upgrade of drawyard or of the numerical libraries may change the draws; a

@@ -320,8 +320,11 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
     tenant = current_tenant()
     spec_sha256 = sha256_of_json(stored["model"])
     data_sha256 = sha256_of_json(stored.get("data") or {})
+    from worker.runner import summary_interval
+
     run_sha256 = run_fingerprint(
-        spec_sha256, data_sha256, resolved, stored.get("checks"), prepared.warm_start_from
+        spec_sha256, data_sha256, resolved, stored.get("checks"), prepared.warm_start_from,
+        summary_interval(stored),
     )
     source = None
     if wants_reuse(body):

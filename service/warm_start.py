@@ -25,9 +25,10 @@ from service.store.models import Chain, Job, ModelVersion
 from worker.problems import Problem
 
 POINTER = "/warm_start/job"
-# What an earlier chain's adapted state holds depends on the method's family: a step size and an
-# inverse metric (NUTS, static HMC) or a proposal covariance and scale (adaptive Metropolis). The
-# engine (worker/warm_start.py) starts a chain from a record of its own family only.
+# What an earlier chain's adapted state holds depends on the method's family: a step size with
+# per-coordinate scales or a full covariance (NUTS, static HMC), or a proposal covariance and
+# scale (adaptive Metropolis). The engine (worker/warm_start.py) starts a chain from a record of
+# its own family only.
 METHOD_FAMILIES = {"nuts": "Hamiltonian", "hmc": "Hamiltonian", "metropolis": "Metropolis"}
 WARM_START_METHODS = tuple(METHOD_FAMILIES)
 # The warm-up a warm-started job gets when its submission sets none: a quarter of the cold

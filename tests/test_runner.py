@@ -38,7 +38,7 @@ def normal_mean_body(method: str = "nuts", **sampler) -> dict:
                     "arguments": {"location": "mu", "scale": 2},
                 }
             ],
-            "generated": {"replicates": ["obs"]},
+            "per_draw": {"replicates": ["obs"]},
         },
         "data": {"n": len(Y), "y": Y},
         "sampler": {
@@ -95,7 +95,7 @@ def test_the_sampler_report_counts_each_chains_evaluations_by_phase(method: str)
             assert density["sampling"] == 150 and density["warmup"] > 150
         else:
             # one gradient per leapfrog step in sampling; initialisation and searches in warm-up
-            assert gradient["sampling"] == int(stats["leapfrog_steps"].sum())
+            assert gradient["sampling"] == int(stats["gradient_calls"].sum())
             assert gradient["warmup"] > 150 and density == {"warmup": 0, "sampling": 0}
 
 
@@ -179,12 +179,12 @@ def test_resolve_sampler_fills_every_default() -> None:
         ({"seed": -1}, ["/sampler/seed"]),
         ({"target_acceptance": 1.0}, ["/sampler/target_acceptance"]),
         ({"maximum_tree_depth": 0}, ["/sampler/maximum_tree_depth"]),
-        ({"metric": "full"}, ["/sampler/metric"]),
+        ({"preconditioning": "dense"}, ["/sampler/preconditioning"]),
         ({"integration_time": -1}, ["/sampler/integration_time"]),
         ({"jitter": "yes"}, ["/sampler/jitter"]),
         ({"divergence_threshold": float("inf")}, ["/sampler/divergence_threshold"]),
         ({"initialisation": "given"}, ["/sampler/initial_values"]),
-        ({"init_radius": 0}, ["/sampler/init_radius"]),
+        ({"start_spread": 0}, ["/sampler/start_spread"]),
         ({"step_size": 0.1}, ["/sampler/step_size"]),
         ({"initial_values": [{"mu": 1.0}]}, ["/sampler/initial_values"]),
         ({"initial_values": {"mu": [1.0, 2.0]}}, ["/sampler/initial_values/mu"]),

@@ -55,11 +55,13 @@ def location_scale_body(y: list[float], method: str = "nuts", **sampler) -> dict
 _EARLIER: dict[str, dict] = {}
 
 
-def earlier(method: str = "nuts", metric: str = "diagonal") -> dict:
+def earlier(method: str = "nuts", preconditioning: str = "per_coordinate") -> dict:
     """Day 1's fit (cached: several tests start from it)."""
-    key = f"{method}/{metric}"
+    key = f"{method}/{preconditioning}"
     if key not in _EARLIER:
-        _EARLIER[key] = runner.run_in_process(location_scale_body(Y_DAY_1, method, metric=metric))
+        _EARLIER[key] = runner.run_in_process(
+            location_scale_body(Y_DAY_1, method, preconditioning=preconditioning)
+        )
     return _EARLIER[key]
 
 
@@ -90,7 +92,8 @@ def test_chain_k_starts_from_record_k_mod_n() -> None:
         chain = runner.start_chain(body, k).chain
         record = records[k % 2]
         assert chain.state.position.tolist() == record["position"]
-        assert chain.metric.inverse.tolist() == record["inverse_metric"]
+        # per-coordinate records hold scales: the chain's inverse metric is their squares
+        assert chain.metric.inverse.tolist() == np.square(record["scales"]).tolist()
         assert chain.step_size == record["step_size"]
 
 
@@ -201,22 +204,23 @@ def _metropolis_record_for_nuts() -> dict:
         (lambda: _bad("step_size", float("inf")), ["/warm_start/chains/0/step_size"]),
         (lambda: _bad("step_size", "0.5"), ["/warm_start/chains/0/step_size"]),
         (lambda: _bad("step_size", ...), ["/warm_start/chains/0/step_size"]),
-        (lambda: _bad("metric", "full"), ["/warm_start/chains/0/metric"]),
-        (lambda: _bad("metric", "dense"), ["/warm_start/chains/0/inverse_metric"]),
-        (lambda: _bad("inverse_metric", [1.0]), ["/warm_start/chains/0/inverse_metric"]),
-        (lambda: _bad("inverse_metric", [1.0, 2.0, 3.0]), ["/warm_start/chains/0/inverse_metric"]),
-        (lambda: _bad("inverse_metric", [1.0, 0.0]), ["/warm_start/chains/0/inverse_metric"]),
-        (lambda: _bad("inverse_metric", [1.0, float("nan")]),
-         ["/warm_start/chains/0/inverse_metric"]),
-        (lambda: _bad("inverse_metric", [1.0, "x"]), ["/warm_start/chains/0/inverse_metric"]),
-        (lambda: _bad("inverse_metric", ...), ["/warm_start/chains/0/inverse_metric"]),
-        (lambda: _bad("inverse_metric", [[1.0, 0.5], [0.5, 1.0]]),
-         ["/warm_start/chains/0/inverse_metric"]),  # dense values under a diagonal 'metric'
+        (lambda: _bad("preconditioning", "dense"), ["/warm_start/chains/0/preconditioning"]),
+        (lambda: _bad("preconditioning", "full"), ["/warm_start/chains/0/scales"]),
+        (lambda: _bad("scales", [1.0]), ["/warm_start/chains/0/scales"]),
+        (lambda: _bad("scales", [1.0, 2.0, 3.0]), ["/warm_start/chains/0/scales"]),
+        (lambda: _bad("scales", [1.0, 0.0]), ["/warm_start/chains/0/scales"]),
+        (lambda: _bad("scales", [1.0, float("nan")]), ["/warm_start/chains/0/scales"]),
+        (lambda: _bad("scales", [1.0, "x"]), ["/warm_start/chains/0/scales"]),
+        (lambda: _bad("scales", ...), ["/warm_start/chains/0"]),
+        (lambda: _bad("scales", [[1.0, 0.5], [0.5, 1.0]]),
+         ["/warm_start/chains/0/scales"]),  # a matrix where per-coordinate scales belong
+        (lambda: _bad("covariance", [[1.0, 0.5], [0.5, 1.0]]),
+         ["/warm_start/chains/0/covariance"]),  # both scales and a covariance
         (lambda: _bad("position", [0.1]), ["/warm_start/chains/0/position"]),
         (lambda: _bad("position", [0.1, 0.2, 0.3]), ["/warm_start/chains/0/position"]),
         (lambda: _bad("position", [0.1, float("inf")]), ["/warm_start/chains/0/position"]),
         (lambda: _bad("position", "here"), ["/warm_start/chains/0/position"]),
-        (lambda: _bad("tree_depth", 3), ["/warm_start/chains/0/tree_depth"]),
+        (lambda: _bad("doublings", 3), ["/warm_start/chains/0/doublings"]),
         (_metropolis_record_for_nuts, ["/warm_start/chains/0", "/warm_start/chains/1"]),
     ],
 )  # fmt: skip
@@ -234,14 +238,16 @@ def test_bad_warm_starts_give_problems_with_pointers(make, pointers: list) -> No
     [
         ([[1.0, 0.5], [0.4, 1.0]], "symmetric"),
         ([[1.0, 2.0], [2.0, 1.0]], "positive definite"),
-        ([[1.0, 0.0], [0.0]], "must be a list"),
+        ([[1.0, 0.0], [0.0]], "must be 2 lists of 2 numbers"),
     ],
 )
-def test_bad_dense_metrics_say_what_is_wrong(inverse: list, message: str) -> None:
-    body = warm_body(metric="dense")
-    body["warm_start"]["chains"][1].update(metric="dense", inverse_metric=inverse)
+def test_bad_full_covariances_say_what_is_wrong(inverse: list, message: str) -> None:
+    body = warm_body(preconditioning="full")
+    record = body["warm_start"]["chains"][1]
+    del record["scales"]
+    record.update(preconditioning="full", covariance=inverse)
     problems = runner.check_submission(body)
-    assert [p.pointer for p in problems] == ["/warm_start/chains/1/inverse_metric"]
+    assert [p.pointer for p in problems] == ["/warm_start/chains/1/covariance"]
     assert message in problems[0].message
 
 
@@ -278,7 +284,8 @@ def test_a_position_impossible_under_the_new_data_is_a_problem() -> None:
         "warm_start": {
             "job": "day-1",
             "chains": [
-                {"step_size": 0.5, "metric": "diagonal", "inverse_metric": [0.1], "position": [1.5]}
+                {"step_size": 0.5, "preconditioning": "per_coordinate", "scales": [0.3],
+                 "position": [1.5]}
             ],
         },  # fmt: skip
     }
@@ -297,11 +304,11 @@ def test_a_record_without_a_position_starts_as_the_settings_say() -> None:
     assert warm_position.tolist() != body["warm_start"]["chains"][1]["position"]
 
 
-def test_a_dense_job_starts_from_diagonal_records() -> None:
-    body = warm_body(metric="dense")
+def test_a_full_job_starts_from_per_coordinate_records() -> None:
+    body = warm_body(preconditioning="full")
     assert runner.check_submission(body) == []
     chain = runner.start_chain(body, 0).chain
     record = body["warm_start"]["chains"][0]
-    np.testing.assert_array_equal(chain.metric.inverse, np.diag(record["inverse_metric"]))
+    np.testing.assert_array_equal(chain.metric.inverse, np.diag(np.square(record["scales"])))
     outcome = runner.run_in_process(body)
-    assert all(a["metric"] == "dense" for a in outcome["adapted"])
+    assert all(a["preconditioning"] == "full" and "covariance" in a for a in outcome["adapted"])

@@ -18,10 +18,10 @@ from service.structured_logs import install_worker_logging
 def broker_options(settings: Settings) -> tuple[str, dict]:
     """The broker URL and its transport options for ``settings``."""
     url, options = _derived_broker_options(settings)
-    if settings.broker_transport_options.strip():
-        extra = json.loads(settings.broker_transport_options)
+    if settings.broker_library_options.strip():
+        extra = json.loads(settings.broker_library_options)
         if not isinstance(extra, dict):
-            raise ValueError("DRAWYARD_BROKER_TRANSPORT_OPTIONS must be a JSON object")
+            raise ValueError("DRAWYARD_BROKER_LIBRARY_OPTIONS must be a JSON object")
         options.update(extra)
     return url, options
 
@@ -41,7 +41,7 @@ def _derived_broker_options(settings: Settings) -> tuple[str, dict]:
         }
     # Redis redelivers a message not acknowledged within the visibility timeout; it is longer than
     # the longest allowed chain so a running chain is not handed to a second worker.
-    return settings.broker_url, {"visibility_timeout": settings.effective_visibility_timeout}
+    return settings.broker_url, {"visibility_timeout": settings.effective_redelivery_timeout}
 
 
 def make_celery(settings: Settings | None = None) -> Celery:

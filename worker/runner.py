@@ -18,10 +18,11 @@ from typing import Any
 import numpy as np
 
 from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
+from worker.diagnostics.summary import DEFAULT_INTERVAL, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, EvaluationCounts, SamplerSettings
 from worker.samplers.chain import sampling_sequence
-from worker.samplers.settings import INITIALISATIONS, METHODS, METRICS
+from worker.samplers.settings import INITIALISATIONS, METHODS, PRECONDITIONINGS
 from worker.samplers.target import CountedTarget
 from worker.warm_start import (
     chain_state,
@@ -42,12 +43,13 @@ TREE_DEPTH_LIMIT = 30
 # engine sees it) and "reuse" (whether an earlier identical result may be returned) belong to the
 # service, which checks them; the engine ignores them. The engine checks and uses "warm_start".
 TOP_LEVEL_MEMBERS = (
-    "model", "data", "sampler", "checks", "labels", "notify", "model_ref", "reuse", "warm_start"
+    "model", "data", "sampler", "summary", "checks", "labels", "notify", "model_ref", "reuse",
+    "warm_start",
 )
 # settings of the runner itself, beside those of one chain (SamplerSettings)
 JOB_SETTINGS = ("chains", "seed", "initial_values")
 CHAIN_SETTINGS = tuple(f.name for f in dataclasses.fields(SamplerSettings))
-GENERATED_CHILD = 1  # DEVELOPERS.md: child 1 of a chain's sequence drives generated quantities
+GENERATED_CHILD = 1  # DEVELOPERS.md: child 1 of a chain's sequence drives the per-draw outputs
 
 ProgressCallback = Callable[[str, int, int], None]
 
@@ -109,12 +111,12 @@ def sampler_problems(
         "seed": lambda v: _integer_problem(v, 0, MAX_SEED, "seed"),
         "target_acceptance": _acceptance_problem,
         "maximum_tree_depth": lambda v: _integer_problem(v, 1, TREE_DEPTH_LIMIT, "depth limit"),
-        "metric": lambda v: _choice_problem(v, METRICS, "metric"),
+        "preconditioning": lambda v: _choice_problem(v, PRECONDITIONINGS, "preconditioning"),
         "integration_time": lambda v: _positive_problem(v, "integration time"),
         "jitter": _flag_problem,
         "divergence_threshold": lambda v: _positive_problem(v, "divergence threshold"),
         "initialisation": lambda v: _choice_problem(v, INITIALISATIONS, "initialisation"),
-        "init_radius": lambda v: _positive_problem(v, "initialisation radius"),
+        "start_spread": lambda v: _positive_problem(v, "start spread"),
         "initial_values": lambda v: None,  # checked against the model below
     }  # fmt: skip
     problems = []
@@ -247,6 +249,7 @@ def check_submission(
         problems.append(Problem("/data", "The data must be an object of input names to values."))
     sampler_found = sampler_problems(body.get("sampler"), max_chains, max_draws)
     problems.extend(sampler_found)
+    problems.extend(summary_problems(body.get("summary")))
     problems.extend(check_thresholds(body.get("checks")))
     problems.extend(member_problems(body.get("warm_start"), max_chains))
     if not problems:
@@ -254,6 +257,35 @@ def check_submission(
     if not problems:
         problems.extend(warm_start_problems(body))
     return problems
+
+
+SUMMARY_MEMBERS = ("interval",)
+
+
+def summary_problems(member: Any) -> list[Problem]:
+    """Problems with the ``summary`` member: how the posterior summary is laid out."""
+    if member is None:
+        return []
+    if not isinstance(member, dict):
+        return [Problem("/summary", "The summary settings must be an object, such as "
+                                    '{"interval": 0.9}.')]  # fmt: skip
+    problems = [
+        Problem(f"/summary/{escape_token(name)}", f"Unknown summary setting '{name}'; known: "
+                f"{', '.join(SUMMARY_MEMBERS)}.")
+        for name in member
+        if name not in SUMMARY_MEMBERS
+    ]  # fmt: skip
+    if "interval" in member:
+        message = interval_problem(member["interval"])
+        if message:
+            problems.append(Problem("/summary/interval", message))
+    return problems
+
+
+def summary_interval(body: dict) -> float:
+    """The central interval's level a checked body asks for (the default when it says none)."""
+    member = body.get("summary") or {}
+    return float(member.get("interval", DEFAULT_INTERVAL))
 
 
 def warm_start_problems(body: dict, model: Any = None) -> list[Problem]:
@@ -320,7 +352,7 @@ class ChainResult:
     """One chain's reported draws and per-draw sampler statistics (sampling phase only).
 
     ``values`` is (draws, quantities) float64 with columns ``names`` (unknowns, derived,
-    generated); ``stats`` as the sampler records them; ``adapted`` the final step size and metric
+    per_draw); ``stats`` as the sampler records them; ``adapted`` the final step size and metric
     (or proposal); ``completed`` False when the chain was stopped early; ``evaluations`` how often
     the chain evaluated the model, by phase (None when not known, e.g. a chain read back from a
     store that did not keep the counts).
@@ -368,7 +400,7 @@ class ChainRun:
         )
 
     def report(self, draws: np.ndarray) -> np.ndarray:
-        """Map unconstrained draws to reported rows, generated quantities from the chain's child 1.
+        """Map unconstrained draws to reported rows, per-draw outputs from the chain's child 1.
 
         A fresh generator from the same child for every call means the rows depend only on the
         draws, never on whether the chain was interrupted and resumed on the way.
@@ -376,7 +408,7 @@ class ChainRun:
         rng = np.random.default_rng(sampling_sequence(self.seed, GENERATED_CHILD))
         width = len(self.model.quantity_names)
         rows = np.empty((draws.shape[0], width), dtype=np.float64)
-        # the compiled model reports one draw at a time (generated quantities are random per draw)
+        # the compiled model reports one draw at a time (per-draw outputs are random per draw)
         for i, u in enumerate(draws):
             rows[i] = self.model.report(u, rng)
         return rows
@@ -454,7 +486,7 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
         raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
     draws = np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
-    summary = summarize(draws, list(results[0].names))
+    summary = summarize(draws, list(results[0].names), summary_interval(body))
     depth = resolved["maximum_tree_depth"] if resolved["method"] == "nuts" else None
     report = sampler_checks([dict(r.stats) for r in results], depth)
     report["step_size_per_chain"] = [

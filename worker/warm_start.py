@@ -2,8 +2,10 @@
 
 ``{"job": "<earlier job id>", "chains": [record, ...]}``. Each record is an earlier chain's
 ``adapted`` output exactly as the engine produced it: for NUTS and static HMC ``step_size``,
-``metric`` and ``inverse_metric``; for Metropolis ``metric``, ``proposal_covariance`` and
-``proposal_scale``; for both the chain's final unconstrained ``position``. The service fills
+``preconditioning`` and either ``scales`` (per-coordinate standard deviations, for "none" and
+"per_coordinate") or ``covariance`` (for "full"); for Metropolis ``preconditioning``,
+``proposal_covariance`` and ``proposal_scale``; for both the chain's final unconstrained
+``position``. The service fills
 ``chains`` from the job it names, after its own checks, so a body may arrive here with ``job``
 only: ``member_problems`` accepts that (what a local check of a body sees), while starting a
 chain needs the records. Chain k of the new job uses record ``k % len(chains)``.
@@ -18,14 +20,14 @@ from typing import Any
 import numpy as np
 
 from worker.problems import Problem, escape_token
-from worker.samplers.settings import METRICS
+from worker.samplers.settings import PRECONDITIONINGS
 from worker.samplers.target import Target
 from worker.samplers.warm_schedule import WarmStart
 
 MEMBERS = ("job", "chains")
-HAMILTONIAN_KEYS = ("step_size", "metric", "inverse_metric", "position")
-METROPOLIS_KEYS = ("metric", "proposal_covariance", "proposal_scale", "position")
-# Relative asymmetry a dense metric may have from its trip through JSON and the store.
+HAMILTONIAN_KEYS = ("step_size", "preconditioning", "scales", "covariance", "position")
+METROPOLIS_KEYS = ("preconditioning", "proposal_covariance", "proposal_scale", "position")
+# Relative asymmetry a full covariance may have from its trip through JSON and the store.
 SYMMETRY_TOLERANCE = 1e-9
 
 
@@ -99,18 +101,18 @@ def record_problems(member: dict, method: str, target: Target) -> list[Problem]:
 def _one_record_problems(record: dict, where: str, method: str, target: Target) -> list[Problem]:
     metropolis = method == "metropolis"
     keys = METROPOLIS_KEYS if metropolis else HAMILTONIAN_KEYS
-    scale_key, matrix_key = (
-        ("proposal_scale", "proposal_covariance") if metropolis else ("step_size", "inverse_metric")
-    )
-    if scale_key not in record and matrix_key not in record:
+    scale_key = "proposal_scale" if metropolis else "step_size"
+    shape_keys = ("proposal_covariance",) if metropolis else ("scales", "covariance")
+    if scale_key not in record and not any(k in record for k in shape_keys):
         family = "NUTS or static HMC" if metropolis else "Metropolis"
         wanted = "Metropolis" if metropolis else "NUTS or static HMC"
         found = " (it looks like one from a " + family + " chain)" if record else ""
+        needs = "' or '".join(shape_keys)
         return [
             Problem(
                 where,
                 f"This earlier chain's state does not fit a {method} job{found}: it needs "
-                f"'{scale_key}' and '{matrix_key}', from a {wanted} job of the same model.",
+                f"'{scale_key}' and '{needs}', from a {wanted} job of the same model.",
             )
         ]
     problems = [
@@ -128,18 +130,32 @@ def _one_record_problems(record: dict, where: str, method: str, target: Target) 
                 f"got {scale!r}."
             )
         )  # fmt: skip
-    kind = record.get("metric")
-    if "metric" in record and kind not in METRICS:
+    kind = record.get("preconditioning")
+    if "preconditioning" in record and kind not in PRECONDITIONINGS:
         problems.append(
             Problem(
-                f"{where}/metric",
-                f"The earlier metric must be one of {', '.join(METRICS)}, got {kind!r}.",
+                f"{where}/preconditioning",
+                f"The earlier preconditioning must be one of {', '.join(PRECONDITIONINGS)}, "
+                f"got {kind!r}.",
             )
         )
         kind = None
-    message = _matrix_problem(record.get(matrix_key), kind, target.dimension)
-    if message:
-        problems.append(Problem(f"{where}/{matrix_key}", message))
+    present = [k for k in shape_keys if k in record]
+    if not present:
+        problems.append(
+            Problem(where, "This earlier chain's state needs 'scales' (per-coordinate) or "
+                    "'covariance' (full).")
+        )  # fmt: skip
+    elif len(present) > 1:
+        problems.append(
+            Problem(f"{where}/covariance", "An earlier chain's state holds 'scales' or "
+                    "'covariance', not both.")
+        )  # fmt: skip
+    else:
+        key = present[0]
+        message = _shape_problem(key, record[key], kind, target.dimension)
+        if message:
+            problems.append(Problem(f"{where}/{key}", message))
     if "position" in record:
         message = _position_problem(record["position"], target)
         if message:
@@ -147,24 +163,32 @@ def _one_record_problems(record: dict, where: str, method: str, target: Target) 
     return problems
 
 
-def _matrix_problem(value: Any, kind: str | None, d: int) -> str | None:
-    what = "The earlier inverse metric (or proposal covariance)"
+def _shape_problem(key: str, value: Any, kind: str | None, d: int) -> str | None:
+    """What is wrong with a record's per-coordinate scales, full covariance or proposal
+    covariance (which may be either a list of variances or a matrix), or None."""
+    what = {"scales": "The earlier per-coordinate scales", "covariance": "The earlier covariance",
+            "proposal_covariance": "The earlier proposal covariance"}[key]
+    allowed = {"scales": ((d,),), "covariance": ((d, d),),
+               "proposal_covariance": ((d,), (d, d))}[key]
     array = _numbers(value)
+    wanted = " or ".join(
+        f"a list of {d} numbers" if len(a) == 1 else f"{d} lists of {d} numbers" for a in allowed
+    )
     if array is None:
-        return f"{what} must be a list of {d} numbers, or {d} lists of {d} numbers (dense)."
-    dense = array.ndim == 2
-    if array.shape not in ((d,), (d, d)):
+        return f"{what} must be {wanted}."
+    if array.shape not in allowed:
         return (
             f"{what} has shape {list(array.shape)}; this model has {d} unconstrained values, so "
-            f"it must be [{d}] (diagonal) or [{d}, {d}] (dense)."
+            f"it must be {wanted}."
         )
-    if kind is not None and dense != (kind == "dense"):
-        return f"{what} has shape {list(array.shape)}, which does not match its metric {kind!r}."
+    full = array.ndim == 2
+    if kind is not None and full != (kind == "full"):
+        return f"{what} has shape {list(array.shape)}, which does not fit preconditioning {kind!r}."
     if not np.isfinite(array).all():
         return f"{what} must hold finite numbers only."
-    if not dense:
+    if not full:
         if not (array > 0).all():
-            return f"{what} must hold positive variances only."
+            return f"{what} must hold positive numbers only."
         return None
     if not np.allclose(array, array.T, rtol=SYMMETRY_TOLERANCE, atol=0.0):
         return f"{what} must be symmetric."
@@ -198,10 +222,13 @@ def chain_state(member: dict, chain_index: int, method: str) -> WarmStart:
     records = member["chains"]
     record = records[chain_index % len(records)]
     metropolis = method == "metropolis"
-    covariance = np.asarray(
-        record["proposal_covariance" if metropolis else "inverse_metric"], dtype=np.float64
-    )
-    kind = record.get("metric") or ("dense" if covariance.ndim == 2 else "diagonal")
+    if metropolis:
+        covariance = np.asarray(record["proposal_covariance"], dtype=np.float64)
+    elif "scales" in record:
+        covariance = np.square(np.asarray(record["scales"], dtype=np.float64))
+    else:
+        covariance = np.asarray(record["covariance"], dtype=np.float64)
+    kind = record.get("preconditioning") or ("full" if covariance.ndim == 2 else "per_coordinate")
     position = record.get("position")
     return WarmStart(
         metric=kind,

@@ -133,17 +133,24 @@ class JobPage:
         return cls([Job.from_json(j) for j in doc.get("jobs") or []], doc.get("next_cursor"))
 
 
+class Interval(TypedDict):
+    level: float
+    lower: float | None
+    upper: float | None
+
+
 class QuantitySummary(TypedDict, total=False):
     name: str
+    median: float | None
+    interval: Interval
     mean: float | None
     sd: float | None
-    quantiles: dict[str, float | None]
-    mcse_mean: float | None
-    mcse_of_sd: float | None
-    mcse_quantiles: dict[str, float | None]
+    rhat: float | None
     bulk_ess: float | None
     tail_ess: float | None
-    rhat: float | None
+    mean_error: float | None
+    sd_error: float | None
+    quantile_errors: dict[str, float | None]  # "median", "lower", "upper"
     note: str | None
 
 

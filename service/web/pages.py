@@ -97,7 +97,7 @@ def job_page(job_id: str) -> str:
         second = names[1] if len(names) > 1 else first
         context.update(
             summary=summary,
-            quantile_keys=list(summary[0]["quantiles"]) if summary else [],
+            interval_level=summary[0]["interval"]["level"] if summary else None,
             failed_quantities=failed,
             verdict=job.verdict or {"passed": False, "failed_checks": []},
             groups=grouped_failures(job.verdict),

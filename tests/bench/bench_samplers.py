@@ -109,7 +109,7 @@ def main() -> None:
     dense = measure(
         "NUTS, 100-d AR(0.9) Gaussian, dense metric",
         correlated,
-        SamplerSettings(metric="dense"),
+        SamplerSettings(preconditioning="full"),
         2,
     )
     hmc_normal = measure(
@@ -121,7 +121,7 @@ def main() -> None:
     hmc_dense = measure(
         "static HMC, 100-d AR(0.9) Gaussian, dense metric",
         correlated,
-        SamplerSettings(method="hmc", metric="dense"),
+        SamplerSettings(method="hmc", preconditioning="full"),
         2,
     )
     # Random-walk Metropolis needs O(d) iterations per effective draw (Roberts, Gelman & Gilks

@@ -1,12 +1,17 @@
 """A callback receiver on loopback: a real HTTP server (http.server) in a thread.
 
-It checks each request's signature as a receiver would, from the published recipe and not from
-drawyard's code: HMAC-SHA256 (RFC 2104, with SHA-256 from FIPS 180-4) keyed with the shared secret
-over ``timestamp + "." + body``, compared in constant time with hmac.compare_digest.
+It checks each request's signature as a receiver would, from the Standard Webhooks specification
+(standardwebhooks.com, "Verifying webhook authenticity"; from memory) and not from drawyard's code:
+the signed content is ``webhook-id + "." + webhook-timestamp + "." + body``; the signature is
+HMAC-SHA256 (RFC 2104, with SHA-256 from FIPS 180-4) keyed with the secret (a ``whsec_`` secret's
+base64-decoded bytes), base64-encoded and prefixed ``v1,``; ``webhook-signature`` is a
+space-separated list of such signatures, any one of which may match (compared in constant time with
+hmac.compare_digest).
 """
 
 from __future__ import annotations
 
+import base64
 import hashlib
 import hmac
 import json
@@ -15,10 +20,24 @@ from dataclasses import dataclass, field
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 
 
+def signing_key(secret: str) -> bytes:
+    if secret.startswith("whsec_"):
+        return base64.b64decode(secret[len("whsec_") :])
+    return secret.encode()
+
+
+def genuine(secret: str, message_id: str, timestamp: str, body: bytes, header: str) -> bool:
+    content = f"{message_id}.{timestamp}.".encode() + body
+    digest = hmac.new(signing_key(secret), content, hashlib.sha256).digest()
+    expected = "v1," + base64.b64encode(digest).decode()
+    return any(hmac.compare_digest(expected, candidate) for candidate in header.split(" "))
+
+
 @dataclass
 class Received:
     path: str
     body: bytes
+    message_id: str
     timestamp: str
     signature: str
     attempt: str
@@ -47,12 +66,10 @@ class Receiver:
         class Handler(BaseHTTPRequestHandler):
             def do_POST(self) -> None:  # noqa: N802 (http.server's naming)
                 body = self.rfile.read(int(self.headers.get("Content-Length", "0")))
-                timestamp = self.headers.get("X-Drawyard-Timestamp", "")
-                signature = self.headers.get("X-Drawyard-Signature", "")
-                expected = "sha256=" + hmac.new(
-                    receiver.secret.encode(), timestamp.encode() + b"." + body, hashlib.sha256
-                ).hexdigest()
-                valid = hmac.compare_digest(expected, signature)
+                message_id = self.headers.get("webhook-id", "")
+                timestamp = self.headers.get("webhook-timestamp", "")
+                signature = self.headers.get("webhook-signature", "")
+                valid = genuine(receiver.secret, message_id, timestamp, body, signature)
                 with receiver._lock:
                     queue = receiver.plan.setdefault(self.path, [])
                     status = queue.pop(0) if queue else 200
@@ -61,9 +78,10 @@ class Receiver:
                         Received(
                             self.path,
                             body,
+                            message_id,
                             timestamp,
                             signature,
-                            self.headers.get("X-Drawyard-Attempt", ""),
+                            self.headers.get("drawyard-attempt", ""),
                             valid,
                             status,
                         )

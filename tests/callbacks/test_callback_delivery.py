@@ -1,6 +1,7 @@
 """Completion callbacks end to end: gunicorn, real Celery workers, real Redis, SQLite and
-PostgreSQL stores, and a receiver on loopback that verifies the HMAC-SHA256 signature (RFC 2104)
-with hmac.compare_digest.
+PostgreSQL stores, and a receiver on loopback that verifies the signature as the Standard Webhooks
+specification describes it (HMAC-SHA256, RFC 2104, over id.timestamp.body, base64, "v1,"), with
+hmac.compare_digest.
 
 The allow-list is checked at submission (a 422 problem with an RFC 6901 pointer, nothing stored),
 and delivery is retried with exponential backoff (doubling delays; common practice) a bounded
@@ -9,6 +10,9 @@ number of times, every attempt in the job's event log.
 
 from __future__ import annotations
 
+import base64
+import hashlib
+import hmac
 import time
 from datetime import datetime
 
@@ -126,6 +130,8 @@ def test_signed_callbacks_retry_with_backoff_until_the_receiver_accepts(
     assert [r.answered for r in flaky] == [500, 500, 200]
     assert all(r.signature_valid for r in flaky)
     assert [r.attempt for r in flaky] == ["1", "2", "3"]
+    # one message id for the job's callback on every attempt, so a receiver can drop repeats
+    assert {r.message_id for r in flaky} == {f"msg_{jobs['/flaky']}"}
     status = requests.get(f"{base}/v1/jobs/{jobs['/flaky']}", timeout=30).json()
     for document in receiver.documents("/flaky"):
         assert document["id"] == jobs["/flaky"] and document["state"] == status["state"]
@@ -149,21 +155,42 @@ def test_signed_callbacks_retry_with_backoff_until_the_receiver_accepts(
     assert events[-1]["detail"] == {"attempts": 3}
 
 
-def test_a_tampered_body_or_timestamp_fails_the_receivers_check(receiver) -> None:
-    """The receiver's check must be able to fail: change one byte of the body or the timestamp."""
+def test_the_signature_is_the_standard_webhooks_construction() -> None:
+    """Standard Webhooks (standardwebhooks.com, "Verifying webhook authenticity"; from memory):
+    signed content id + "." + timestamp + "." + body; HMAC-SHA256 keyed with the base64-decoded
+    part of a "whsec_" secret; header value "v1," + base64 of the digest. Computed here with hmac,
+    hashlib and base64 only, for a whsec_ secret and for a plain one (its UTF-8 bytes)."""
     from service.callbacks import sign
 
-    body, stamp = b'{"id":"x","state":"succeeded"}', "1700000000"
-    good = sign(SECRET, stamp, body)
-    for sent_body, sent_stamp, expected in (
-        (body, stamp, 200),
-        (body.replace(b"succeeded", b"failed"), stamp, 401),
-        (body, "1700000001", 401),
+    key = bytes(range(32))
+    body, message, stamp = b'{"id":"x","state":"succeeded"}', "msg_x", "1700000000"
+    content = b"msg_x.1700000000." + body
+    for secret, expected_key in (("whsec_" + base64.b64encode(key).decode(), key),
+                                 (SECRET, SECRET.encode())):
+        digest = hmac.new(expected_key, content, hashlib.sha256).digest()
+        assert sign(secret, message, stamp, body) == "v1," + base64.b64encode(digest).decode()
+
+
+def test_a_tampered_body_id_or_timestamp_fails_the_receivers_check(receiver) -> None:
+    """The receiver's check must be able to fail: change one byte of the body, the id or the
+    timestamp. A header with several signatures passes when any one matches (the specification
+    lets a sender list one per secret while a secret is being rotated)."""
+    from service.callbacks import sign
+
+    body, message, stamp = b'{"id":"x","state":"succeeded"}', "msg_x", "1700000000"
+    good = sign(SECRET, message, stamp, body)
+    for sent_body, sent_id, sent_stamp, signature, expected in (
+        (body, message, stamp, good, 200),
+        (body, message, stamp, "v1,AAAA " + good, 200),
+        (body.replace(b"succeeded", b"failed"), message, stamp, good, 401),
+        (body, "msg_y", stamp, good, 401),
+        (body, message, "1700000001", good, 401),
     ):
         requests.post(
             receiver.base_url + "/check",
             data=sent_body,
-            headers={"X-Drawyard-Timestamp": sent_stamp, "X-Drawyard-Signature": good},
+            headers={"webhook-id": sent_id, "webhook-timestamp": sent_stamp,
+                     "webhook-signature": signature},
             timeout=10,
-        )
+        )  # fmt: skip
         assert receiver.for_path("/check")[-1].answered == expected

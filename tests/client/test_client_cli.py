@@ -23,6 +23,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import requests
+from scipy import stats
 
 from service.client import DrawyardClient, wait_for_job
 from service.job_commands import (
@@ -84,7 +85,8 @@ def test_submit_wait_passed_then_fetch_and_list(
     done = drawyard(
         "submit", *job_files(files), "--settings", str(files["settings"]), "--seed", "20261201",
         "--check", "min_bulk_ess=100", "--check", "min_tail_ess=100",
-        "--label", "suite=client-cli", "--wait", "--interval", "0.2", url=url,
+        "--label", "suite=client-cli", "--interval-level", "0.5", "--wait", "--interval", "0.2",
+        url=url,
     )
     assert done.returncode == EXIT_PASSED, done.stderr + shared_service.logs()
     job_id = done.stdout.splitlines()[0]
@@ -96,8 +98,15 @@ def test_submit_wait_passed_then_fetch_and_list(
     assert fetched.returncode == EXIT_PASSED, fetched.stderr
     summary = json.loads((tmp_path / "s.json").read_text())
     record = next(q for q in summary["quantities"] if q["name"] == "mu")
-    mean, _ = posterior_mean_sd()  # BDA3 section 2.5
-    assert abs(record["mean"] - mean) < 5 * record["mcse_mean"]
+    mean, sd = posterior_mean_sd()  # BDA3 section 2.5
+    assert abs(record["mean"] - mean) < 5 * record["mean_error"]
+    # --interval-level 0.5: the central half, from the 25% to the 75% quantile of the normal
+    # posterior (scipy.stats.norm), each within 5 of its Monte Carlo error
+    interval = record["interval"]
+    assert interval["level"] == 0.5
+    for end, p in (("lower", 0.25), ("upper", 0.75)):
+        expected = stats.norm(mean, sd).ppf(p)
+        assert abs(interval[end] - expected) < 5 * record["quantile_errors"][end]
 
     target = tmp_path / "draws.csv"
     fetched = drawyard(

@@ -16,8 +16,8 @@ import pytest
 from scipy import stats
 
 from tests.diagnostics.series import ar1
-from worker.diagnostics import mcse_mean, mcse_of_sd, mcse_quantile
-from worker.diagnostics.mcse import mcse_mean_batch, mcse_of_sd_batch, mcse_quantile_batch
+from worker.diagnostics import mean_error, quantile_error, sd_error
+from worker.diagnostics.mcse import mean_error_batch, quantile_error_batch, sd_error_batch
 
 REPLICATES = 100
 CHAINS = 4
@@ -38,8 +38,8 @@ def iid_normal() -> np.ndarray:
 
 
 def test_mcse_of_mean_of_iid_normal_is_sd_over_root_n(iid_normal: np.ndarray) -> None:
-    assert _mean_within_4_se(mcse_mean_batch(iid_normal), 2.0 / np.sqrt(N))
-    assert abs(mcse_mean(iid_normal[0]) - 2.0 / np.sqrt(N)) < 0.1 * 2.0 / np.sqrt(N)
+    assert _mean_within_4_se(mean_error_batch(iid_normal), 2.0 / np.sqrt(N))
+    assert abs(mean_error(iid_normal[0]) - 2.0 / np.sqrt(N)) < 0.1 * 2.0 / np.sqrt(N)
 
 
 def test_mcse_of_mean_matches_spread_of_means_for_ar1() -> None:
@@ -47,13 +47,13 @@ def test_mcse_of_mean_matches_spread_of_means_for_ar1() -> None:
     series = ar1(rng, 0.7, (400, CHAINS, DRAWS))
     spread = series.mean(axis=(1, 2)).std(ddof=1)
     # the sd of 400 normal values has relative standard error about 1 / sqrt(2 * 399)
-    assert abs(np.median(mcse_mean_batch(series)) - spread) < 4.0 / np.sqrt(798) * spread
+    assert abs(np.median(mean_error_batch(series)) - spread) < 4.0 / np.sqrt(798) * spread
 
 
-def test_mcse_of_sd_of_iid_normal_is_sigma_over_root_2n(iid_normal: np.ndarray) -> None:
+def test_sd_error_of_iid_normal_is_sigma_over_root_2n(iid_normal: np.ndarray) -> None:
     expected = 2.0 / np.sqrt(2.0 * N)
-    assert _mean_within_4_se(mcse_of_sd_batch(iid_normal), expected)
-    assert abs(mcse_of_sd(iid_normal[0]) - expected) < 0.15 * expected
+    assert _mean_within_4_se(sd_error_batch(iid_normal), expected)
+    assert abs(sd_error(iid_normal[0]) - expected) < 0.15 * expected
 
 
 @pytest.mark.parametrize("p", [0.05, 0.5, 0.95])
@@ -63,12 +63,12 @@ def test_mcse_of_quantile_of_iid_normal_matches_order_statistic_formula(
     sigma = 2.0
     density = stats.norm.pdf(stats.norm.ppf(p, scale=sigma), scale=sigma)
     expected = np.sqrt(p * (1.0 - p) / N) / density
-    assert _mean_within_4_se(mcse_quantile_batch(iid_normal, p), expected)
+    assert _mean_within_4_se(quantile_error_batch(iid_normal, p), expected)
     # and the actual spread of the sample quantile over replicates agrees with the formula within
     # the relative standard error of an sd of 100 values, 1 / sqrt(2 * 99)
     spread = np.quantile(iid_normal.reshape(REPLICATES, -1), p, axis=1).std(ddof=1)
     assert abs(spread - expected) < 4.0 / np.sqrt(198) * expected
-    assert np.isfinite(mcse_quantile(iid_normal[0], p))
+    assert np.isfinite(quantile_error(iid_normal[0], p))
 
 
 def test_mcse_of_quantile_of_exponential_draws_matches_formula() -> None:
@@ -77,10 +77,10 @@ def test_mcse_of_quantile_of_exponential_draws_matches_formula() -> None:
     draws = rng.exponential(size=(REPLICATES, CHAINS, DRAWS))
     p = 0.9
     expected = np.sqrt(p * (1.0 - p) / N) / stats.expon.pdf(stats.expon.ppf(p))
-    assert _mean_within_4_se(mcse_quantile_batch(draws, p), expected)
+    assert _mean_within_4_se(quantile_error_batch(draws, p), expected)
 
 
 def test_mcse_of_undefined_inputs_is_nan() -> None:
     draws = np.full((4, 50), 1.0)
-    assert np.isnan(mcse_mean(draws))
-    assert np.isnan(mcse_quantile(draws, 0.5))
+    assert np.isnan(mean_error(draws))
+    assert np.isnan(quantile_error(draws, 0.5))

@@ -25,8 +25,8 @@ def _good_report(chains: int = 4, draws: int = 1000) -> dict:
         [
             {
                 "divergent": np.zeros(draws, dtype=bool),
-                "tree_depth": np.full(draws, 3),
-                "acceptance": np.full(draws, 0.8),
+                "doublings": np.full(draws, 3),
+                "accept_probability": np.full(draws, 0.8),
                 "energy": momenta[c, :-1] + momenta[c, 1:],
             }
             for c in range(chains)
@@ -40,13 +40,16 @@ def test_summary_of_iid_normal_draws_agrees_with_scipy() -> None:
     scipy.stats.norm values."""
     rng = np.random.default_rng(1)
     draws = rng.normal(1.0, 2.0, size=(4, 10_000, 1))
-    (record,) = summarize(draws, ["x"])
+    (record,) = summarize(draws, ["x"])  # the default 80% interval: 10% and 90% quantiles
     truth = stats.norm(1.0, 2.0)
-    assert abs(record["mean"] - truth.mean()) < 4 * record["mcse_mean"]
-    assert abs(record["sd"] - truth.std()) < 4 * record["mcse_of_sd"]
-    for p, label in ((0.05, "5%"), (0.5, "50%"), (0.95, "95%")):
-        error = abs(record["quantiles"][label] - truth.ppf(p))
-        assert error < 4 * record["mcse_quantiles"][label]
+    assert abs(record["mean"] - truth.mean()) < 4 * record["mean_error"]
+    assert abs(record["sd"] - truth.std()) < 4 * record["sd_error"]
+    assert record["interval"]["level"] == 0.8
+    points = {"lower": record["interval"]["lower"], "median": record["median"],
+              "upper": record["interval"]["upper"]}  # fmt: skip
+    for p, label in ((0.1, "lower"), (0.5, "median"), (0.9, "upper")):
+        error = abs(points[label] - truth.ppf(p))
+        assert error < 4 * record["quantile_errors"][label]
     assert record["rhat"] < 1.01 and record["bulk_ess"] > 30_000 and record["note"] is None
 
 
@@ -55,11 +58,22 @@ def test_summary_is_strict_json_and_marks_undefined_quantities() -> None:
     draws = rng.standard_normal((2, 50, 3))
     draws[:, :, 1] = 1.0
     draws[0, 3, 2] = np.nan
-    records = summarize(draws, ["a", "b", "c"], quantiles=(0.025, 0.975))
+    records = summarize(draws, ["a", "b", "c"], interval=0.95)
     json.dumps(records, allow_nan=False)
     assert [r["note"] for r in records] == [None, "constant", "not_finite"]
-    assert set(records[0]["quantiles"]) == {"2.5%", "97.5%"}
-    assert records[1]["rhat"] is None and records[1]["mcse_mean"] == 0.0
+    # the 95% central interval's end points are the 2.5% and 97.5% quantiles (numpy's default)
+    flat = draws[:, :, 0].ravel()
+    interval = records[0]["interval"]
+    assert interval["level"] == 0.95
+    expected = np.quantile(flat, [0.025, 0.975])
+    assert [interval["lower"], interval["upper"]] == pytest.approx(expected, rel=1e-12)
+    assert records[0]["median"] == pytest.approx(float(np.median(flat)), rel=1e-12)
+    assert list(records[0]) == ["name", "median", "interval", "mean", "sd", "rhat", "bulk_ess",
+                                "tail_ess", "mean_error", "sd_error", "quantile_errors", "note"]
+    for level in (0, 1, 1.5, True, "0.9"):
+        with pytest.raises(ValueError, match="strictly between 0 and 1"):
+            summarize(draws, ["a", "b", "c"], interval=level)
+    assert records[1]["rhat"] is None and records[1]["mean_error"] == 0.0
     assert records[2]["mean"] is None and records[2]["rhat"] is None
     short = summarize(rng.standard_normal((4, 2, 1)), ["d"])
     assert short[0]["note"] == "too_few_draws" and short[0]["rhat"] is None
@@ -68,7 +82,7 @@ def test_summary_is_strict_json_and_marks_undefined_quantities() -> None:
 def test_summary_handles_many_quantities_in_passes() -> None:
     """Wide outputs are summarised in several vectorised passes; every record must still match
     the one-quantity functions."""
-    from worker.diagnostics import bulk_ess, mcse_quantile, split_rhat, tail_ess
+    from worker.diagnostics import bulk_ess, quantile_error, split_rhat, tail_ess
     from worker.diagnostics import summary as summary_module
 
     rng = np.random.default_rng(3)
@@ -83,7 +97,8 @@ def test_summary_handles_many_quantities_in_passes() -> None:
         assert record["rhat"] == pytest.approx(split_rhat(draws[:, :, i]))
         assert record["bulk_ess"] == pytest.approx(bulk_ess(draws[:, :, i]))
         assert record["tail_ess"] == pytest.approx(tail_ess(draws[:, :, i]))
-        assert record["mcse_quantiles"]["50%"] == pytest.approx(mcse_quantile(draws[:, :, i], 0.5))
+        expected = quantile_error(draws[:, :, i], 0.5)
+        assert record["quantile_errors"]["median"] == pytest.approx(expected)
 
 
 def test_sound_draws_pass_with_defaults() -> None:
@@ -166,14 +181,14 @@ def test_sampler_checks_counts_per_chain() -> None:
     stats_per_chain = [
         {
             "divergent": np.array([0, 1, 1, 0], dtype=bool),
-            "tree_depth": np.array([3, 5, 5, 2]),
-            "acceptance": np.array([0.5, 0.7, 0.9, 0.9]),
+            "doublings": np.array([3, 5, 5, 2]),
+            "accept_probability": np.array([0.5, 0.7, 0.9, 0.9]),
             "energy": np.array([1.0, 2.0, 1.5, 3.0]),
         },
         {
             "divergent": np.zeros(4, dtype=bool),
-            "tree_depth": np.array([5, 5, 5, 5]),
-            "acceptance": np.array([1.0, 1.0, 1.0, 0.6]),
+            "doublings": np.array([5, 5, 5, 5]),
+            "accept_probability": np.array([1.0, 1.0, 1.0, 0.6]),
             "energy": np.array([2.0, 2.0, 2.0, 2.0]),
         },
     ]
@@ -188,7 +203,8 @@ def test_sampler_checks_counts_per_chain() -> None:
 
 
 def test_sampler_checks_for_a_method_without_trees_or_energy() -> None:
-    report = sampler_checks([{"acceptance": np.full(10, 0.25)}] * 2, maximum_tree_depth=None)
+    stats = [{"accept_probability": np.full(10, 0.25)}] * 2
+    report = sampler_checks(stats, maximum_tree_depth=None)
     assert report["divergences"] is None and report["tree_depth_hits"] is None
     assert report["ebfmi_per_chain"] == [None, None]
     assert verdict([], report)["passed"]

@@ -25,7 +25,7 @@ def two_quantity_body() -> dict:
     wide layout has several columns (the model is the one of tests/service/bodies.py)."""
     body = normal_mean(chains=3, warmup=150, draws=120, seed=61)
     body["model"]["derived"] = {"mu_twice": "2 * mu"}
-    body["model"]["generated"] = {"replicates": ["obs"]}
+    body["model"]["per_draw"] = {"replicates": ["obs"]}
     return body
 
 

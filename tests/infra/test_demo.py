@@ -76,7 +76,7 @@ def test_demo_runs_a_job_end_to_end_and_stops_everything(tmp_path: Path) -> None
         q = summary[name]
         # Prior and pooling pull each level by well under a tenth of a standard error here;
         # allow 0.15 SE for that plus 4 Monte Carlo standard errors.
-        assert abs(q["mean"] - mle) < 0.15 * se + 4 * q["mcse_mean"], (name, q["mean"], mle, se)
+        assert abs(q["mean"] - mle) < 0.15 * se + 4 * q["mean_error"], (name, q["mean"], mle, se)
         # The posterior sd matches the normal approximation's to within 10% plus 4 Monte Carlo
         # standard errors; for a near-normal quantity the sd estimated from n effective draws
         # has standard error sd / sqrt(2 n) (common practice).

@@ -102,7 +102,9 @@ def test_worker_command_consumes_and_stops_on_sigterm(tmp_path: Path, redis_url:
                 "DRAWYARD_DATABASE_URL": f"sqlite:///{tmp_path / 'w.sqlite'}"})
     with open(log, "wb") as out:
         proc = subprocess.Popen(
-            [sys.executable, "-m", "service.cli", "worker", "--name", "cli-test@%h"],
+            # drawyard's own options, and one of the library's passed through after --
+            [sys.executable, "-m", "service.cli", "worker", "--name", "cli-test@box",
+             "--processes", "1", "--logging", "INFO", "--", "--without-gossip"],
             stdout=out, stderr=subprocess.STDOUT, env=env,
         )
     try:
@@ -111,7 +113,7 @@ def test_worker_command_consumes_and_stops_on_sigterm(tmp_path: Path, redis_url:
             assert proc.poll() is None, log.read_text()
             assert time.monotonic() < deadline, log.read_text()
             time.sleep(0.1)
-        assert "cli-test@" in log.read_text()
+        assert "cli-test@box" in log.read_text()
         proc.send_signal(signal.SIGTERM)
         assert proc.wait(timeout=60) == 0, log.read_text()
     finally:

@@ -142,6 +142,13 @@ def test_metrics_match_the_store_and_every_process_logs_json_lines(
     for bound in (1.0, 5.0, 60.0):
         expected = int((durations <= bound).sum())
         assert sample(families, "drawyard_chain_duration_seconds_bucket", le=str(bound)) == expected
+    for job_id in ids[:2]:
+        stats = requests.get(f"{base}/v1/jobs/{job_id}/sampler-stats", timeout=30).json()
+        column = stats["statistics"].index("gradient_calls")
+        steps = [sum(row[column] for row in chain["draws"]) for chain in stats["chains"]]
+        stored = sorted((c.chain_index, c.sampling_gradient_evaluations) for c in chains
+                        if c.job_id == job_id)  # fmt: skip
+        assert [n for _, n in stored] == steps  # one gradient per sampling leapfrog step
     hamiltonian = [c for c in chains if methods[c.job_id] == "nuts"]
     metropolis = [c for c in chains if methods[c.job_id] == "metropolis"]
     assert len(hamiltonian) == 4 and len(metropolis) == 2

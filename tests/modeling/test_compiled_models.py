@@ -33,8 +33,8 @@ EIGHT_SCHOOLS = {
     ],
     "likelihood": [{"name": "effects", "observed": "y", "distribution": "normal",
                     "arguments": {"location": "theta", "scale": "sigma"}}],
-    "generated": {"replicates": ["effects"], "pointwise_log_likelihood": ["effects"],
-                  "quantities": {"tau_squared": "tau ^ 2"}},
+    "per_draw": {"replicates": ["effects"], "pointwise": ["effects"],
+                  "formulas": {"tau_squared": "tau ^ 2"}},
 }
 EIGHT_SCHOOLS_DATA = {"J": 8, "y": SCHOOL_EFFECTS, "sigma": SCHOOL_ERRORS}
 
@@ -80,7 +80,7 @@ def test_eight_schools_report_row():
     assert col["tau"] == pytest.approx(tau)
     assert col["theta[8]"] == pytest.approx(theta[7])
     assert col["tau_squared"] == pytest.approx(tau**2)
-    pointwise = [col[f"log_likelihood.effects[{j}]"] for j in range(1, 9)]
+    pointwise = [col[f"pointwise.effects[{j}]"] for j in range(1, 9)]
     np.testing.assert_allclose(pointwise, stats.norm.logpdf(SCHOOL_EFFECTS, theta, SCHOOL_ERRORS))
     # replicates come from the generator: the same seed gives the same row, another seed does not
     again = model.report(u, np.random.default_rng(3))
@@ -168,7 +168,7 @@ def test_poisson_with_group_index_matches_scipy():
 
 
 # A model that runs through matrix products, row and element indexing, select, softmax,
-# log_softmax, cumulative_sum, literals, an interval unknown, a prior on a derived quantity and a
+# log_softmax, running_sum, literals, an interval unknown, a prior on a derived quantity and a
 # prior whose scale is an unknown (the generic, non-fused route).
 FEATURES = {
     "inputs": {
@@ -183,7 +183,7 @@ FEATURES = {
     },
     "derived": {
         "mixed": "[[1, p], [p, 1]] @ [beta[1], beta[2]]",
-        "shift": "cumulative_sum(a)[g] + log_softmax(w)[g] + 2 * softmax(w)[g]",
+        "shift": "running_sum(a)[g] + log_softmax(w)[g] + 2 * softmax(w)[g]",
         "line": "X @ beta + shift + select(y > 0, p, 1 - p) + dot(X[2], beta) + X[3, 1] * a[2]",
     },
     "priors": [
@@ -243,8 +243,8 @@ STRUCTURED = {
         "mix": {"shape": ["K"], "structure": "simplex"},
         "cut": {"shape": [3], "structure": "ordered"},
         "slope": {},
-        "levels": {"shape": [3], "structure": "positive_ordered"},
-        "L": {"shape": [3, 3], "structure": "cholesky_correlation"},
+        "levels": {"shape": [3], "structure": "ordered", "lower": 0},
+        "L": {"shape": [3, 3], "structure": "correlation_factor"},
         "centre": {"shape": [3]},
     },
     "derived": {"scaled": "levels * [1, 2, 3]"},
@@ -259,7 +259,7 @@ STRUCTURED = {
     "likelihood": [
         {"name": "chosen", "observed": "counts", "distribution": "categorical",
          "arguments": {"log_weights": "log(mix)"}},
-        {"name": "rated", "observed": "ratings", "distribution": "ordered_logistic",
+        {"name": "rated", "observed": "ratings", "distribution": "cumulative_logit",
          "arguments": {"predictor": "slope * x", "cutpoints": "cut"}},
         {"name": "vector", "observed": "obs", "distribution": "multivariate_normal",
          "arguments": {"location": "centre", "covariance_cholesky": "L"}},
@@ -270,7 +270,7 @@ STRUCTURED_DATA = {"K": 4, "n": 6, "counts": [1, 2, 2, 4, 3, 1], "ratings": [1, 
 
 
 def test_structured_unknowns_gradients():
-    """Simplex, ordered, positive ordered and Cholesky-correlation unknowns through vector-valued
+    """Simplex, ordered, ordered-above-zero and correlation-factor unknowns through vector-valued
     distributions: the whole model's gradient against finite differences."""
     model = compile_model(STRUCTURED, STRUCTURED_DATA)
     assert model.dimension == 3 + 3 + 1 + 3 + 3 + 3
@@ -325,9 +325,9 @@ def test_logistic_regression_generated_predictions():
                    {"on": "b", "distribution": "normal", "arguments": {"location": 0, "scale": 2}}],
         "likelihood": [{"name": "outcome", "observed": "y", "distribution": "bernoulli",
                         "arguments": {"log_odds": "a + X @ b"}}],
-        "generated": {"predictions": [{"name": "new_outcome", "distribution": "bernoulli",
+        "per_draw": {"predictions": [{"name": "new_outcome", "distribution": "bernoulli",
                                        "arguments": {"log_odds": "a + new_X @ b"}}],
-                      "quantities": {"new_probability": "logistic(a + new_X @ b)"}},
+                      "formulas": {"new_probability": "logistic(a + new_X @ b)"}},
     }
     model = compile_model(spec, {"X": X.tolist(), "y": y.tolist(), "new_X": new})
     u = np.array([0.2, 0.8, -0.5])
@@ -395,7 +395,7 @@ def test_report_survives_an_extreme_draw():
     u[0] = 60.0  # log rate 60: rate e^60, about 1.1e26
     row = model.report(u, np.random.default_rng(0))
     assert row.shape == (len(model.quantity_names),)
-    spec = dict(STORES, generated={"replicates": ["weekly_sales"]})
+    spec = dict(STORES, per_draw={"replicates": ["weekly_sales"]})
     model = compile_model(spec, STORES_DATA)
     row = model.report(u, np.random.default_rng(0))
     assert np.all(np.isnan(row[-7:]))

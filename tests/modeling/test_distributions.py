@@ -116,7 +116,7 @@ def draw_mvn(data, batch):
 def draw_lkj(data, batch, shape=None):
     k = data.draw(hs.integers(2, 4))
     shape = sub_shape(data, batch) if shape is None else shape
-    transform = make_transform([k, k], structure="cholesky_correlation")
+    transform = make_transform([k, k], structure="correlation_factor")
     u = floats(data, -1.5, 1.5, shape + (transform.dimension,)).reshape(-1, transform.dimension)
     x = np.stack([transform.constrain(row) for row in u]).reshape(shape + (k, k))
     return x, {"concentration": floats(data, 0.3, 5.0, sub_shape(data, batch))}
@@ -130,7 +130,7 @@ def draw_categorical(data, batch):
     )
 
 
-def draw_ordered_logistic(data, batch):
+def draw_cumulative_logit(data, batch):
     k = data.draw(hs.integers(1, 4))
     start = floats(data, -3.0, 0.0, sub_shape(data, batch) + (1,))
     # increments of at least 0.1 keep finite-difference steps from reordering the cutpoints
@@ -151,7 +151,7 @@ def ref_categorical(x, a):
     return st.multinomial.logpmf(onehot.reshape(-1, k), 1, p.reshape(-1, k)).reshape(batch)
 
 
-def ref_ordered_logistic(x, a):
+def ref_cumulative_logit(x, a):
     # McCullagh (1980): P(y = k) = F(eta - c_{k-1}) - F(eta - c_k), F logistic, c_0 = -inf,
     # c_{K+1} = +inf; computed naively here on purpose
     c = a["cutpoints"]
@@ -248,7 +248,7 @@ CASES = [
          lambda x, a: st.nbinom.logpmf(
              x, a["dispersion"], a["dispersion"] / (np.exp(a["log_mean"]) + a["dispersion"]))),
     Case("categorical", {}, None, ref_categorical, draw=draw_categorical),
-    Case("ordered_logistic", {}, None, ref_ordered_logistic, draw=draw_ordered_logistic),
+    Case("cumulative_logit", {}, None, ref_cumulative_logit, draw=draw_cumulative_logit),
     Case("dirichlet", {}, None,
          ref_per_event(lambda a: st.dirichlet(a["concentration"]), 1), draw=draw_dirichlet),
     Case("multivariate_normal", {}, None,
@@ -386,7 +386,7 @@ def test_lkj_gradients(data) -> None:
     dist = find_distribution("lkj_correlation_factor", {"concentration"})
     _, grads = dist.log_density_and_gradients(x, args, frozenset({"x", "concentration"}))
     check_gradient(dist, x, args, "concentration", grads["concentration"])
-    transform = make_transform(x.shape, structure="cholesky_correlation")
+    transform = make_transform(x.shape, structure="correlation_factor")
     u = transform.unconstrain(x)
     chained = transform.constrain_vjp(u, grads["x"])
     numeric = central_difference(
@@ -396,7 +396,7 @@ def test_lkj_gradients(data) -> None:
 
 
 @pytest.mark.parametrize("batched", [False, True])
-def test_ordered_logistic_cutpoint_gradient_on_many_rows(batched: bool) -> None:
+def test_cumulative_logit_cutpoint_gradient_on_many_rows(batched: bool) -> None:
     """The shared-cutpoint path (one bincount) and the per-row path agree with differences."""
     rng = np.random.default_rng(7)
     n = 200
@@ -405,7 +405,7 @@ def test_ordered_logistic_cutpoint_gradient_on_many_rows(batched: bool) -> None:
     if batched:
         args["cutpoints"] = np.tile(cutpoints, (n, 1))
     x = rng.integers(1, 5, size=n)
-    dist = find_distribution("ordered_logistic", set(args))
+    dist = find_distribution("cumulative_logit", set(args))
     _, grads = dist.log_density_and_gradients(x, args, frozenset({"predictor", "cutpoints"}))
     check_gradient(dist, x, args, "cutpoints", grads["cutpoints"])
     check_gradient(dist, x, args, "predictor", grads["predictor"])

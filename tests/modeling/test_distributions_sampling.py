@@ -166,9 +166,9 @@ def test_categorical_draws() -> None:
         assert np.all(np.abs(freq - p[row]) < Z * np.sqrt(p[row] * (1 - p[row]) / N))
 
 
-def test_ordered_logistic_draws() -> None:
+def test_cumulative_logit_draws() -> None:
     eta, cutpoints = 0.4, np.array([-1.0, 0.3, 1.8])
-    dist = find_distribution("ordered_logistic", {"predictor", "cutpoints"})
+    dist = find_distribution("cumulative_logit", {"predictor", "cutpoints"})
     draws = dist.sample({"predictor": eta, "cutpoints": cutpoints}, np.random.default_rng(19),
                         (N,))
     upper = np.concatenate([expit(eta - cutpoints), [0.0]])

@@ -60,8 +60,8 @@ OUT_OF_SUPPORT = [
     ("negative_binomial", {"mean": 2.0, "dispersion": 1.0}, np.array([3, -1])),
     ("negative_binomial", {"log_mean": 0.0, "dispersion": np.array([1.0, 0.0])}, 2),
     ("categorical", {"log_weights": np.zeros(3)}, np.array([2, 0, 4])),
-    ("ordered_logistic", {"predictor": 0.0, "cutpoints": np.array([-1.0, 1.0])}, np.array([3, 4])),
-    ("ordered_logistic", {"predictor": 0.0,
+    ("cumulative_logit", {"predictor": 0.0, "cutpoints": np.array([-1.0, 1.0])}, np.array([3, 4])),
+    ("cumulative_logit", {"predictor": 0.0,
                           "cutpoints": np.array([[-1.0, 1.0], [1.0, -1.0]])}, 2),
     ("dirichlet", {"concentration": np.ones(3)}, np.array([[0.2, 0.3, 0.5], [0.2, 0.3, 0.6]])),
     ("dirichlet", {"concentration": np.array([[1.0, 2.0], [1.0, -1.0]])}, np.array([0.4, 0.6])),
@@ -143,7 +143,7 @@ def test_table_of_distributions_is_complete() -> None:
         "student_t": [{"degrees_of_freedom", "location", "scale"}],
         "lognormal": [{"log_location", "log_scale"}],
         "multivariate_normal": [{"location", "covariance_cholesky"}],
-        "ordered_logistic": [{"predictor", "cutpoints"}],
+        "cumulative_logit": [{"predictor", "cutpoints"}],
     }
     for name, forms in expected.items():
         assert sorted(map(sorted, forms)) == sorted(map(sorted, parameterisations(name)))
@@ -203,7 +203,7 @@ def test_variate_valid_checks_observed_data() -> None:
         categorical.variate_valid(np.array([1, 3, 4]), {"log_weights": np.zeros(3)}),
         [True, True, False],
     )
-    ordered = find_distribution("ordered_logistic", {"predictor", "cutpoints"})
+    ordered = find_distribution("cumulative_logit", {"predictor", "cutpoints"})
     assert ordered.category_count({"cutpoints": np.zeros(4)}) == 5
     simplex = find_distribution("dirichlet", {"concentration"})
     np.testing.assert_array_equal(
@@ -284,7 +284,7 @@ def test_extreme_linear_predictors_stay_finite() -> None:
     b < a, log(logistic(a) - logistic(b)) = a + log(1 - exp(b - a)) up to O(exp(a)); softmax is
     unchanged by adding a constant to every log weight.
     """
-    ordered = find_distribution("ordered_logistic", {"predictor", "cutpoints"})
+    ordered = find_distribution("cumulative_logit", {"predictor", "cutpoints"})
     cutpoints = np.array([-1.0, 0.5, 2.0])
     values = ordered.log_density(np.array([1, 3, 4]), {"predictor": np.array([40.0, -800.0, 900.0]),
                                                        "cutpoints": cutpoints})

@@ -71,7 +71,7 @@ CASES = {
     "categorical": ({"log_weights": "[p1, p2, 0]"}, [1, 3, 2], "integer",
                     lambda y, p1, p2, q1, q2: (np.array([p1, p2, 0.0])
                                                - special.logsumexp([p1, p2, 0.0]))[y - 1]),
-    "ordered_logistic": ({"predictor": "p1", "cutpoints": "[-q1, q2]"}, [1, 2, 3], "integer",
+    "cumulative_logit": ({"predictor": "p1", "cutpoints": "[-q1, q2]"}, [1, 2, 3], "integer",
                          None),
 }
 
@@ -85,10 +85,10 @@ def test_distribution_in_a_likelihood_term(name):
         "priors": PRIORS,
         "likelihood": [{"name": "obs", "observed": "y", "distribution": name,
                         "arguments": arguments}],
-        "generated": {"replicates": ["obs"], "pointwise_log_likelihood": ["obs"]},
+        "per_draw": {"replicates": ["obs"], "pointwise": ["obs"]},
     }
     model = compile_model(spec, {"y": observed})
-    prior_only = compile_model({**spec, "likelihood": [], "generated": {}, "inputs": {}}, {})
+    prior_only = compile_model({**spec, "likelihood": [], "per_draw": {}, "inputs": {}}, {})
     rng = np.random.default_rng(3)
     for _ in range(3):
         u = rng.normal(0.0, 0.5, model.dimension)
@@ -106,7 +106,7 @@ def test_dirichlet_and_multivariate_normal_priors_with_expression_arguments():
     spec = {
         "unknowns": {"w": {"shape": [3], "structure": "simplex"}, "c": {"lower": 0},
                      "x": {"shape": [2]}, "m": {},
-                     "L": {"shape": [2, 2], "structure": "cholesky_correlation"}},
+                     "L": {"shape": [2, 2], "structure": "correlation_factor"}},
         "priors": [
             {"on": "c", "distribution": "exponential", "arguments": {"rate": 1}},
             {"on": "w", "distribution": "dirichlet", "arguments": {"concentration": "[c, c, 1]"}},
@@ -132,7 +132,7 @@ def test_distribution_as_a_prediction(name):
     or carry only their own event axes (a categorical's weights, ordered cutpoints)."""
     arguments = CASES[name][0]
     spec = {"unknowns": UNKNOWNS, "priors": PRIORS,
-            "generated": {"predictions": [{"name": "draw", "distribution": name,
+            "per_draw": {"predictions": [{"name": "draw", "distribution": name,
                                            "arguments": arguments}]}}
     model = compile_model(spec, {})
     assert model.quantity_names[-1] == "draw"

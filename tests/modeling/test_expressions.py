@@ -29,7 +29,7 @@ def constant_value(text: str) -> np.ndarray:
     ("- - 3", 3.0), ("1.5e2 + .5", 150.5), ("2^-1", 0.5), ("select(2 > 1, 10, 20)", 10.0),
     ("select(1 >= 2, 10, 20)", 20.0), ("sum([1, 2, 3])", 6.0), ("mean([1, 2, 3, 6])", 3.0),
     ("dot([1, 2], [3, 4])", 11.0), ("[[1, 2], [3, 4]][2, 1]", 3.0), ("[4, 5, 6][3]", 6.0),
-    ("sum([[1, 2], [3, 4]] @ [1, 1])", 10.0), ("sum(cumulative_sum([1, 2, 3]))", 10.0),
+    ("sum([[1, 2], [3, 4]] @ [1, 1])", 10.0), ("sum(running_sum([1, 2, 3]))", 10.0),
 ])
 def test_precedence_and_constant_folding(text, expected):
     assert float(constant_value(text)) == pytest.approx(expected, rel=1e-15)

@@ -66,7 +66,7 @@ def test_function_and_operator(shape, function, operator, b_first, seed):
 @given(n=st.integers(1, 5), seed=st.integers(0, 2**32 - 1),
        reduce=st.sampled_from(["sum", "mean"]))
 def test_vector_pipeline(n, seed, reduce):
-    expression = (f"cumulative_sum(softmax(a) * b) + log_softmax(a) - {reduce}(a) * b "
+    expression = (f"running_sum(softmax(a) * b) + log_softmax(a) - {reduce}(a) * b "
                   "+ select(a > 1, a, b) + dot(a, a)")
     check(spec_for([n], expression), seed)
 

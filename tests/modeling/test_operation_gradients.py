@@ -110,7 +110,7 @@ def test_vector_functions(data, shape):
     check_vjp(ops.DOT, [x, y], rng)
     check_vjp(ops.SOFTMAX, [x], rng)
     check_vjp(ops.LOG_SOFTMAX, [x], rng)
-    check_vjp(ops.CUMULATIVE_SUM, [x], rng)
+    check_vjp(ops.RUNNING_SUM, [x], rng)
 
 
 @SETTINGS

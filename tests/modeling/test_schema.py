@@ -60,7 +60,7 @@ def test_readme_example_validates():
     assert names[:3] == ["baseline", "heat", "spread"]
     assert names[19:22] == ["failures_per_100_unit_months", "hot_month_failures",
                             "replicate.monthly_failures[1]"]
-    assert names[-1] == "log_likelihood.monthly_failures[8]"
+    assert names[-1] == "pointwise.monthly_failures[8]"
 
 
 def test_not_an_object():

@@ -8,7 +8,7 @@ def test_huge_declared_shapes_are_problems_not_allocations() -> None:
     spec = {
         "inputs": {"n": {"type": "integer"}},
         "unknowns": {
-            "factor": {"shape": ["n", "n"], "structure": "cholesky_correlation"},
+            "factor": {"shape": ["n", "n"], "structure": "correlation_factor"},
             "z": {"shape": [MAX_ELEMENTS + 1]},
         },
         "priors": [

@@ -29,7 +29,7 @@ BASE = {
     ],
     "likelihood": [{"name": "effects", "observed": "y", "distribution": "normal",
                     "arguments": {"location": "theta[school]", "scale": "sigma"}}],
-    "generated": {"replicates": ["effects"]},
+    "per_draw": {"replicates": ["effects"]},
 }
 DATA = {"J": 8, "y": [28, 8, -3, 7, -1, 1, 18, 12], "sigma": [15, 10, 16, 11, 9, 11, 10, 18],
         "school": [1, 2, 3, 4, 5, 6, 7, 8]}
@@ -193,8 +193,8 @@ CASES = [
      "/model/likelihood/0/observed", "must be an input, but it is a derived quantity"),
     ("duplicate likelihood term names", setting(["likelihood", 1], dict(BASE["likelihood"][0])),
      "/model/likelihood/1/name", "used by an earlier likelihood term"),
-    ("replicates of an unknown term", setting(["generated", "replicates"], ["effect"]),
-     "/model/generated/replicates/0", "'effect' is not the name of a likelihood term"),
+    ("replicates of an unknown term", setting(["per_draw", "replicates"], ["effect"]),
+     "/model/per_draw/replicates/0", "'effect' is not the name of a likelihood term"),
     # --- expressions reaching for Python
     ("attribute access", derived("mu.__class__"), "/model/derived/theta",
      "attribute access ('.') is not allowed"),

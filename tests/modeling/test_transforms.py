@@ -34,9 +34,10 @@ CASES: list[tuple[str, dict, tuple[int, ...], float]] = [
     ("simplex", {"structure": "simplex"}, (4,), 3.0),
     ("simplex_rows", {"structure": "simplex"}, (2, 3), 3.0),
     ("ordered", {"structure": "ordered"}, (4,), 2.0),
-    ("positive_ordered", {"structure": "positive_ordered"}, (4,), 2.0),
-    ("cholesky_2", {"structure": "cholesky_correlation"}, (2, 2), 2.0),
-    ("cholesky_4", {"structure": "cholesky_correlation"}, (4, 4), 2.0),
+    ("ordered_above", {"structure": "ordered", "lower": 0.0}, (4,), 2.0),
+    ("ordered_above_shifted", {"structure": "ordered", "lower": -3.5}, (2, 3), 2.0),
+    ("cholesky_2", {"structure": "correlation_factor"}, (2, 2), 2.0),
+    ("cholesky_4", {"structure": "correlation_factor"}, (4, 4), 2.0),
 ]
 
 
@@ -48,7 +49,7 @@ def free_coordinates(transform: Transform, x: np.ndarray) -> np.ndarray:
     """The coordinates of x that determine it: the target of the Jacobian."""
     if transform.structure == "simplex":
         return x[..., :-1].ravel()
-    if transform.structure == "cholesky_correlation":
+    if transform.structure == "correlation_factor":
         rows, cols = np.tril_indices(x.shape[0], -1)
         return x[rows, cols]
     return np.ravel(x)
@@ -83,11 +84,9 @@ def test_round_trip_and_structure(label, options, shape, bound, data) -> None:
     if structure == "simplex":
         assert np.all(x > 0)
         np.testing.assert_allclose(x.sum(axis=-1), 1.0, rtol=0, atol=1e-14)
-    if structure in ("ordered", "positive_ordered"):
+    if structure == "ordered":
         assert np.all(np.diff(x, axis=-1) > 0)
-    if structure == "positive_ordered":
-        assert np.all(x > 0)
-    if structure == "cholesky_correlation":
+    if structure == "correlation_factor":
         assert np.all(np.triu(x, 1) == 0)
         assert np.all(np.diagonal(x) > 0)
         np.testing.assert_allclose(np.sum(x * x, axis=1), 1.0, rtol=0, atol=1e-13)
@@ -131,9 +130,9 @@ def test_log_jacobian_and_derivatives(label, options, shape, bound, data) -> Non
         ({"structure": "simplex"}, (5,), 4),
         ({"structure": "simplex"}, (3, 5), 12),
         ({"structure": "ordered"}, (5,), 5),
-        ({"structure": "positive_ordered"}, (5,), 5),
-        ({"structure": "cholesky_correlation"}, (5, 5), 10),
-        ({"structure": "cholesky_correlation"}, (1, 1), 0),
+        ({"structure": "ordered", "lower": 0.0}, (5,), 5),
+        ({"structure": "correlation_factor"}, (5, 5), 10),
+        ({"structure": "correlation_factor"}, (1, 1), 0),
     ],
 )
 def test_sizes(options: dict, shape: tuple[int, ...], expected: int) -> None:
@@ -153,7 +152,7 @@ def test_simplex_centre() -> None:
 
 def test_cholesky_identity_at_zero() -> None:
     """Zero partial correlations give the identity factor."""
-    x = make_transform([3, 3], structure="cholesky_correlation").constrain(np.zeros(3))
+    x = make_transform([3, 3], structure="correlation_factor").constrain(np.zeros(3))
     np.testing.assert_allclose(x, np.eye(3), atol=1e-15)
 
 

@@ -30,8 +30,10 @@ def test_dual_averaging_hits_target_and_sampling_follows(method: str) -> None:
         settings = SamplerSettings(method=method, target_acceptance=goal, draws=500)
         _, outputs = run_chains(TEN_SCALES, settings, seed=31, chains=2)
         final = warmup_schedule(settings.warmup_iterations).final_start
-        adapting = np.mean([out.warmup_stats["acceptance"][final:].mean() for out in outputs])
-        sampling = np.mean([out.stats["acceptance"].mean() for out in outputs])
+        adapting = np.mean(
+            [out.warmup_stats["accept_probability"][final:].mean() for out in outputs]
+        )
+        sampling = np.mean([out.stats["accept_probability"].mean() for out in outputs])
         print(f"{method} target {goal}: final warm-up {adapting:.3f}, sampling {sampling:.3f}")
         assert abs(adapting - goal) < 0.05
         # The gap above delta is largest for small delta, where acceptance is steepest in log
@@ -46,7 +48,7 @@ def test_metropolis_acceptance_near_optimal_scaling_target(dimension: int, goal:
     target = IndependentGaussian(np.zeros(dimension), np.geomspace(0.1, 10.0, dimension))
     settings = SamplerSettings(method="metropolis", warmup_iterations=2000, draws=8000)
     _, outputs = run_chains(target, settings, seed=32)
-    per_chain = [float(out.stats["acceptance"].mean()) for out in outputs]
+    per_chain = [float(out.stats["accept_probability"].mean()) for out in outputs]
     print(f"Metropolis d={dimension}: acceptance per chain {np.round(per_chain, 3)}")
     assert abs(np.mean(per_chain) - goal) < 0.04
     assert all(abs(a - goal) < 0.1 for a in per_chain)

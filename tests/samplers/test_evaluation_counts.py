@@ -46,7 +46,7 @@ def test_static_hmc_without_jitter_samples_with_draws_times_steps_gradients() ->
     assert not output.stats["divergent"].any()  # a divergence ends a trajectory early
     step = float(output.adapted["step_size"])
     steps = min(2**settings.maximum_tree_depth, math.ceil(settings.integration_time / step))
-    assert set(output.stats["leapfrog_steps"]) == {steps}
+    assert set(output.stats["gradient_calls"]) == {steps}
     counts = output.evaluations
     assert counts is not None
     assert counts.gradient["sampling"] == settings.draws * steps
@@ -61,11 +61,11 @@ def test_nuts_samples_with_as_many_gradients_as_leapfrog_steps(initialisation: s
     output = Chain(model, settings, np.random.SeedSequence(12)).run()
     counts = output.evaluations
     assert counts is not None
-    assert counts.gradient["sampling"] == int(output.stats["leapfrog_steps"].sum())
+    assert counts.gradient["sampling"] == int(output.stats["gradient_calls"].sum())
     assert totals(counts) == (model.gradient_calls, model.density_calls)
     # Warm-up holds its own leapfrog steps plus initialisation and the step-size searches (at
     # least one evaluation for the start and two trial steps for the first search).
-    warmup_steps = int(output.warmup_stats["leapfrog_steps"].sum())
+    warmup_steps = int(output.warmup_stats["gradient_calls"].sum())
     assert counts.gradient["warmup"] >= warmup_steps + 3
 
 
@@ -79,7 +79,7 @@ def test_initialisation_and_the_first_step_size_search_count_as_warmup() -> None
     assert before_any_iteration.gradient["sampling"] == 0
     output = chain.run()
     assert output.evaluations.gradient["warmup"] == before_any_iteration.gradient["warmup"]
-    assert output.evaluations.gradient["sampling"] == int(output.stats["leapfrog_steps"].sum())
+    assert output.evaluations.gradient["sampling"] == int(output.stats["gradient_calls"].sum())
 
 
 def test_metropolis_counts_log_density_evaluations_and_no_gradients() -> None:

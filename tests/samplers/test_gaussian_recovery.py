@@ -24,12 +24,16 @@ def correlated_five() -> Gaussian:
     return Gaussian(np.array([-1.0, 0.0, 1.0, 2.0, 3.0]), np.outer(sd, sd) * 0.5**lags)
 
 
-def settings_for(method: str, metric: str = "diagonal") -> SamplerSettings:
+def settings_for(method: str, metric: str = "per_coordinate") -> SamplerSettings:
     if method == "metropolis":
         # Random-walk chains mix slowly (integrated autocorrelation time grows with d), so they
         # get more draws for the same quality of check.
-        return SamplerSettings(method=method, metric=metric, warmup_iterations=2000, draws=8000)
-    return SamplerSettings(method=method, metric=metric, warmup_iterations=1000, draws=1000)
+        return SamplerSettings(
+            method=method, preconditioning=metric, warmup_iterations=2000, draws=8000
+        )
+    return SamplerSettings(
+        method=method, preconditioning=metric, warmup_iterations=1000, draws=1000
+    )
 
 
 @pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
@@ -42,7 +46,7 @@ def test_one_dimensional_normal(method: str) -> None:
 
 @pytest.mark.parametrize(
     ("method", "metric"),
-    [("nuts", "diagonal"), ("nuts", "dense"), ("hmc", "dense"), ("metropolis", "dense")],
+    [("nuts", "per_coordinate"), ("nuts", "full"), ("hmc", "full"), ("metropolis", "full")],
 )
 def test_correlated_five_dimensional_normal(method: str, metric: str) -> None:
     target = correlated_five()
@@ -65,7 +69,7 @@ def test_skewed_log_gamma(method: str) -> None:
 def test_dense_sample_covariance_matches() -> None:
     """Cross-moments too: every entry of the 5-d covariance within 4 MCSE (NUTS, dense metric)."""
     target = correlated_five()
-    draws, _ = run_chains(target, settings_for("nuts", "dense"), seed=404)
+    draws, _ = run_chains(target, settings_for("nuts", "full"), seed=404)
     failures = []
     centred = draws - target.mean
     for i in range(5):

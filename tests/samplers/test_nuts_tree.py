@@ -14,10 +14,10 @@ def test_tree_sizes_and_maximum_depth() -> None:
     lags = np.abs(np.subtract.outer(np.arange(20), np.arange(20)))
     target = Gaussian(np.zeros(20), 0.95**lags)
     settings = SamplerSettings(
-        metric="unit", maximum_tree_depth=3, warmup_iterations=200, draws=200
+        preconditioning="none", maximum_tree_depth=3, warmup_iterations=200, draws=200
     )
     out = Chain(target, settings, np.random.SeedSequence(4)).run()
-    depth, steps = out.stats["tree_depth"], out.stats["leapfrog_steps"]
+    depth, steps = out.stats["doublings"], out.stats["gradient_calls"]
     assert np.all((depth >= 1) & (depth <= 3))
     assert np.all(steps <= 2**depth - 1) and np.all(steps >= 2 ** (depth - 1))
     assert np.mean(depth == 3) > 0.5
@@ -26,7 +26,7 @@ def test_tree_sizes_and_maximum_depth() -> None:
 def test_energy_is_the_hamiltonian_of_the_draw() -> None:
     """With a unit metric H = -log density + |p|^2 / 2, so energy >= -log density at the draw."""
     target = IndependentGaussian(np.zeros(4), np.ones(4))
-    settings = SamplerSettings(metric="unit", warmup_iterations=100, draws=300)
+    settings = SamplerSettings(preconditioning="none", warmup_iterations=100, draws=300)
     out = Chain(target, settings, np.random.SeedSequence(5)).run()
     assert np.all(out.stats["energy"] >= -out.stats["log_density"])
     expected = np.array([target.log_density(x) for x in out.draws])

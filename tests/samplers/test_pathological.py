@@ -27,7 +27,7 @@ def test_everywhere_divergent_target_finishes(method: str) -> None:
     assert out.completed
     assert np.all(out.draws == point)
     if method == "metropolis":
-        assert np.all(out.stats["acceptance"] == 0.0)
+        assert np.all(out.stats["accept_probability"] == 0.0)
     else:
         assert np.all(out.stats["divergent"])
         assert np.all(np.isfinite(out.stats["step_size"])) and np.all(out.stats["step_size"] > 0)

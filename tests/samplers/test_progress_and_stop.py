@@ -36,7 +36,7 @@ def test_should_stop_ends_early_with_the_draws_so_far() -> None:
     out = chain.run(should_stop=stop)
     assert not out.completed
     assert out.draws.shape == (30, 3)
-    assert len(out.warmup_stats["acceptance"]) == 100
+    assert len(out.warmup_stats["accept_probability"]) == 100
     assert polls == 131  # polled before every iteration, including the one it refused
     assert chain.run().completed  # the same object can carry on
 

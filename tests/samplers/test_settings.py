@@ -21,7 +21,7 @@ def test_default_target_acceptance_by_method_and_dimension() -> None:
     ("values", "message"),
     [
         ({"method": "gibbs"}, "method must be one of"),
-        ({"metric": "full"}, "metric must be one of"),
+        ({"preconditioning": "dense"}, "preconditioning must be one of"),
         ({"draws": -1}, "draws must be a non-negative integer"),
         ({"warmup_iterations": 1.5}, "warmup_iterations must be a non-negative integer"),
         ({"maximum_tree_depth": 0}, "maximum_tree_depth must be between 1 and 30"),
@@ -37,7 +37,7 @@ def test_bad_values_are_refused_with_a_reason(values: dict, message: str) -> Non
 
 
 def test_round_trip_through_a_dict() -> None:
-    settings = SamplerSettings(method="hmc", metric="dense", draws=10, jitter=False)
+    settings = SamplerSettings(method="hmc", preconditioning="full", draws=10, jitter=False)
     assert SamplerSettings.from_dict(settings.as_dict()) == settings
     with pytest.raises(ValueError, match="unknown sampler settings: colour"):
         SamplerSettings.from_dict({"colour": "blue"})

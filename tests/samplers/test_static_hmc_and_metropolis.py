@@ -19,7 +19,7 @@ def test_hmc_steps_are_integration_time_over_step_size() -> None:
     out = Chain(target, settings, np.random.SeedSequence(1)).run()
     eps = out.adapted["step_size"]
     assert np.all(out.stats["step_size"] == eps)
-    assert np.all(out.stats["leapfrog_steps"] == math.ceil(2.5 / eps))
+    assert np.all(out.stats["gradient_calls"] == math.ceil(2.5 / eps))
     jittered = Chain(
         target, SamplerSettings(method="hmc", draws=200), np.random.SeedSequence(1)
     ).run()
@@ -36,7 +36,7 @@ def test_metropolis_learns_the_covariance_shape() -> None:
     # sds (2, 1, 0.5), correlations 0.8 and -0.4: eigenvalues about 0.09, 0.46 and 4.7.
     covariance = np.array([[4.0, 1.6, 0.0], [1.6, 1.0, -0.2], [0.0, -0.2, 0.25]])
     target = Gaussian(np.zeros(3), covariance)
-    settings = SamplerSettings(method="metropolis", metric="dense", draws=100)
+    settings = SamplerSettings(method="metropolis", preconditioning="full", draws=100)
     out = Chain(target, settings, np.random.SeedSequence(2)).run()
     learned = np.array(out.adapted["proposal_covariance"])
     error = np.linalg.norm(learned - covariance) / np.linalg.norm(covariance)

@@ -24,8 +24,8 @@ def target() -> Gaussian:
     return Gaussian(np.array([0.5, -1.0, 2.0]), COVARIANCE)
 
 
-def warm(metric: str = "diagonal", step_size: float = 0.7, method: str = "nuts") -> WarmStart:
-    covariance = COVARIANCE if metric == "dense" else np.diag(COVARIANCE).copy()
+def warm(metric: str = "per_coordinate", step_size: float = 0.7, method: str = "nuts") -> WarmStart:
+    covariance = COVARIANCE if metric == "full" else np.diag(COVARIANCE).copy()
     metropolis = method == "metropolis"
     return WarmStart(
         metric=metric,
@@ -87,14 +87,16 @@ def test_the_earlier_position_is_the_first_state(initialisation: str) -> None:
 
 
 @pytest.mark.parametrize("method", ["nuts", "metropolis"])
-@pytest.mark.parametrize("metric", ["diagonal", "dense"])
+@pytest.mark.parametrize("metric", ["per_coordinate", "full"])
 def test_the_refresh_shrinks_the_window_covariance_toward_the_earlier_metric(
     metric, method
 ) -> None:
-    settings = SamplerSettings(method=method, metric=metric, warmup_iterations=200, draws=10)
+    settings = SamplerSettings(
+        method=method, preconditioning=metric, warmup_iterations=200, draws=10
+    )
     start = warm(metric, method=method)
     chain = Chain(target(), settings, np.random.SeedSequence(6), warm_start=start)
-    window = RunningCovariance(3, metric == "dense")
+    window = RunningCovariance(3, metric == "full")
     chain.run(should_stop=lambda: chain.iteration >= 50)
     while chain.iteration < 160:
         chain.step()
@@ -112,18 +114,18 @@ def test_the_refresh_shrinks_the_window_covariance_toward_the_earlier_metric(
 @pytest.mark.parametrize(
     ("earlier", "now", "expected"),
     [
-        ("dense", "diagonal", np.diag(COVARIANCE) * 1.1),
-        ("diagonal", "dense", np.diag(np.diag(COVARIANCE)) * 1.1),
-        ("diagonal", "unit", np.ones(3)),
-        ("dense", "unit", np.ones(3)),
+        ("full", "per_coordinate", np.diag(COVARIANCE) * 1.1),
+        ("per_coordinate", "full", np.diag(np.diag(COVARIANCE)) * 1.1),
+        ("per_coordinate", "none", np.ones(3)),
+        ("full", "none", np.ones(3)),
     ],
 )
 def test_an_earlier_metric_of_another_kind_is_converted(earlier, now, expected) -> None:
-    settings = SamplerSettings(metric=now, warmup_iterations=100, draws=10)
+    settings = SamplerSettings(preconditioning=now, warmup_iterations=100, draws=10)
     chain = Chain(target(), settings, np.random.SeedSequence(7), warm_start=warm(earlier))
     np.testing.assert_allclose(chain.metric.inverse, expected, rtol=1e-15)
     # the step size is searched again, from the earlier one, since its units changed
-    same = SamplerSettings(metric=earlier, warmup_iterations=100, draws=10)
+    same = SamplerSettings(preconditioning=earlier, warmup_iterations=100, draws=10)
     unchanged = Chain(target(), same, np.random.SeedSequence(7), warm_start=warm(earlier))
     assert unchanged.step_size == 0.7
     assert chain.step_size != 0.7
@@ -144,13 +146,13 @@ def test_a_step_size_far_off_is_adapted_away(step_size: float) -> None:
     # the record was bad: the first trajectory diverged (too large) or took hundreds of steps
     first = {k: v[0] for k, v in bad.warmup_stats.items()}
     assert first["step_size"] == step_size
-    assert first["divergent"] if step_size > 1 else first["leapfrog_steps"] >= 255
+    assert first["divergent"] if step_size > 1 else first["gradient_calls"] >= 255
 
 
 def test_mismatched_warm_starts_are_refused() -> None:
     settings = SamplerSettings(warmup_iterations=20, draws=10)
     with pytest.raises(ValueError, match="step_size"):
         Chain(target(), settings, np.random.SeedSequence(9), warm_start=warm(method="metropolis"))
-    short = WarmStart("diagonal", np.ones(2), step_size=0.5)
+    short = WarmStart("per_coordinate", np.ones(2), step_size=0.5)
     with pytest.raises(ValueError, match="shape"):
         Chain(target(), settings, np.random.SeedSequence(9), warm_start=short)

@@ -336,10 +336,10 @@ def test_quantity_lists_split_on_commas_outside_brackets() -> None:
     from service.problem_details import ApiProblem
     from service.results import select_columns
 
-    names = ["mu", "L[1,1]", "L[2,1]", "L[2,2]", "log_likelihood.obs[3]"]
+    names = ["mu", "L[1,1]", "L[2,1]", "L[2,2]", "pointwise.obs[3]"]
     chains = [type("ChainRow", (), {"chain_index": i, "id": i})() for i in range(3)]
-    chosen = select_columns(names, chains, "L[2,1], mu,log_likelihood.obs[3]", "3,1", "4")
-    assert chosen.names == ["L[2,1]", "mu", "log_likelihood.obs[3]"]
+    chosen = select_columns(names, chains, "L[2,1], mu,pointwise.obs[3]", "3,1", "4")
+    assert chosen.names == ["L[2,1]", "mu", "pointwise.obs[3]"]
     assert chosen.columns == [2, 0, 4] and chosen.chains == [2, 0] and chosen.thin == 4
     for quantities, chain_list, thin in (
         ("L[3,1]", None, None),

@@ -163,7 +163,7 @@ def test_draws_over_http_are_bitwise_the_in_process_draws(
     assert diagnostics["verdict"] == expected["verdict"] == job["verdict"]
     mean, _ = posterior_mean_sd()
     record = summary["quantities"][0]
-    assert abs(record["mean"] - mean) < 5 * record["mcse_mean"]
+    assert abs(record["mean"] - mean) < 5 * record["mean_error"]
 
 
 def test_cancel_stops_running_chains_within_seconds(
@@ -197,7 +197,7 @@ def test_cancel_stops_running_chains_within_seconds(
 
 
 @pytest.mark.slow
-def test_a_chain_outliving_the_visibility_timeout_is_not_run_twice(
+def test_a_chain_outliving_the_redelivery_timeout_is_not_run_twice(
     sqlite_store: str, redis_url: str, live_service
 ) -> None:
     """The broker's visibility timeout is cut to 2 s and its redelivery sweep to every second, so
@@ -208,8 +208,8 @@ def test_a_chain_outliving_the_visibility_timeout_is_not_run_twice(
         redis_url,
         workers=2,
         env={
-            "DRAWYARD_VISIBILITY_TIMEOUT": "2",
-            "DRAWYARD_BROKER_TRANSPORT_OPTIONS": json.dumps(
+            "DRAWYARD_REDELIVERY_TIMEOUT": "2",
+            "DRAWYARD_BROKER_LIBRARY_OPTIONS": json.dumps(
                 {"unacked_restore_interval": 1, "unacked_restore_throttle": 1}
             ),
         },

@@ -47,7 +47,7 @@ def test_celery_is_json_only_late_acking_and_outlasts_the_longest_chain() -> Non
     assert conf.broker_transport_options["visibility_timeout"] > 7200
     assert {"drawyard.run_chain", "drawyard.finish_job"} <= set(app.tasks)
     explicit = load_settings(
-        {"visibility_timeout": 5, "broker_transport_options": '{"unacked_restore_interval": 1}'}, {}
+        {"redelivery_timeout": 5, "broker_library_options": '{"unacked_restore_interval": 1}'}, {}
     )
     _, options = broker_options(explicit)
     assert options == {"visibility_timeout": 5, "unacked_restore_interval": 1}

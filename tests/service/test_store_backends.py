@@ -109,7 +109,7 @@ def fake_result(draws: np.ndarray):
         adapted={"step_size": np.float64(0.5)},
         stats={
             "divergent": np.zeros(draws.shape[0], bool),
-            "tree_depth": np.arange(draws.shape[0]),
+            "doublings": np.arange(draws.shape[0]),
         },
     )
 
@@ -168,7 +168,7 @@ def test_an_expired_lease_passes_on_and_fences_out_the_old_holder(runtime: Runti
     stored = {row.name: decode_array(row.data, row.sha256) for row in rows}
     assert np.array_equal(stored["draws"], draws) and stored["draws"].dtype == np.float64
     assert stored["divergent"].dtype == np.bool_ and np.array_equal(
-        stored["tree_depth"], np.arange(10)
+        stored["doublings"], np.arange(10)
     )
     assert chain.adapted == {"step_size": 0.5}
 

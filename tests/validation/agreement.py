@@ -13,6 +13,10 @@ from worker.diagnostics import summarize
 METHODS = ("nuts", "hmc", "metropolis")
 TOLERANCE_MCSE = 4.0
 PROBABILITIES = {"5%": 0.05, "50%": 0.5, "95%": 0.95}
+# The runs ask for a 90% central interval, so the summary's median and interval end points are
+# the 50%, 5% and 95% quantiles compared here.
+INTERVAL = 0.9
+SUMMARY_POINTS = {"5%": "lower", "50%": "median", "95%": "upper"}
 
 # Modest budgets so the directory runs in a few minutes; random-walk Metropolis needs more draws
 # for the same effective sample size (Roberts, Gelman & Gilks 1997: its efficiency falls as 1/d).
@@ -26,7 +30,8 @@ BUDGETS = {
 def run(spec: dict, data: dict, method: str, seed: int, **sampler) -> dict:
     """Run a spec through ``runner.run_in_process`` with the method's budget."""
     settings = {"method": method, "seed": seed, **BUDGETS[method], **sampler}
-    return runner.run_in_process({"model": spec, "data": data, "sampler": settings})
+    body = {"model": spec, "data": data, "sampler": settings, "summary": {"interval": INTERVAL}}
+    return runner.run_in_process(body)
 
 
 def record_of(outcome: dict, name: str) -> dict:
@@ -40,7 +45,7 @@ def column(outcome: dict, name: str) -> np.ndarray:
 
 def summary_of(draws: np.ndarray, name: str = "quantity") -> dict:
     """The summary record of a (chains, draws) array computed in the test (e.g. a transform)."""
-    return summarize(draws[:, :, None], [name])[0]
+    return summarize(draws[:, :, None], [name], INTERVAL)[0]
 
 
 def mismatches(record: dict, truth: Mapping[str, float], k: float = TOLERANCE_MCSE) -> list[str]:
@@ -51,14 +56,13 @@ def mismatches(record: dict, truth: Mapping[str, float], k: float = TOLERANCE_MC
     found = []
     pairs = []
     if "mean" in truth:
-        pairs.append(("mean", record["mean"], record["mcse_mean"], truth["mean"]))
+        pairs.append(("mean", record["mean"], record["mean_error"], truth["mean"]))
     if "sd" in truth:
-        pairs.append(("sd", record["sd"], record["mcse_of_sd"], truth["sd"]))
-    for label in PROBABILITIES:
+        pairs.append(("sd", record["sd"], record["sd_error"], truth["sd"]))
+    for label, point in SUMMARY_POINTS.items():
         if label in truth:
-            pairs.append(
-                (label, record["quantiles"][label], record["mcse_quantiles"][label], truth[label])
-            )
+            estimate = record["median"] if point == "median" else record["interval"][point]
+            pairs.append((label, estimate, record["quantile_errors"][point], truth[label]))
     for what, estimate, mcse, expected in pairs:
         if estimate is None or mcse is None or not abs(estimate - expected) <= k * mcse:
             found.append(

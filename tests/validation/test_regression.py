@@ -106,9 +106,9 @@ def test_logistic_regression_posterior_mean_matches_mle(method: str) -> None:
     for j, name in enumerate(names):
         record = summary_of(column(outcome, name), name)
         mean_gap = abs(record["mean"] - fit.params[j])
-        if mean_gap > 0.1 * fit.bse[j] + 4 * record["mcse_mean"]:
+        if mean_gap > 0.1 * fit.bse[j] + 4 * record["mean_error"]:
             problems.append(f"{name}: mean {record['mean']} vs MLE {fit.params[j]}")
         sd_gap = abs(record["sd"] - fit.bse[j])
-        if sd_gap > 0.1 * fit.bse[j] + 4 * record["mcse_of_sd"]:
+        if sd_gap > 0.1 * fit.bse[j] + 4 * record["sd_error"]:
             problems.append(f"{name}: sd {record['sd']} vs MLE se {fit.bse[j]}")
     assert not problems, problems

@@ -2,7 +2,7 @@
 
 from worker.diagnostics.energy import ebfmi
 from worker.diagnostics.ess import bulk_ess, ess, quantile_ess, tail_ess
-from worker.diagnostics.mcse import mcse_mean, mcse_of_sd, mcse_quantile
+from worker.diagnostics.mcse import mean_error, quantile_error, sd_error
 from worker.diagnostics.rhat import classic_split_rhat, split_rhat
 from worker.diagnostics.sampler_report import sampler_checks
 from worker.diagnostics.summary import summarize
@@ -16,9 +16,9 @@ __all__ = [
     "classic_split_rhat",
     "ebfmi",
     "ess",
-    "mcse_mean",
-    "mcse_quantile",
-    "mcse_of_sd",
+    "mean_error",
+    "quantile_error",
+    "sd_error",
     "quantile_ess",
     "resolve_thresholds",
     "sampler_checks",

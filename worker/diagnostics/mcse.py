@@ -22,14 +22,14 @@ ONE_SD_BELOW = float(special.ndtr(-1.0))
 ONE_SD_ABOVE = float(special.ndtr(1.0))
 
 
-def mcse_mean_batch(x: np.ndarray) -> np.ndarray:
+def mean_error_batch(x: np.ndarray) -> np.ndarray:
     """MCSE of the mean of each quantity of a ``(q, chains, draws)`` batch."""
     q = x.shape[0]
     sd = x.reshape(q, -1).std(axis=1, ddof=1)
     return sd / np.sqrt(ess_batch(x))
 
 
-def mcse_of_sd_batch(x: np.ndarray) -> np.ndarray:
+def sd_error_batch(x: np.ndarray) -> np.ndarray:
     """MCSE of the sd of each quantity of a ``(q, chains, draws)`` batch."""
     q = x.shape[0]
     flat = x.reshape(q, -1)
@@ -42,7 +42,7 @@ def mcse_of_sd_batch(x: np.ndarray) -> np.ndarray:
         return mcse_variance / (2.0 * np.sqrt(variance))
 
 
-def mcse_quantile_batch(x: np.ndarray, p: float, s_eff: np.ndarray | None = None) -> np.ndarray:
+def quantile_error_batch(x: np.ndarray, p: float, s_eff: np.ndarray | None = None) -> np.ndarray:
     """MCSE of the p-quantile of each quantity of a ``(q, chains, draws)`` batch.
 
     ``s_eff`` is the quantile's indicator ESS when the caller already has it.
@@ -65,16 +65,16 @@ def mcse_quantile_batch(x: np.ndarray, p: float, s_eff: np.ndarray | None = None
     return np.where(ok, result, np.nan)
 
 
-def mcse_mean(x: np.ndarray) -> float:
+def mean_error(x: np.ndarray) -> float:
     """MCSE of the mean of one quantity's ``(chains, draws)`` array."""
-    return float(mcse_mean_batch(as_batch(x))[0])
+    return float(mean_error_batch(as_batch(x))[0])
 
 
-def mcse_of_sd(x: np.ndarray) -> float:
+def sd_error(x: np.ndarray) -> float:
     """MCSE of the sd of one quantity's ``(chains, draws)`` array."""
-    return float(mcse_of_sd_batch(as_batch(x))[0])
+    return float(sd_error_batch(as_batch(x))[0])
 
 
-def mcse_quantile(x: np.ndarray, p: float) -> float:
+def quantile_error(x: np.ndarray, p: float) -> float:
     """MCSE of the p-quantile of one quantity's ``(chains, draws)`` array."""
-    return float(mcse_quantile_batch(as_batch(x), p)[0])
+    return float(quantile_error_batch(as_batch(x), p)[0])

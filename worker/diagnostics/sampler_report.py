@@ -15,13 +15,14 @@ def _finite_or_none(value: float) -> float | None:
 def sampler_checks(stats: list[dict[str, np.ndarray]], maximum_tree_depth: int | None) -> dict:
     """Summarise each chain's per-draw statistics (sampling phase only) into a JSON-able report.
 
-    ``stats[c]`` holds arrays such as ``divergent``, ``tree_depth``, ``acceptance`` and ``energy``
-    for chain ``c``; a draw counts as hitting the depth limit when its tree depth reaches
+    ``stats[c]`` holds arrays such as ``divergent``, ``doublings`` (tree depth),
+    ``accept_probability`` and ``energy`` for chain ``c``; a draw counts as hitting the depth
+    limit when its tree depth reaches
     ``maximum_tree_depth`` (None when the method builds no trees).
     """
     has_divergent = bool(stats) and all("divergent" in s for s in stats)
     has_depth = (
-        bool(stats) and maximum_tree_depth is not None and all("tree_depth" in s for s in stats)
+        bool(stats) and maximum_tree_depth is not None and all("doublings" in s for s in stats)
     )
     divergences = (
         [int(np.count_nonzero(np.asarray(s["divergent"]))) for s in stats]
@@ -29,12 +30,14 @@ def sampler_checks(stats: list[dict[str, np.ndarray]], maximum_tree_depth: int |
         else None
     )
     depth_hits = (
-        [int(np.count_nonzero(np.asarray(s["tree_depth"]) >= maximum_tree_depth)) for s in stats]
+        [int(np.count_nonzero(np.asarray(s["doublings"]) >= maximum_tree_depth)) for s in stats]
         if has_depth
         else None
     )
     acceptance = [
-        _finite_or_none(np.mean(s["acceptance"])) if len(s.get("acceptance", ())) else None
+        _finite_or_none(np.mean(s["accept_probability"]))
+        if len(s.get("accept_probability", ()))
+        else None
         for s in stats
     ]
     energies = [_finite_or_none(ebfmi(s["energy"])) if "energy" in s else None for s in stats]

@@ -1,5 +1,13 @@
-"""Per-quantity posterior summary: location, spread, quantiles, their Monte Carlo standard
-errors, bulk- and tail-ESS and R-hat, as JSON-able records (undefined values are None)."""
+"""Per-quantity posterior summary, as JSON-able records (undefined values are None).
+
+Our own layout: the median and a central interval first (what a reader asks first: where is it,
+and how sure are we), then mean and sd, then the diagnostics (R-hat, bulk- and tail-ESS), then
+the Monte Carlo errors of the estimates. The interval's level is a job setting (the submission's
+``summary.interval``); the default 0.8 is our own choice: wide enough to show the spread, and its
+end points, the 10% and 90% quantiles, sit where a few thousand draws still estimate a quantile
+well (a sample quantile's variance p(1 - p) / (n f(q)^2) grows as the density f falls into the
+tails; common practice).
+"""
 
 from __future__ import annotations
 
@@ -8,22 +16,17 @@ from collections.abc import Sequence
 import numpy as np
 
 from worker.diagnostics.ess import TAIL_PROBABILITIES, bulk_ess_batch, quantile_ess_batch
-from worker.diagnostics.mcse import mcse_mean_batch, mcse_of_sd_batch, mcse_quantile_batch
+from worker.diagnostics.mcse import mean_error_batch, quantile_error_batch, sd_error_batch
 from worker.diagnostics.rhat import split_rhat_batch
 from worker.diagnostics.splitting import MIN_DRAWS_PER_CHAIN
 
-DEFAULT_QUANTILES = (0.05, 0.5, 0.95)
+DEFAULT_INTERVAL = 0.8
 # quantities handled per vectorised pass, bounded so a wide model does not need gigabytes at once
 CELLS_PER_PASS = 2_000_000
 
 NOTE_CONSTANT = "constant"
 NOTE_NOT_FINITE = "not_finite"
 NOTE_TOO_FEW_DRAWS = "too_few_draws"
-
-
-def quantile_label(p: float) -> str:
-    """'5%' for 0.05, '2.5%' for 0.025."""
-    return f"{100.0 * p:g}%"
 
 
 def _json_number(value: float) -> float | None:
@@ -44,36 +47,54 @@ def _notes(block: np.ndarray) -> list[str | None]:
     return notes
 
 
+def interval_problem(level: object) -> str | None:
+    """Why ``level`` cannot be a central interval's level, or None."""
+    number = isinstance(level, int | float) and not isinstance(level, bool)
+    if not (number and 0.0 < level < 1.0):
+        return f"The interval's level must be a number strictly between 0 and 1, got {level!r}."
+    return None
+
+
 def summarize(
-    draws: np.ndarray, names: Sequence[str], quantiles: Sequence[float] = DEFAULT_QUANTILES
+    draws: np.ndarray, names: Sequence[str], interval: float = DEFAULT_INTERVAL
 ) -> list[dict]:
     """One record per quantity of ``draws`` shaped ``(chains, draws, quantities)``.
 
-    A record holds ``name``, ``mean``, ``sd``, ``quantiles`` and ``mcse_quantiles`` (keyed
-    '5%'...), ``mcse_mean``, ``mcse_of_sd``, ``bulk_ess``, ``tail_ess``, ``rhat`` and ``note``:
-    None, or why the diagnostics are None: 'constant' (every draw identical), 'not_finite' (some
-    draw is NaN or infinite) or 'too_few_draws' (fewer than four per chain).
+    A record holds, in this order: ``name``; ``median``; ``interval`` (``level``, ``lower`` and
+    ``upper``: the central interval's end points, the (1 - level)/2 and (1 + level)/2 quantiles);
+    ``mean``; ``sd``; ``rhat``; ``bulk_ess``; ``tail_ess``; the Monte Carlo standard errors
+    ``mean_error``, ``sd_error`` and ``quantile_errors`` (``median``, ``lower``, ``upper``); and
+    ``note``: None, or why the diagnostics are None: 'constant' (every draw identical),
+    'not_finite' (some draw is NaN or infinite) or 'too_few_draws' (fewer than four per chain).
     """
+    problem = interval_problem(interval)
+    if problem:
+        raise ValueError(problem)
     values = np.asarray(draws, dtype=np.float64)
     if values.ndim != 3:
         raise ValueError(f"expected draws shaped (chains, draws, quantities), got {values.shape}")
     chains, n, width = values.shape
     if len(names) != width:
         raise ValueError(f"{len(names)} names for {width} quantities")
-    probabilities = [float(p) for p in quantiles]
-    labels = [quantile_label(p) for p in probabilities]
+    level = float(interval)
+    probabilities = [0.5, (1.0 - level) / 2.0, (1.0 + level) / 2.0]
+    labels = ["median", "lower", "upper"]
     per_pass = max(1, CELLS_PER_PASS // max(1, chains * n))
     records: list[dict] = []
     for start in range(0, width, per_pass):
         block = np.moveaxis(values[:, :, start : start + per_pass], 2, 0)
         records.extend(
-            _summarize_block(block, names[start : start + per_pass], probabilities, labels)
+            _summarize_block(block, names[start : start + per_pass], probabilities, labels, level)
         )
     return records
 
 
 def _summarize_block(
-    block: np.ndarray, names: Sequence[str], probabilities: list[float], labels: list[str]
+    block: np.ndarray,
+    names: Sequence[str],
+    probabilities: list[float],
+    labels: list[str],
+    level: float,
 ) -> list[dict]:
     q = block.shape[0]
     flat = block.reshape(q, -1)
@@ -85,13 +106,13 @@ def _summarize_block(
         points[:, ~finite] = np.nan
         enough = block.shape[2] >= MIN_DRAWS_PER_CHAIN
         nan = np.full(q, np.nan)
-        mcse_mean = mcse_mean_batch(block) if enough else nan
-        mcse_of_sd = mcse_of_sd_batch(block) if enough else nan
+        mean_error = mean_error_batch(block) if enough else nan
+        sd_error = sd_error_batch(block) if enough else nan
         # indicator ESS per probability, shared by the quantile MCSE and tail-ESS (5% and 95%)
         needed = sorted({*probabilities, *TAIL_PROBABILITIES})
         indicator = {p: quantile_ess_batch(block, p) if enough else nan for p in needed}
         mcse_points = [
-            mcse_quantile_batch(block, p, indicator[p]) if enough else nan for p in probabilities
+            quantile_error_batch(block, p, indicator[p]) if enough else nan for p in probabilities
         ]
         bulk = bulk_ess_batch(block) if enough else nan
         tail = np.minimum(*(indicator[p] for p in TAIL_PROBABILITIES))
@@ -100,22 +121,24 @@ def _summarize_block(
     records = []
     for i, name in enumerate(names):
         constant = notes[i] == NOTE_CONSTANT
+        median, lower, upper = (_json_number(points[j, i]) for j in range(3))
         records.append(
             {
                 "name": name,
+                "median": median,
+                "interval": {"level": level, "lower": lower, "upper": upper},
                 "mean": _json_number(mean[i]),
                 "sd": _json_number(sd[i]),
-                "quantiles": {lab: _json_number(points[j, i]) for j, lab in enumerate(labels)},
+                "rhat": _json_number(rhat[i]),
+                "bulk_ess": _json_number(bulk[i]),
+                "tail_ess": _json_number(tail[i]),
                 # a constant quantity is known exactly: its Monte Carlo errors are zero
-                "mcse_mean": 0.0 if constant else _json_number(mcse_mean[i]),
-                "mcse_of_sd": 0.0 if constant else _json_number(mcse_of_sd[i]),
-                "mcse_quantiles": {
+                "mean_error": 0.0 if constant else _json_number(mean_error[i]),
+                "sd_error": 0.0 if constant else _json_number(sd_error[i]),
+                "quantile_errors": {
                     lab: 0.0 if constant else _json_number(mcse_points[j][i])
                     for j, lab in enumerate(labels)
                 },
-                "bulk_ess": _json_number(bulk[i]),
-                "tail_ess": _json_number(tail[i]),
-                "rhat": _json_number(rhat[i]),
                 "note": notes[i],
             }
         )

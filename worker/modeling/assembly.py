@@ -59,7 +59,7 @@ class Assembly:
     derived: dict[str, int] = field(default_factory=dict)
     priors: list[DistributionTerm] = field(default_factory=list)
     likelihood: list[DistributionTerm] = field(default_factory=list)
-    quantities: dict[str, int] = field(default_factory=dict)
+    formulas: dict[str, int] = field(default_factory=dict)
     predictions: list[DistributionTerm] = field(default_factory=list)
     replicates: list[str] = field(default_factory=list)
     pointwise: list[str] = field(default_factory=list)
@@ -103,7 +103,7 @@ class _Assembler:
         self.derived()
         covered = self.priors()
         self.likelihood()
-        self.generated()
+        self.per_draw()
         for name, declared in self.declared_unknowns.items():
             if name not in covered and not declared.get("flat_prior", False):
                 self.problem(pointer("model", "unknowns", name),
@@ -114,18 +114,18 @@ class _Assembler:
     def check_names(self) -> None:
         seen: dict[str, str] = {}
         section_words = {"inputs": "an input", "unknowns": "an unknown",
-                         "derived": "a derived quantity", "quantities": "a generated quantity",
+                         "derived": "a derived quantity", "formulas": "a per-draw formula",
                          "predictions": "a prediction"}
-        generated = self.spec.get("generated", {})
+        per_draw = self.spec.get("per_draw", {})
         entries: list[tuple[str, str, str]] = []
         for section in SECTIONS:
             for name in self.spec.get(section, {}):
                 entries.append((section, name, pointer("model", section, name)))
-        for name in generated.get("quantities", {}):
-            entries.append(("quantities", name, pointer("model", "generated", "quantities", name)))
-        for k, item in enumerate(generated.get("predictions", [])):
+        for name in per_draw.get("formulas", {}):
+            entries.append(("formulas", name, pointer("model", "per_draw", "formulas", name)))
+        for k, item in enumerate(per_draw.get("predictions", [])):
             entries.append(("predictions", item["name"],
-                            pointer("model", "generated", "predictions", k, "name")))
+                            pointer("model", "per_draw", "predictions", k, "name")))
         for section, name, at in entries:
             if name in ex.FUNCTIONS:
                 self.problem(at, f"'{name}' is the name of a function and cannot name "
@@ -358,7 +358,7 @@ class _Assembler:
                                       pointer(*at, "distribution"), context)
             declared = self.declared_unknowns.get(target, {})
             guaranteed = (declared.get("lower") is not None and declared["lower"] >= 0) or \
-                declared.get("structure") in ("positive_ordered", "simplex")
+                declared.get("structure") == "simplex"
             self.out.priors.append(DistributionTerm(context, distribution, *args,
                                                     variate=variate, at=pointer(*at),
                                                     sign_guaranteed=guaranteed))
@@ -390,15 +390,14 @@ class _Assembler:
         if kind in DISCRETE_KINDS:
             self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, but "
                              "unknowns are continuous")
-        elif kind in POSITIVE_KINDS and not (
-                (lower is not None and lower >= 0) or structure == "positive_ordered"):
+        elif kind in POSITIVE_KINDS and not (lower is not None and lower >= 0):
             self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
                              f"declare '{target}' with lower: 0")
         elif kind == "unit" and not (lower is not None and lower >= 0 and upper is not None
                                      and upper <= 1):
             self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
                              f"declare '{target}' with lower: 0 and upper: 1")
-        elif kind in ("simplex", "cholesky_correlation") and structure != kind:
+        elif kind in ("simplex", "correlation_factor") and structure != kind:
             self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
                              f"declare '{target}' with structure: {kind}")
 
@@ -484,34 +483,34 @@ class _Assembler:
                      f"{flat_label(value.name, first, batch_shape)}")
         return False
 
-    # ---- generated quantities
-    def generated(self) -> None:
-        generated = self.spec.get("generated", {})
+    # ---- per-draw outputs
+    def per_draw(self) -> None:
+        per_draw = self.spec.get("per_draw", {})
         term_names = [item["name"] for item in self.spec.get("likelihood", [])]
         built = {t.name for t in self.out.likelihood}
         for field_name, target in (("replicates", self.out.replicates),
-                                   ("pointwise_log_likelihood", self.out.pointwise)):
-            for k, name in enumerate(generated.get(field_name, [])):
+                                   ("pointwise", self.out.pointwise)):
+            for k, name in enumerate(per_draw.get(field_name, [])):
                 if name not in term_names:
-                    self.problem(pointer("model", "generated", field_name, k),
-                                 f"generated {field_name}: '{name}' is not the name of a "
+                    self.problem(pointer("model", "per_draw", field_name, k),
+                                 f"per_draw {field_name}: '{name}' is not the name of a "
                                  "likelihood term")
                 elif name in built:
                     target.append(name)
-        for name, text in generated.get("quantities", {}).items():
+        for name, text in per_draw.get("formulas", {}).items():
             if name in self.broken:
                 continue
-            node = self.expression(text, pointer("model", "generated", "quantities", name),
-                                   f"generated quantity '{name}'")
+            node = self.expression(text, pointer("model", "per_draw", "formulas", name),
+                                   f"per-draw formula '{name}'")
             if node is not None:
                 if self.out.graph.type_of(node).kind == "boolean":
-                    self.problem(pointer("model", "generated", "quantities", name),
-                                 f"generated quantity '{name}' is a comparison; wrap it in "
+                    self.problem(pointer("model", "per_draw", "formulas", name),
+                                 f"per-draw formula '{name}' is a comparison; wrap it in "
                                  "select(condition, 1, 0)")
                     continue
-                self.out.quantities[name] = node
-        for k, item in enumerate(generated.get("predictions", [])):
-            at = ("model", "generated", "predictions", k)
+                self.out.formulas[name] = node
+        for k, item in enumerate(per_draw.get("predictions", [])):
+            at = ("model", "per_draw", "predictions", k)
             context = f"prediction '{item['name']}'"
             distribution = self.distribution(item, at, context)
             if distribution is None or item["name"] in self.broken:

@@ -19,7 +19,7 @@ ELEMENTWISE_FUNCTIONS = frozenset(
     }
 )
 REDUCING_FUNCTIONS = frozenset({"sum", "mean"})
-VECTOR_FUNCTIONS = frozenset({"softmax", "log_softmax", "cumulative_sum"})
+VECTOR_FUNCTIONS = frozenset({"softmax", "log_softmax", "running_sum"})
 FUNCTIONS = ELEMENTWISE_FUNCTIONS | REDUCING_FUNCTIONS | VECTOR_FUNCTIONS | {"dot", "select"}
 COMPARISONS = frozenset({"<", "<=", ">", ">=", "==", "!="})
 

@@ -170,7 +170,7 @@ class Graph:
         if len(t.shape) != 1:
             raise ShapeError(f"{function}() needs a vector, got shape {describe(t.shape)}")
         op = {"softmax": ops.SOFTMAX, "log_softmax": ops.LOG_SOFTMAX,
-              "cumulative_sum": ops.CUMULATIVE_SUM}[function]
+              "running_sum": ops.RUNNING_SUM}[function]
         return self.operation(op, tuple(args), ValueType("real", t.shape))
 
     def _positions(self, node: ex.Node, index_id: int, length: int, axis: str) -> np.ndarray:

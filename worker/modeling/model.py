@@ -53,7 +53,7 @@ class CompiledModel:
         report_nodes = (
             [s.node for s in assembly.slots]
             + list(assembly.derived.values())
-            + list(assembly.quantities.values())
+            + list(assembly.formulas.values())
             # every term's arguments: the trial below evaluates priors and likelihood terms too
             + [n for t in (*assembly.priors, *assembly.likelihood, *assembly.predictions)
                for n in t.argument_nodes]
@@ -66,7 +66,7 @@ class CompiledModel:
         names = list(self.unknown_names)
         for name, node in assembly.derived.items():
             names += flat_names(name, graph.type_of(node).shape)
-        for name, node in assembly.quantities.items():
+        for name, node in assembly.formulas.items():
             names += flat_names(name, graph.type_of(node).shape)
         for term, shape in zip(assembly.predictions, self._prediction_shapes, strict=True):
             names += flat_names(term.name, shape)
@@ -75,7 +75,7 @@ class CompiledModel:
         for name in assembly.pointwise:
             term = self._likelihood[name]
             batch = term.shape[:len(term.shape) - term.distribution.event_ndim]
-            names += flat_names(f"log_likelihood.{name}", batch)
+            names += flat_names(f"pointwise.{name}", batch)
         self.quantity_names = names
 
     def _trial(self) -> list[tuple[int, ...]]:
@@ -171,7 +171,7 @@ class CompiledModel:
         values = self._report.values_at(u)
         pieces: list[np.ndarray] = [np.ravel(values[s.node]) for s in a.slots]
         pieces += [np.ravel(values[n]) for n in a.derived.values()]
-        pieces += [np.ravel(values[n]) for n in a.quantities.values()]
+        pieces += [np.ravel(values[n]) for n in a.formulas.values()]
         with np.errstate(all="ignore"):
             for term, shape in zip(a.predictions, self._prediction_shapes, strict=True):
                 pieces.append(np.ravel(_report_draw(term.distribution, self._args(term, values),

@@ -253,9 +253,9 @@ class LogSoftmax(Operation):
         return [g - np.exp(out) * np.sum(g)]
 
 
-class CumulativeSum(Operation):
+class RunningSum(Operation):
     __slots__ = ()
-    name = "cumulative_sum"
+    name = "running_sum"
 
     def forward(self, a):
         return np.cumsum(a)
@@ -398,5 +398,5 @@ BINARY: dict[str, Operation] = {
 }
 NEGATE = Negate()
 SUM, MEAN, DOT = Sum(), Mean(), Dot()
-SOFTMAX, LOG_SOFTMAX, CUMULATIVE_SUM = Softmax(), LogSoftmax(), CumulativeSum()
+SOFTMAX, LOG_SOFTMAX, RUNNING_SUM = Softmax(), LogSoftmax(), RunningSum()
 SELECT = Select()

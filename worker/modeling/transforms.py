@@ -182,6 +182,8 @@ def make_transform(
         if cls is None:
             known = ", ".join(sorted(STRUCTURES))
             raise ValueError(f"unknown structure {structure!r}; expected one of {known}")
+        if structure == "ordered" and lower is not None:
+            return LowerOrdered(shape, float(lower))
         return cls(shape)
     has_lower = lower is not None and bool(np.all(np.isfinite(lower)))
     has_upper = upper is not None and bool(np.all(np.isfinite(upper)))
@@ -325,23 +327,25 @@ class Ordered(Transform):
         return x, float(np.sum(u[..., 1:])), backward
 
 
-class PositiveOrdered(Transform):
-    """x_k = exp(u_1) + ... + exp(u_k): positive and strictly increasing along the last axis."""
+class LowerOrdered(Transform):
+    """x_k = lower + exp(u_1) + ... + exp(u_k): above `lower` and strictly increasing along the
+    last axis (`ordered` with a `lower` bound; lower 0 gives a positive increasing vector)."""
 
-    structure = "positive_ordered"
+    structure = "ordered"
 
-    def __init__(self, shape: tuple[int, ...]) -> None:
+    def __init__(self, shape: tuple[int, ...], lower: float) -> None:
         if len(shape) < 1:
-            raise ValueError("a positive ordered vector needs at least one axis")
+            raise ValueError("an ordered vector with a lower bound needs at least one axis")
         super().__init__(shape)
+        self.lower = float(lower)
 
     def constrain(self, u_slice):
-        return np.cumsum(np.exp(np.reshape(u_slice, self.shape)), axis=-1)
+        return self.lower + np.cumsum(np.exp(np.reshape(u_slice, self.shape)), axis=-1)
 
     def unconstrain(self, x):
         x = np.asarray(x, dtype=float).reshape(self.shape)
         with np.errstate(all="ignore"):
-            u = np.log(np.diff(x, axis=-1, prepend=0.0))
+            u = np.log(np.diff(x, axis=-1, prepend=self.lower))
         return u.reshape(-1)
 
     def log_jacobian_and_gradient(self, u_slice):
@@ -353,7 +357,7 @@ class PositiveOrdered(Transform):
 
     def forward(self, u_slice):
         steps = np.exp(np.reshape(u_slice, self.shape))
-        x = np.cumsum(steps, axis=-1)
+        x = self.lower + np.cumsum(steps, axis=-1)
 
         def backward(upstream: Array) -> Array:
             return (_reverse_cumsum(np.reshape(upstream, self.shape)) * steps).reshape(-1) + 1.0
@@ -378,11 +382,11 @@ def cholesky_from_partial_correlations(z: Array) -> tuple[Array, Array]:
     return (lower + np.eye(k)) * w, w
 
 
-class CholeskyCorrelation(Transform):
+class CorrelationFactor(Transform):
     """Cholesky factor of a K x K correlation matrix from K(K-1)/2 free values: tanh gives the
     canonical partial correlations (row by row, strictly lower triangle), which build the factor."""
 
-    structure = "cholesky_correlation"
+    structure = "correlation_factor"
 
     def __init__(self, shape: tuple[int, ...]) -> None:
         if len(shape) != 2 or shape[0] != shape[1] or shape[0] < 1:
@@ -454,7 +458,6 @@ STRUCTURES.update(
     {
         "simplex": Simplex,
         "ordered": Ordered,
-        "positive_ordered": PositiveOrdered,
-        "cholesky_correlation": CholeskyCorrelation,
+        "correlation_factor": CorrelationFactor,
     }
 )

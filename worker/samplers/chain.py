@@ -32,16 +32,16 @@ from worker.samplers.warm_schedule import (
 
 STAT_TYPES: dict[str, dict[str, type]] = {
     "nuts": {
-        "step_size": np.float64, "tree_depth": np.int64, "leapfrog_steps": np.int64,
-        "acceptance": np.float64, "energy": np.float64, "divergent": np.bool_,
+        "step_size": np.float64, "doublings": np.int64, "gradient_calls": np.int64,
+        "accept_probability": np.float64, "energy": np.float64, "divergent": np.bool_,
         "log_density": np.float64,
     },
     "hmc": {
-        "step_size": np.float64, "leapfrog_steps": np.int64, "acceptance": np.float64,
+        "step_size": np.float64, "gradient_calls": np.int64, "accept_probability": np.float64,
         "energy": np.float64, "divergent": np.bool_, "log_density": np.float64,
     },
     "metropolis": {
-        "acceptance": np.float64, "log_density": np.float64, "proposal_scale": np.float64,
+        "accept_probability": np.float64, "log_density": np.float64, "proposal_scale": np.float64,
     },
 }  # fmt: skip
 
@@ -81,7 +81,7 @@ class EvaluationCounts:
 def sampling_sequence(seed: np.random.SeedSequence, child: int) -> np.random.SeedSequence:
     """Child ``child`` of ``seed``, the same one ``seed.spawn`` would make, without mutating it.
 
-    DEVELOPERS.md: child 0 drives sampling, child 1 generated quantities.
+    DEVELOPERS.md: child 0 drives sampling, child 1 the per-draw outputs.
     """
     return np.random.SeedSequence(
         seed.entropy, spawn_key=(*seed.spawn_key, child), pool_size=seed.pool_size
@@ -112,19 +112,19 @@ class Chain:
         self._setup(target, settings)
         if warm_start is not None:
             self._check_warm_start(warm_start)
-            self._warm(converted(warm_start.covariance, settings.metric, self.dimension))
+            self._warm(converted(warm_start.covariance, settings.preconditioning, self.dimension))
             if initial_point is None:
                 initial_point = warm_start.position
         self.rng = np.random.default_rng(sampling_sequence(seed, 0))
         self.iteration = 0
         self.divergences = {"warmup": 0, "sampling": 0}
-        self.estimator = RunningCovariance(self.dimension, settings.metric == "dense")
+        self.estimator = RunningCovariance(self.dimension, settings.preconditioning == "full")
         target = self.target  # the counting wrapper from _setup: initialisation is counted too
         with np.errstate(all="ignore"):
             self.state = initial_state(
                 target,
                 settings.initialisation,
-                settings.init_radius,
+                settings.start_spread,
                 self.rng,
                 initial_point,
                 needs_gradient=not self._metropolis,
@@ -133,18 +133,22 @@ class Chain:
                 if warm_start is not None:
                     assert warm_start.proposal_scale is not None  # _check_warm_start
                     self.proposal = RandomWalkProposal(
-                        settings.metric, self.warm_covariance, math.log(warm_start.proposal_scale)
+                        settings.preconditioning,
+                        self.warm_covariance,
+                        math.log(warm_start.proposal_scale),
                     )
                 else:
-                    self.proposal = RandomWalkProposal.initial(settings.metric, self.dimension)
+                    self.proposal = RandomWalkProposal.initial(
+                        settings.preconditioning, self.dimension
+                    )
                 self.scale_updates = 0
                 self.average_sum = 0.0
                 self.average_count = 0
             elif warm_start is not None:
                 assert warm_start.step_size is not None  # _check_warm_start
-                self.metric = Metric(settings.metric, self.warm_covariance)
+                self.metric = Metric(settings.preconditioning, self.warm_covariance)
                 self.step_size = float(warm_start.step_size)
-                if warm_start.metric != settings.metric:
+                if warm_start.metric != settings.preconditioning:
                     # Another kind of metric changes the units of the step size: search from the
                     # earlier one as a cold start searches from 1.
                     self.step_size = initial_step_size(
@@ -154,7 +158,7 @@ class Chain:
                 # itself gave smaller steps and less ESS per gradient in tests/bench.
                 self.dual = DualAveraging.start(self.step_size, self.goal)
             else:
-                self.metric = Metric.identity(settings.metric, self.dimension)
+                self.metric = Metric.identity(settings.preconditioning, self.dimension)
                 self.step_size = initial_step_size(target, self.metric, self.state, 1.0, self.rng)
                 self.dual = DualAveraging.start(self.step_size, self.goal)
         # Initialisation, the first step-size search and any evaluations made through a
@@ -176,8 +180,9 @@ class Chain:
         self.schedule = warmup_schedule(settings.warmup_iterations)
         self._metropolis = settings.method == "metropolis"
         self._types = STAT_TYPES[settings.method]
-        # A unit metric has nothing to estimate, so its warm-up is step size (or scale) only.
-        self._windows = self.schedule.window_ends if settings.metric != "unit" else frozenset()
+        # No preconditioning has nothing to estimate, so its warm-up is step size (or scale) only.
+        adapting = settings.preconditioning != "none"
+        self._windows = self.schedule.window_ends if adapting else frozenset()
         self.warm_covariance: np.ndarray | None = None
 
     def _check_warm_start(self, warm: WarmStart) -> None:
@@ -200,7 +205,8 @@ class Chain:
         """Switch to the warm-start schedule, keeping the earlier metric to refresh toward."""
         self.warm_covariance = np.array(covariance, dtype=np.float64)
         self.schedule = warm_schedule(self.settings.warmup_iterations)
-        self._windows = self.schedule.window_ends if self.settings.metric != "unit" else frozenset()
+        adapting = self.settings.preconditioning != "none"
+        self._windows = self.schedule.window_ends if adapting else frozenset()
 
     def _allocate(self) -> None:
         s = self.settings
@@ -254,13 +260,13 @@ class Chain:
         with np.errstate(all="ignore"):
             self.state, stats = self._transition()(self.state, self.rng)
             if i < warmup and not self._metropolis:
-                self._adapt_hamiltonian(i, stats["acceptance"])
+                self._adapt_hamiltonian(i, stats["accept_probability"])
         if i < warmup:
             self._record(self.warmup_stats, i, stats)
             if stats.get("divergent"):
                 self.divergences["warmup"] += 1
             if self._metropolis:
-                self._adapt_proposal(i, stats["acceptance"])
+                self._adapt_proposal(i, stats["accept_probability"])
         else:
             j = i - warmup
             self.draws[j] = self.state.position
@@ -302,7 +308,7 @@ class Chain:
             estimate = refreshed(self.warm_covariance, self.estimator)
             self.estimator.reset()
             if estimate is not None:
-                self.metric = Metric(self.settings.metric, estimate)
+                self.metric = Metric(self.settings.preconditioning, estimate)
             # The refreshed metric is close to the one the step size was adapted to, so the
             # averaged step size so far is a better start than a fresh one-step search.
             self.step_size = self.dual.final_step_size()
@@ -311,7 +317,7 @@ class Chain:
             estimate = self.estimator.regularised()
             self.estimator.reset()
             if estimate is not None:
-                self.metric = Metric(self.settings.metric, estimate)
+                self.metric = Metric(self.settings.preconditioning, estimate)
             # A new metric changes the scale of every direction: search a fresh step size and
             # restart dual averaging around it (Hoffman & Gelman 2014, section 3.2).
             self.step_size = initial_step_size(
@@ -334,7 +340,7 @@ class Chain:
             if estimate is not None:
                 # A refresh changes the shape a little: the adapted scale still fits it.
                 self.proposal = RandomWalkProposal(
-                    self.settings.metric, estimate, self.proposal.log_scale
+                    self.settings.preconditioning, estimate, self.proposal.log_scale
                 )
         elif i + 1 in self._windows:
             estimate = self.estimator.regularised()
@@ -342,7 +348,7 @@ class Chain:
             if estimate is not None:
                 # With the covariance learned, the optimal scale is again about 2.38/sqrt(d).
                 self.proposal = RandomWalkProposal(
-                    self.settings.metric, estimate, default_log_scale(self.dimension)
+                    self.settings.preconditioning, estimate, default_log_scale(self.dimension)
                 )
                 self.scale_updates = 0
         warmup = self.settings.warmup_iterations
@@ -425,7 +431,7 @@ class Chain:
             arrays["proposal_covariance"] = self.proposal.covariance
         else:
             header.update(step_size=self.step_size, dual_averaging=self.dual.as_dict())
-            arrays["inverse_metric"] = self.metric.inverse
+            arrays["preconditioner"] = self.metric.inverse
         return snapshot_format.encode(header, arrays)
 
     @classmethod
@@ -461,7 +467,7 @@ class Chain:
         chain.state = State(
             np.array(arrays["position"]), float(header["log_density"]), np.array(arrays["gradient"])
         )
-        chain.estimator = RunningCovariance(chain.dimension, settings.metric == "dense")
+        chain.estimator = RunningCovariance(chain.dimension, settings.preconditioning == "full")
         chain.estimator.load(int(header["estimator_count"]), arrays, "estimator_")
         done = arrays["draws"].shape[0]
         chain.draws[:done] = arrays["draws"]
@@ -472,13 +478,13 @@ class Chain:
             v[:n] = arrays[f"warmup_stat_{k}"]
         if chain._metropolis:
             chain.proposal = RandomWalkProposal(
-                settings.metric, arrays["proposal_covariance"], float(header["log_scale"])
+                settings.preconditioning, arrays["proposal_covariance"], float(header["log_scale"])
             )
             chain.scale_updates = int(header["scale_updates"])
             chain.average_sum = float(header["average_sum"])
             chain.average_count = int(header["average_count"])
         else:
-            chain.metric = Metric(settings.metric, arrays["inverse_metric"])
+            chain.metric = Metric(settings.preconditioning, arrays["preconditioner"])
             chain.step_size = float(header["step_size"])
             chain.dual = DualAveraging(**header["dual_averaging"])
         return chain

@@ -17,12 +17,13 @@ from worker.samplers.target import Target, density_and_gradient
 
 
 class Metric:
-    """The inverse metric M^-1: identity ("unit"), a vector of variances, or a covariance matrix."""
+    """The inverse metric M^-1 for a preconditioning kind: identity ("none"), a vector of
+    variances ("per_coordinate") or a covariance matrix ("full")."""
 
     def __init__(self, kind: str, inverse: np.ndarray):
         self.kind = kind
         self.inverse = np.array(inverse, dtype=np.float64)
-        if kind == "dense":
+        if kind == "full":
             # M^-1 = L L'; momentum p = L'^-1 z then has covariance (L L')^-1 = M.
             self._cholesky = np.linalg.cholesky(self.inverse)
         else:
@@ -30,13 +31,13 @@ class Metric:
 
     @classmethod
     def identity(cls, kind: str, dimension: int) -> Metric:
-        if kind == "dense":
+        if kind == "full":
             return cls(kind, np.eye(dimension))
         return cls(kind, np.ones(dimension))
 
     def velocity(self, p: np.ndarray) -> np.ndarray:
         """dq/dt = M^-1 p."""
-        if self.kind == "dense":
+        if self.kind == "full":
             return self.inverse @ p
         return self.inverse * p
 
@@ -45,12 +46,16 @@ class Metric:
 
     def draw_momentum(self, rng: np.random.Generator) -> np.ndarray:
         z = rng.standard_normal(self.inverse.shape[0])
-        if self.kind == "dense":
+        if self.kind == "full":
             return scipy.linalg.solve_triangular(self._cholesky, z, lower=True, trans="T")
         return z / self._sd
 
     def as_json(self) -> dict:
-        return {"metric": self.kind, "inverse_metric": self.inverse.tolist()}
+        """The warm-start record's preconditioning: a full covariance, or per-coordinate scales
+        (standard deviations, the square roots of the variances; all ones for "none")."""
+        if self.kind == "full":
+            return {"preconditioning": self.kind, "covariance": self.inverse.tolist()}
+        return {"preconditioning": self.kind, "scales": self._sd.tolist()}
 
 
 @dataclass(slots=True)

@@ -41,22 +41,22 @@ class RandomWalkProposal:
         self.covariance = np.array(covariance, dtype=np.float64)
         self.log_scale = log_scale
         self._factor = (
-            np.linalg.cholesky(self.covariance) if kind == "dense" else np.sqrt(self.covariance)
+            np.linalg.cholesky(self.covariance) if kind == "full" else np.sqrt(self.covariance)
         )
 
     @classmethod
     def initial(cls, kind: str, dimension: int) -> RandomWalkProposal:
-        covariance = np.eye(dimension) if kind == "dense" else np.ones(dimension)
+        covariance = np.eye(dimension) if kind == "full" else np.ones(dimension)
         return cls(kind, covariance, default_log_scale(dimension))
 
     def step(self, rng: np.random.Generator) -> np.ndarray:
         z = rng.standard_normal(self.covariance.shape[0])
-        shaped = self._factor @ z if self.kind == "dense" else self._factor * z
+        shaped = self._factor @ z if self.kind == "full" else self._factor * z
         return math.exp(self.log_scale) * shaped
 
     def as_json(self) -> dict:
         return {
-            "metric": self.kind,
+            "preconditioning": self.kind,
             "proposal_covariance": self.covariance.tolist(),
             "proposal_scale": math.exp(self.log_scale),
         }
@@ -79,7 +79,7 @@ class MetropolisTransition:
         if rng.random() < acceptance:
             state = State(candidate, log_density, state.gradient)
         stats = {
-            "acceptance": acceptance,
+            "accept_probability": acceptance,
             "log_density": state.log_density,
             "proposal_scale": math.exp(self.proposal.log_scale),
         }

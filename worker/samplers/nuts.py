@@ -148,9 +148,9 @@ class NutsTransition:
                 break
         stats = {
             "step_size": self.step_size,
-            "tree_depth": float(depth),
-            "leapfrog_steps": float(steps),
-            "acceptance": accept_sum / steps,
+            "doublings": float(depth),
+            "gradient_calls": float(steps),
+            "accept_probability": accept_sum / steps,
             "energy": tree.sample_energy,
             "divergent": float(divergent),
             "log_density": tree.sample.log_density,

@@ -8,7 +8,7 @@ from dataclasses import dataclass
 from typing import Any
 
 METHODS = ("nuts", "hmc", "metropolis")
-METRICS = ("diagonal", "dense", "unit")
+PRECONDITIONINGS = ("none", "per_coordinate", "full")
 INITIALISATIONS = ("random", "optimise", "given")
 
 
@@ -21,12 +21,12 @@ class SamplerSettings:
     draws: int = 1000
     target_acceptance: float | None = None
     maximum_tree_depth: int = 10
-    metric: str = "diagonal"
+    preconditioning: str = "per_coordinate"
     integration_time: float = 1.0
     jitter: bool = True
     divergence_threshold: float = 1000.0
     initialisation: str = "random"
-    init_radius: float = 2.0
+    start_spread: float = 2.0
 
     def __post_init__(self) -> None:
         problems = settings_problems(self)
@@ -63,8 +63,11 @@ def settings_problems(s: SamplerSettings) -> list[str]:
     problems: list[str] = []
     if s.method not in METHODS:
         problems.append(f"method must be one of {', '.join(METHODS)}, got {s.method!r}")
-    if s.metric not in METRICS:
-        problems.append(f"metric must be one of {', '.join(METRICS)}, got {s.metric!r}")
+    if s.preconditioning not in PRECONDITIONINGS:
+        problems.append(
+            f"preconditioning must be one of {', '.join(PRECONDITIONINGS)}, "
+            f"got {s.preconditioning!r}"
+        )
     if s.initialisation not in INITIALISATIONS:
         problems.append(
             f"initialisation must be one of {', '.join(INITIALISATIONS)}, got {s.initialisation!r}"
@@ -83,7 +86,7 @@ def settings_problems(s: SamplerSettings) -> list[str]:
         problems.append(
             f"target_acceptance must be strictly between 0 and 1, got {s.target_acceptance!r}"
         )
-    for name in ("integration_time", "divergence_threshold", "init_radius"):
+    for name in ("integration_time", "divergence_threshold", "start_spread"):
         value = getattr(s, name)
         if not (_is_number(value) and math.isfinite(value) and value > 0):
             problems.append(f"{name} must be a positive finite number, got {value!r}")

@@ -71,8 +71,8 @@ class StaticHmcTransition:
             new_state, energy = state, h0
         stats = {
             "step_size": eps,
-            "leapfrog_steps": float(taken),
-            "acceptance": acceptance,
+            "gradient_calls": float(taken),
+            "accept_probability": acceptance,
             "energy": energy,
             "divergent": float(divergent),
             "log_density": new_state.log_density,

@@ -36,7 +36,7 @@ class WarmStart:
     """An earlier chain's adapted state: where and how a warm-started chain begins.
 
     ``metric`` is the earlier chain's metric kind; ``covariance`` its inverse metric (Hamiltonian)
-    or proposal covariance (Metropolis): (d,) for "diagonal" and "unit", (d, d) for "dense".
+    or proposal covariance (Metropolis): (d,) for "per_coordinate" and "none", (d, d) for "full".
     Exactly one of ``step_size`` (Hamiltonian) and ``proposal_scale`` (Metropolis) is set.
     """
 
@@ -63,9 +63,9 @@ def converted(covariance: np.ndarray, kind: str, dimension: int) -> np.ndarray:
     no correlations (the refresh window then estimates them); a unit metric has nothing to carry.
     """
     covariance = np.asarray(covariance, dtype=np.float64)
-    if kind == "unit":
+    if kind == "none":
         return np.ones(dimension)
-    if kind == "dense":
+    if kind == "full":
         return covariance if covariance.ndim == 2 else np.diag(covariance)
     return covariance if covariance.ndim == 1 else np.diagonal(covariance).copy()
 

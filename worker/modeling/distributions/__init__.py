@@ -50,7 +50,7 @@ _CLASSES: list[type[Distribution]] = [
     discrete.NegativeBinomialMean,
     discrete.NegativeBinomialLogMean,
     discrete.Categorical,
-    discrete.OrderedLogistic,
+    discrete.CumulativeLogit,
 ]
 
 # one shared instance per (name, argument set): instances hold no state

@@ -33,7 +33,7 @@ VARIATE_PHRASES: dict[str, str] = {
     "count_up_to_trials": "integers from 0 to the argument 'trials'",
     "category": "integers from 1 to the number of categories",
     "simplex": "non-negative vectors summing to 1",
-    "cholesky_correlation": "Cholesky factors of correlation matrices",
+    "correlation_factor": "Cholesky factors of correlation matrices",
 }
 
 # Tolerance for structural equalities of floating-point variates (sums to one, unit-norm rows).
@@ -185,8 +185,8 @@ class Distribution:
                 ok = np.all(v >= 0, axis=-1) & (
                     np.abs(np.sum(v, axis=-1) - 1.0) <= STRUCTURE_TOLERANCE * v.shape[-1]
                 )
-            elif kind == "cholesky_correlation":
-                ok = cholesky_correlation_valid(v)
+            elif kind == "correlation_factor":
+                ok = correlation_factor_valid(v)
             else:
                 raise ValueError(f"unknown variate kind {kind!r}")
         return np.asarray(ok)
@@ -222,7 +222,7 @@ class Distribution:
         raise NotImplementedError
 
 
-def cholesky_correlation_valid(v: Array) -> Array:
+def correlation_factor_valid(v: Array) -> Array:
     """Per matrix: square, lower triangular, positive diagonal, rows of unit length."""
     if v.ndim < 2 or v.shape[-1] != v.shape[-2]:
         return np.zeros(v.shape[:-2] if v.ndim >= 2 else (), dtype=bool)

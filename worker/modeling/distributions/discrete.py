@@ -297,11 +297,11 @@ class Categorical(Distribution):
         return values[0].shape[:-1]
 
 
-class OrderedLogistic(Distribution):
+class CumulativeLogit(Distribution):
     """Outcomes 1..K+1: P(y = k) = logistic(eta - c[k-1]) - logistic(eta - c[k]), c[0] = -inf,
     c[K+1] = +inf (McCullagh 1980, proportional odds)."""
 
-    name = "ordered_logistic"
+    name = "cumulative_logit"
     arguments = ("predictor", "cutpoints")
     variate_kind = "category"
     argument_support = {"predictor": "real", "cutpoints": "ordered"}

@@ -8,7 +8,7 @@ from scipy.special import betaln, digamma, gammaln, xlogy
 
 from ..special import LOG_2, LOG_2PI, softmax, sum_last
 from ..transforms import cholesky_from_partial_correlations
-from .base import STRUCTURE_TOLERANCE, Array, Distribution, Summed, cholesky_correlation_valid
+from .base import STRUCTURE_TOLERANCE, Array, Distribution, Summed, correlation_factor_valid
 
 Pointwise = tuple[Array, dict[str, Array], Array | None]
 
@@ -131,7 +131,7 @@ class LkjCorrelationFactor(Distribution):
 
     name = "lkj_correlation_factor"
     arguments = ("concentration",)
-    variate_kind = "cholesky_correlation"
+    variate_kind = "correlation_factor"
     event_ndim = 2
     argument_support = {"concentration": "positive"}
 
@@ -153,7 +153,7 @@ class LkjCorrelationFactor(Distribution):
             grads["x"] = g
         if "concentration" in wrt:
             grads["concentration"] = 2.0 * np.sum(log_diag, axis=-1) - d_log_c
-        bad = ~(eta > 0) | ~cholesky_correlation_valid(x)
+        bad = ~(eta > 0) | ~correlation_factor_valid(x)
         if np.shape(bad) != val.shape:
             bad = np.broadcast_to(bad, val.shape)
         return val, grads, bad if bad.any() else None
