@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy import and_, delete, exists, func, or_, select, update
 
-from service import crash_drill, evaluation_counts, events
+from service import crash_drill, evaluation_counts, events, metrics
 from service.dispatch import send_finish_task
 from service.runtime import Runtime
 from service.store.arrays import ENCODING, encode_array
@@ -377,6 +377,8 @@ def end_chain(
         if done:
             detail = {"error": error} if error else None
             events.record(session, lease.job_id, "chain_state", state, lease.chain_index, detail)
+    if done:
+        metrics.chain_ran(state, None, now, None)
     return bool(done)
 
 
@@ -478,6 +480,7 @@ def store_result(
         ).rowcount
         if not done:
             return False
+        started_at = session.scalar(select(Chain.started_at).where(Chain.id == lease.chain_id))
         session.execute(delete(ChainArray).where(ChainArray.chain_id == lease.chain_id))
         rows = [("draws", "draws", draws, list(result.names))]
         rows += [("stat", name, encoded, None) for name, encoded in stats.items()]
@@ -503,6 +506,7 @@ def store_result(
             lease.chain_index,
             detail,
         )
+    metrics.chain_ran(state, started_at, now, getattr(result, "evaluations", None))
     return True
 
 

@@ -115,7 +115,10 @@ def build_parser() -> argparse.ArgumentParser:
         "tasks again (service/sweeper.py). Safe to run more than one.",
     )
     sweeper.add_argument("--once", action="store_true", help="sweep once and exit")
-    sweeper.set_defaults(run=lambda args: _sweeper_main(["--once"] if args.once else []))
+    sweeper.add_argument("--check", action="store_true",
+                         help="exit 0 if a sweep reached the store recently, else 1")
+    sweeper.set_defaults(run=lambda args: _sweeper_main(
+        ["--once"] * args.once + ["--check"] * args.check))
     add_keys_command(commands)
     from service.job_commands import add_job_commands
 
@@ -225,7 +228,7 @@ def run_worker(args: argparse.Namespace) -> NoReturn:
     # drawyard's words mapped onto the library's options; one task per process at a time, so a
     # long chain never holds a second one back
     argv = [
-        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
+        sys.executable, "-m", "celery", "-A", CELERY_APP, "--quiet", "worker",
         "--concurrency", str(processes), "--prefetch-multiplier", "1",
         "-n", name, "--loglevel", args.logging, *passed,
     ]

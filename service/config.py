@@ -1,4 +1,9 @@
-"""Service settings: defaults, then DRAWYARD_* environment variables, then an explicit mapping."""
+"""Service settings: defaults, then DRAWYARD_* environment variables, then an explicit mapping.
+
+Any setting may instead be read from a file named by ``DRAWYARD_<NAME>_FILE`` (its content, less a
+final newline), so that secrets can arrive as compose or orchestrator secrets mounted as files
+rather than as environment variables, which every process inspector shows.
+"""
 
 from __future__ import annotations
 
@@ -6,7 +11,10 @@ import logging
 import os
 from collections.abc import Mapping
 from dataclasses import dataclass, fields
+from pathlib import Path
 from typing import Any
+
+from sqlalchemy.engine import make_url
 
 PREFIX = "DRAWYARD_"
 log = logging.getLogger(__name__)
@@ -20,6 +28,8 @@ class Settings:
     """
 
     database_url: str = "sqlite:///var/drawyard.sqlite"
+    # Put into database_url when that URL carries no password (from a secret file, typically).
+    database_password: str = ""
     broker_url: str = "redis://127.0.0.1:6379/0"
     # Folder of the serverless broker used when broker_url is "filesystem://" (one machine only).
     broker_folder: str = "var/broker"
@@ -54,6 +64,8 @@ class Settings:
     # for a worker before its task is sent again (the broker may have lost it).
     sweep_interval: float = 10.0
     requeue_queued_after: float = 300.0
+    # A file the sweeper touches after each good sweep, for `drawyard sweeper --check`.
+    sweeper_heartbeat: str = ""
     # How often a running chain writes progress, renews its lease and looks at the cancel flag.
     progress_interval: float = 1.0
     # A lease not renewed for this long is taken to belong to a dead worker.
@@ -85,10 +97,13 @@ class Settings:
     callback_attempts: int = 5
     callback_backoff: float = 2.0
     callback_timeout: float = 10.0
+    # Browser sign-in (service/access/browser_sessions.py): the key that signs session cookies and
+    # form tokens (shared by every API process; sign-in is refused while it is empty), and how
+    # long a session lasts: 8 hours, one working day, our own choice.
+    session_secret: str = ""
+    session_hours: float = 8.0
     # Log lines: "json" (one JSON object a line, for log collectors) or "text".
     log_format: str = "json"
-    # Seconds the metrics endpoint waits for workers to answer a ping.
-    metrics_ping_timeout: float = 1.0
 
     @property
     def effective_redelivery_timeout(self) -> int:
@@ -113,6 +128,20 @@ def _convert(kind: type, raw: Any, name: str) -> Any:
     return str(raw)
 
 
+def _read_setting_file(path: str, name: str) -> str:
+    try:
+        return Path(path).read_text().removesuffix("\n")
+    except OSError as error:
+        message = f"setting {PREFIX}{name.upper()}_FILE: cannot read {path!r} ({error.strerror})"
+        raise ValueError(message) from error
+
+
+def with_password(url: str, password: str) -> str:
+    """The URL with ``password`` as its password, unless it already has one."""
+    parsed = make_url(url)
+    return url if parsed.password else parsed.set(password=password).render_as_string(False)
+
+
 def load_settings(
     config: Mapping[str, Any] | None = None, environ: Mapping[str, str] | None = None
 ) -> Settings:
@@ -134,6 +163,13 @@ def load_settings(
             values[field.name] = _convert(kind, explicit[field.name], field.name)
         elif PREFIX + field.name.upper() in environ:
             values[field.name] = _convert(kind, environ[PREFIX + field.name.upper()], field.name)
+        elif PREFIX + field.name.upper() + "_FILE" in environ:
+            raw = _read_setting_file(environ[PREFIX + field.name.upper() + "_FILE"], field.name)
+            values[field.name] = _convert(kind, raw, field.name)
+    if values.get("database_password"):
+        values["database_url"] = with_password(
+            values.get("database_url", Settings.database_url), values["database_password"]
+        )
     settings = Settings(**values)
     if 0 < settings.redelivery_timeout <= settings.chain_time_limit:
         log.warning(

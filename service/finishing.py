@@ -11,6 +11,7 @@ from sqlalchemy.orm import undefer
 
 from service import evaluation_counts, events
 from service.callbacks import queue_callback_safely
+from service.metrics import JOBS_FINISHED
 from service.partial_results import summarise_partial
 from service.runtime import Runtime
 from service.store.arrays import decode_array
@@ -75,6 +76,7 @@ def _close(runtime: Runtime, job_id: str, state: str, **values: Any) -> bool:
             detail = {"error": values["error"]} if values.get("error") else None
             events.record(session, job_id, "job_state", state, detail=detail)
     if done:
+        JOBS_FINISHED.labels(state).inc()
         queue_callback_safely(runtime, job_id)
     return bool(done)
 

@@ -12,6 +12,7 @@ import contextlib
 import ctypes
 import json
 import os
+import secrets
 import shutil
 import signal
 import socket
@@ -24,10 +25,12 @@ from pathlib import Path
 
 import requests
 
+SESSION_SECRET_VARIABLES = ("DRAWYARD_SESSION_SECRET", "DRAWYARD_SESSION_SECRET_FILE")
 READY_PATH = "/v1/health/ready"
 LIVE_PATH = "/v1/health/live"
 APP_FACTORY = "service.app:create_app()"
 CELERY_APP = "worker.celery_app:celery_app"
+GUNICORN_CONFIG = "python:service.gunicorn_conf"
 
 _PR_SET_PDEATHSIG = 1
 
@@ -270,11 +273,49 @@ class RedisServer:
 def service_env(database_url: str, broker_url: str, extra: Mapping[str, str] | None = None) -> dict:
     """The DRAWYARD_* settings the API and the workers share."""
     env = {"DRAWYARD_DATABASE_URL": database_url, "DRAWYARD_BROKER_URL": broker_url}
+    # One secret for the whole stack signs browser sessions, so any API process can read a cookie
+    # another made; a new one each start signs every browser out, which a local stack can afford.
+    if not any(name in os.environ for name in SESSION_SECRET_VARIABLES):
+        env["DRAWYARD_SESSION_SECRET"] = secrets.token_urlsafe(32)
     # Child Pythons must not buffer logs, or a crash loses the lines that explain it.
     env["PYTHONUNBUFFERED"] = "1"
     if extra:
         env.update(extra)
     return env
+
+
+# What each long-running part runs, without the interpreter: docker-compose.yml runs the same
+# (tests/infra/test_compose.py compares them), so a local stack and a deployment cannot drift.
+def api_command(host: str, port: int, processes: int) -> list[str]:
+    return [
+        "gunicorn",
+        "--config", GUNICORN_CONFIG,
+        "--bind", f"{host}:{port}",
+        "--workers", str(processes),
+        APP_FACTORY,
+    ]
+
+
+def worker_command(name: str, concurrency: int) -> list[str]:
+    # --quiet: no start-up banner, which is plain text among the JSON log lines.
+    return [
+        "celery", "-A", CELERY_APP, "--quiet", "worker",
+        "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
+        "-n", name, "--loglevel", "INFO",
+    ]
+
+
+# The console command `drawyard sweeper` (pyproject's drawyard = service.cli:main).
+SWEEPER_COMMAND = ["service.cli", "sweeper"]
+
+
+def metrics_env(folder: Path) -> dict[str, str]:
+    """The metrics folder every process of one stack shares (service/metrics.py), emptied first:
+    a new stack starts its counters from zero, as a restarted deployment may."""
+    folder.mkdir(parents=True, exist_ok=True)
+    for stale in folder.glob("*.db"):
+        stale.unlink()
+    return {"PROMETHEUS_MULTIPROC_DIR": str(folder)}
 
 
 def start_api(
@@ -285,13 +326,7 @@ def start_api(
     processes: int = 1,
 ) -> ChildProcess:
     """gunicorn serving the app factory with the production settings of gunicorn_conf.py."""
-    argv = [
-        sys.executable, "-m", "gunicorn",
-        "--config", "python:service.gunicorn_conf",
-        "--bind", f"{host}:{port}",
-        "--workers", str(processes),
-        APP_FACTORY,
-    ]
+    argv = [sys.executable, "-m", *api_command(host, port, processes)]
     # SIGINT is gunicorn's quick shutdown; SIGTERM would wait for slow clients.
     return start_child("api", argv, log_path, env, stop_signal=signal.SIGINT, grace_seconds=10.0)
 
@@ -303,12 +338,9 @@ def start_worker(
     concurrency: int = 1,
 ) -> ChildProcess:
     """One Celery worker process (a main process plus `concurrency` pool processes)."""
-    argv = [
-        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
-        "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
-        "-n", f"w{index}@%h", "--loglevel", "INFO",
-        "--without-heartbeat", "--without-gossip", "--without-mingle",
-    ]
+    argv = [sys.executable, "-m", *worker_command(f"w{index}@%h", concurrency)]
+    # One machine: no worker-to-worker chatter to wait for at start-up.
+    argv += ["--without-heartbeat", "--without-gossip", "--without-mingle"]
     # Warm shutdown (SIGTERM) lets a running chain notice and stop; late acknowledgement puts any
     # unfinished chain back on the queue, so the grace period can be short.
     return start_child(f"worker {index}", argv, log_path, single_threaded_numerics(env),
@@ -353,7 +385,7 @@ def single_threaded_numerics(env: Mapping[str, str]) -> dict[str, str]:
 
 def start_sweeper(env: Mapping[str, str], log_path: Path) -> ChildProcess:
     """The sweeper (service/sweeper.py): requeues chains whose worker died or task was lost."""
-    argv = [sys.executable, "-m", "service.sweeper"]
+    argv = [sys.executable, "-m", *SWEEPER_COMMAND]
     return start_child("sweeper", argv, log_path, env, grace_seconds=5.0)
 
 
@@ -435,6 +467,7 @@ class LocalStack:
             self.database_url = f"sqlite:///{(self.var_dir / 'drawyard.sqlite').resolve()}"
         try:
             env = self._choose_broker()
+            env.update(metrics_env(self.var_dir / "metrics"))
             env.update(self.extra_env)
             env = service_env(self.database_url, self.broker_url, env)
             run_migrations(self.database_url)

@@ -20,6 +20,7 @@ from service.callbacks import notify_problems, queue_callback_safely
 from service.canonical import NOT_JSON_NUMBER, non_finite_pointers, sha256_of_json
 from service.config import Settings
 from service.dispatch import send_chain_tasks
+from service.metrics import JOBS_SUBMITTED
 from service.problem_details import ApiProblem
 from service.registry import ModelReference, reference_problems, resolve_reference
 from service.reuse import copy_result, find_source, run_fingerprint, wants_reuse
@@ -396,6 +397,7 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
     if source is not None:
         # Final from the start: a completion callback, if asked for, goes out now.
         queue_callback_safely(runtime, job.id)
+        JOBS_SUBMITTED.inc()
         return Accepted(job, created=True)
     try:
         send_chain_tasks(runtime.celery, runtime.settings.queue, job.id, chains)
@@ -409,6 +411,7 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
             "same Idempotency-Key, if any: it was not kept).",
             headers={"Retry-After": "5"},
         ) from error
+    JOBS_SUBMITTED.inc()
     return Accepted(job, created=True)
 
 

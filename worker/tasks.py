@@ -35,7 +35,8 @@ def _runtime(task: Task) -> Runtime:
     reject_on_worker_lost=True,
     max_retries=None,
 )
-def run_chain(self: Task, job_id: str, chain_index: int) -> str:
+def run_chain(self: Task, job_id: str, chain_index: int, request_id: str | None = None) -> str:
+    # request_id: only for the log lines (service/structured_logs.py sets it before the task runs).
     outcome = run(_runtime(self), job_id, int(chain_index), recheck=self.request.retries > 0)
     if outcome.recheck_after is not None:
         # Held by another delivery: look again when its lease would lapse (the holder may be dead).
@@ -44,5 +45,5 @@ def run_chain(self: Task, job_id: str, chain_index: int) -> str:
 
 
 @shared_task(bind=True, name="drawyard.finish_job", acks_late=True, reject_on_worker_lost=True)
-def finish_job(self: Task, job_id: str) -> str:
+def finish_job(self: Task, job_id: str, request_id: str | None = None) -> str:
     return finish(_runtime(self), job_id)

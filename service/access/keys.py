@@ -22,7 +22,8 @@ from service.store.access_models import ApiKey
 from service.store.engine import transaction
 from service.store.models import utc_now
 
-SCOPES = ("submit", "read")
+# "metrics" lets a scraper read /metrics and nothing else (a key for the monitoring system).
+SCOPES = ("submit", "read", "metrics")
 KEY_PREFIX = "dyk_"
 KEY_PATTERN = re.compile(r"^dyk_([0-9a-f]{16})\.([A-Za-z0-9_-]{43})$")
 TENANT_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")

@@ -13,7 +13,7 @@ from service.job_resources import job_resource
 from service.partial_results import partial_record
 from service.plots.job_arrays import quantity_names
 from service.predictive import comparison
-from service.problem_details import ApiProblem
+from service.problem_details import ApiProblem, note_problem
 from service.store.models import JOB_STATES, TERMINAL_STATES, Chain, Job
 from service.submissions import submit, validate
 from service.views.context import runtime
@@ -175,6 +175,7 @@ def submit_form() -> tuple[str, int] | Response:
     state = read_form(request.form, request.files)
     body = build_body(state)
     if body is None:
+        note_problem("invalid-submission")
         return _form_page(state, 422)
     if state.problems:
         # The labels could not be read; check the rest too, so every problem shows at once.
@@ -182,12 +183,14 @@ def submit_form() -> tuple[str, int] | Response:
             validate(body, runtime().settings)
         except ApiProblem as problem:
             place_problems(state, body, problem.errors)
+        note_problem("invalid-submission")
         return _form_page(state, 422)
     try:
         # The form's token is the idempotency key: submitting the same form twice (a double
         # click, a reload) makes one job.
         accepted = submit(runtime(), body, state.token)
     except ApiProblem as problem:
+        note_problem(problem.slug)
         if problem.status == 422:
             place_problems(state, body, problem.errors)
         else:

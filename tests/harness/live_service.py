@@ -12,6 +12,7 @@ from service.local_stack import (
     ChildProcess,
     api_ready,
     free_port,
+    metrics_env,
     service_env,
     start_api,
     start_closing_worker,
@@ -103,7 +104,9 @@ def start_live_service(
 ) -> LiveService:
     """Start gunicorn and the workers, and wait until the API is ready and each worker consumes."""
     log_dir = log_dir or Path(tempfile.mkdtemp(prefix="drawyard-live-"))
-    full_env = service_env(database_url, broker_url, env)
+    full_env = service_env(
+        database_url, broker_url, {**metrics_env(log_dir / "metrics"), **(env or {})}
+    )
     port = free_port()
     api = start_api(port, full_env, log_dir / "api.log")
     service = LiveService(

@@ -15,6 +15,7 @@ import threading
 
 import requests
 from alembic import command
+from alembic.script import ScriptDirectory
 from sqlalchemy import create_engine, func, inspect, select, text
 
 from service.app import create_app
@@ -38,7 +39,7 @@ def test_upgrade_from_0003_keeps_existing_jobs_and_adds_the_registry(unmigrated_
     try:
         with engine.connect() as connection:
             assert connection.execute(text("SELECT version_num FROM alembic_version")).scalar() == (
-                "0006"
+                ScriptDirectory.from_config(config).get_current_head()
             )
             columns = {c["name"] for c in inspect(connection).get_columns("jobs")}
             assert {"model_name", "model_version", "run_sha256", "reused_from",
