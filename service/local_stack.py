@@ -305,6 +305,16 @@ def worker_command(name: str, concurrency: int) -> list[str]:
     ]
 
 
+def closing_worker_command(name: str, queue: str, threads: int) -> list[str]:
+    # Threads, not forked processes: callbacks mostly wait on the network, and a finishing step
+    # is short.
+    return [
+        "celery", "-A", CELERY_APP, "--quiet", "worker",
+        "-Q", queue, "--pool", "threads", "--concurrency", str(threads),
+        "--prefetch-multiplier", "1", "-n", name, "--loglevel", "INFO",
+    ]
+
+
 # The console command `drawyard sweeper` (pyproject's drawyard = service.cli:main).
 SWEEPER_COMMAND = ["service.cli", "sweeper"]
 
@@ -351,18 +361,13 @@ def start_closing_worker(env: Mapping[str, str], log_path: Path, threads: int = 
     """The Celery worker of the closing queue: finishing steps and completion callbacks.
 
     Its own process and queue, so a job's end never waits behind other jobs' chains and a slow
-    callback receiver never holds a chain's process. Threads, not forked processes: callbacks
-    mostly wait on the network, and a finishing step is short.
+    callback receiver never holds a chain's process.
     """
     from service.config import load_settings
 
     queue = load_settings(environ={**os.environ, **env}).closing_queue
-    argv = [
-        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
-        "-Q", queue, "--pool", "threads", "--concurrency", str(threads),
-        "--prefetch-multiplier", "1", "-n", "closing@%h", "--loglevel", "INFO",
-        "--without-heartbeat", "--without-gossip", "--without-mingle",
-    ]
+    argv = [sys.executable, "-m", *closing_worker_command("closing@%h", queue, threads)]
+    argv += ["--without-heartbeat", "--without-gossip", "--without-mingle"]
     return start_child("closing worker", argv, log_path, single_threaded_numerics(env),
                        grace_seconds=15.0)
 

@@ -231,7 +231,7 @@ def test_services_run_what_drawyard_serve_starts() -> None:
     from service import local_stack
 
     ours = {name for name, s in SERVICES.items() if "build" in s and s.get("restart") != "no"}
-    assert ours == {"api", "worker", "sweeper"}
+    assert ours == {"api", "worker", "closing-worker", "sweeper"}
     api = command_words(SERVICES["api"])
     host, port = option_value(api, "--bind").rsplit(":", 1)
     processes = int(option_value(api, "--workers"))
@@ -240,6 +240,13 @@ def test_services_run_what_drawyard_serve_starts() -> None:
     name = option_value(worker, "-n")
     concurrency = int(option_value(worker, "--concurrency"))
     assert worker == local_stack.worker_command(name, concurrency)
+    closing = command_words(SERVICES["closing-worker"])
+    assert closing == local_stack.closing_worker_command(
+        option_value(closing, "-n"), option_value(closing, "-Q"),
+        int(option_value(closing, "--concurrency")))
+    from service.config import load_settings
+
+    assert option_value(closing, "-Q") == load_settings(environ={}).closing_queue
     scripts = tomllib.loads((REPO / "pyproject.toml").read_text())["project"]["scripts"]
     module, *words = local_stack.SWEEPER_COMMAND
     assert scripts["drawyard"] == f"{module}:main"
@@ -247,19 +254,22 @@ def test_services_run_what_drawyard_serve_starts() -> None:
 
 
 
-def test_drawyard_serve_starts_those_three_and_nothing_else(tmp_path: Path) -> None:
+def test_drawyard_serve_starts_those_four_and_nothing_else(tmp_path: Path) -> None:
     """A real local stack (`drawyard serve` is LocalStack.running) on the filesystem broker: the
-    processes it launches are the API, the workers and the sweeper, with the commands above."""
+    processes it launches are the API, the workers, the closing worker and the sweeper, with the
+    commands above."""
     from service import local_stack
 
     stack = local_stack.LocalStack(tmp_path / "var", broker="filesystem", workers=1)
     with stack.running(timeout=120):
         launched = {child.name.split()[0]: list(child.popen.args) for child in stack.children()}
-    assert set(launched) == {"api", "worker", "sweeper"}
+    assert set(launched) == {"api", "worker", "closing", "sweeper"}
     assert launched["api"][2:] == local_stack.api_command("127.0.0.1", stack.port, 1)
     assert launched["worker"][2:][:len(local_stack.worker_command("w0@%h", 1))] == (
         local_stack.worker_command("w0@%h", 1))
     assert launched["sweeper"][2:] == local_stack.SWEEPER_COMMAND
+    closing = local_stack.closing_worker_command("closing@%h", "drawyard.closing", 4)
+    assert launched["closing"][2:][:len(closing)] == closing
 
 
 def test_sweeper_health_check_is_its_own_check_command(tmp_path: Path) -> None:
