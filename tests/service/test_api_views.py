@@ -313,7 +313,8 @@ def test_openapi_document_validates_and_declares_access_and_headers(app) -> None
     assert schemes["bearerKey"] == {**schemes["bearerKey"], "type": "http", "scheme": "bearer"}
     assert schemes["browserSession"]["in"] == "cookie"
     for path, method, op in operations:
-        guarded = path.startswith(("/v1/jobs", "/v1/models", "/metrics"))
+        guarded = path.startswith(
+            ("/v1/jobs", "/v1/models", "/v1/comparisons", "/v1/bayes-factors", "/metrics"))
         if not guarded:
             assert op["security"] == [], path
             continue
