@@ -23,6 +23,8 @@ class Selection:
     columns: list[int]  # indices into the stored columns
     names: list[str]  # names of the chosen columns
     thin: int
+    # natural type of each chosen column (service/formats/column_types.py); empty: all float64
+    types: tuple[str, ...] = ()
 
 
 def _format_cells(block: np.ndarray, nan: str, inf: str, minus_inf: str) -> np.ndarray:
@@ -38,6 +40,27 @@ def _format_cells(block: np.ndarray, nan: str, inf: str, minus_inf: str) -> np.n
     return cells
 
 
+def _retype_cells(
+    cells: np.ndarray, values: np.ndarray, types: Sequence[str], words: tuple[str, str, str]
+) -> np.ndarray:
+    """Cells of whole-number columns as integers (``missing`` where there is no value) and of
+    yes/no columns as ``true``/``false``; ``words`` is (true, false, missing)."""
+    special = [i for i, kind in enumerate(types) if kind != "float64"]
+    if not special:
+        return cells
+    cells = cells.astype(object)
+    true, false, missing = words
+    for i in special:
+        column = values[:, i]
+        if types[i] == "bool":
+            cells[:, i] = np.where(column != 0, true, false)
+        else:
+            finite = np.isfinite(column)
+            whole = np.char.mod("%d", np.where(finite, column, 0).astype(np.int64))
+            cells[:, i] = np.where(finite, whole, missing)
+    return cells.astype(str)
+
+
 def _join_columns(cells: np.ndarray, separator: str) -> np.ndarray:
     """One string per row: the row's cells joined (a loop over columns, never over rows)."""
     if cells.shape[1] == 0:
@@ -48,21 +71,25 @@ def _join_columns(cells: np.ndarray, separator: str) -> np.ndarray:
     return line
 
 
-def json_rows(values: np.ndarray) -> Iterator[str]:
+def json_rows(values: np.ndarray, types: Sequence[str] = ()) -> Iterator[str]:
     """``[a,b,...]`` rows separated by commas, block by block."""
     for start in range(0, values.shape[0], ROWS_PER_BLOCK):
-        cells = _format_cells(
-            values[start : start + ROWS_PER_BLOCK], '"NaN"', '"Infinity"', '"-Infinity"'
-        )
+        block = values[start : start + ROWS_PER_BLOCK]
+        cells = _format_cells(block, '"NaN"', '"Infinity"', '"-Infinity"')
+        cells = _retype_cells(cells, block, types, ("true", "false", "null"))
         lines = np.char.add(np.char.add("[", _join_columns(cells, ",")), "]")
         yield ("," if start else "") + ",".join(lines.tolist())
 
 
-def csv_rows(chain_number: int, first_draw: int, thin: int, values: np.ndarray) -> Iterator[str]:
+def csv_rows(
+    chain_number: int, first_draw: int, thin: int, values: np.ndarray, types: Sequence[str] = ()
+) -> Iterator[str]:
     """``chain,draw,values...`` lines; draw numbers are 1-based positions in the stored chain."""
     for start in range(0, values.shape[0], ROWS_PER_BLOCK):
         block = values[start : start + ROWS_PER_BLOCK]
         cells = _format_cells(block, "NaN", "Inf", "-Inf")
+        # an empty field is what CSV readers take for a missing value
+        cells = _retype_cells(cells, block, types, ("true", "false", ""))
         draw_numbers = first_draw + thin * np.arange(start, start + block.shape[0])
         prefix = np.char.add(f"{chain_number},", draw_numbers.astype(str))
         lines = _join_columns(cells, ",")
@@ -92,7 +119,7 @@ def stream_json(
     for position, chain_index in enumerate(selection.chains):
         values = load_chain(chain_index)[:: selection.thin, selection.columns]
         yield ("," if position else "") + f'{{"chain":{chain_index + 1},"draws":['
-        yield from json_rows(values)
+        yield from json_rows(values, selection.types)
         yield "]}"
     yield "]}\n"
 
@@ -103,4 +130,4 @@ def stream_csv(
     yield ",".join(csv_quote(h) for h in ["chain", "draw", *header]) + "\n"
     for chain_index in selection.chains:
         values = load_chain(chain_index)[:: selection.thin, selection.columns]
-        yield from csv_rows(chain_index + 1, 1, selection.thin, values)
+        yield from csv_rows(chain_index + 1, 1, selection.thin, values, selection.types)

@@ -29,9 +29,11 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
         503: "problem",
     },
     ("get", "/v1/jobs"): {200: "job_list", 400: "problem"},
-    ("get", "/v1/jobs/{job_id}"): {200: "job", 404: "problem"},
+    ("get", "/v1/jobs/{job_id}"): {200: "job", 304: None, 404: "problem"},
     ("post", "/v1/jobs/{job_id}/cancel"): {200: "job", 404: "problem"},
-    ("get", "/v1/jobs/{job_id}/summary"): {200: "summary", 404: "problem", 409: "problem"},
+    ("get", "/v1/jobs/{job_id}/summary"): {
+        200: "summary", 304: None, 404: "problem", 409: "problem",
+    },
     ("get", "/v1/jobs/{job_id}/draws"): {
         200: "draws",
         304: None,
@@ -48,8 +50,16 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
         406: "problem",
         409: "problem",
     },
-    ("get", "/v1/jobs/{job_id}/diagnostics"): {200: "diagnostics", 404: "problem", 409: "problem"},
-    ("get", "/v1/jobs/{job_id}/audit"): {200: "audit", 404: "problem"},
+    ("get", "/v1/jobs/{job_id}/diagnostics"): {
+        200: "diagnostics", 304: None, 404: "problem", 409: "problem",
+    },
+    ("get", "/v1/jobs/{job_id}/audit"): {200: "audit", 304: None, 404: "problem"},
+    ("get", "/v1/jobs/{job_id}/columns"): {
+        200: "columns", 304: None, 400: "problem", 404: "problem", 409: "problem",
+    },
+    ("get", "/v1/jobs/{job_id}/request"): {
+        200: "submitted_request", 304: None, 400: "problem", 404: "problem",
+    },
     ("get", "/v1/health/live"): {200: "health"},
     ("get", "/v1/health/ready"): {200: "health", 503: "health"},
     ("get", "/v1/models"): {200: "model_list", 400: "problem"},
@@ -68,7 +78,9 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
         400: "problem",
         404: "problem",
     },
-    ("get", "/v1/models/{name}/versions/{version}"): {200: "model_version", 404: "problem"},
+    ("get", "/v1/models/{name}/versions/{version}"): {
+        200: "model_version", 304: None, 404: "problem",
+    },
 }
 
 SUMMARIES = {
@@ -81,6 +93,12 @@ SUMMARIES = {
     ("get", "/v1/jobs/{job_id}/sampler-stats"): "Per-draw sampler statistics, JSON or CSV",
     ("get", "/v1/jobs/{job_id}/diagnostics"): "R-hat, ESS, the sampler report and the verdict",
     ("get", "/v1/jobs/{job_id}/audit"): "Who, when, hashes, seeds, settings and software",
+    ("get", "/v1/jobs/{job_id}/columns"): (
+        "Each download column's display name, plain name and type"
+    ),
+    ("get", "/v1/jobs/{job_id}/request"): (
+        "The submitted spec, data and settings, whose canonical bytes the audit's hashes cover"
+    ),
     ("get", "/v1/health/live"): "The API process is up",
     ("get", "/v1/health/ready"): "The database and the broker are reachable",
     ("get", "/v1/models"): "Registered model names, each with its latest version",
@@ -94,6 +112,7 @@ SUMMARIES = {
 QUERY_PARAMETERS = {
     ("get", "/v1/jobs"): [
         ("state", "Comma-separated states to include."),
+        ("verdict", "Comma-separated verdicts to include: passed, failed, none (not judged)."),
         ("label", "key:value; repeat for several (all must match)."),
         ("limit", "Page size."),
         ("cursor", "next_cursor of the previous page."),
@@ -106,12 +125,16 @@ QUERY_PARAMETERS = {
         ("limit", "Page size."),
         ("cursor", "next_cursor of the previous page."),
     ],
+    ("get", "/v1/jobs/{job_id}/request"): [
+        ("part", "request, spec, data, settings or submission: that part's canonical bytes alone."),
+    ],
     ("get", "/v1/jobs/{job_id}/draws"): [
         ("quantities", "Comma-separated quantity names (default all)."),
         ("chains", "Comma-separated chain numbers from 1 (default all)."),
         ("thin", "Keep every k-th draw."),
         ("format", "json, csv, parquet or npz (or send Accept with their media types)."),
         ("layout", "wide (one row per chain and draw) or long (per chain, draw and quantity)."),
+        ("names", "display (default: theta[1]) or plain (theta_1, for SQL and dataframes)."),
     ],
     ("get", "/v1/jobs/{job_id}/sampler-stats"): [
         ("statistics", "Comma-separated statistic names (default all)."),
@@ -119,6 +142,7 @@ QUERY_PARAMETERS = {
         ("thin", "Keep every k-th draw."),
         ("format", "json, csv, parquet or npz (or send Accept with their media types)."),
         ("layout", "wide (one row per chain and draw) or long (per chain, draw and statistic)."),
+        ("names", "display (default) or plain (for SQL and dataframes)."),
     ],
 }
 
