@@ -11,8 +11,10 @@ from werkzeug.exceptions import HTTPException
 from service.access.authentication import install_access
 from service.config import load_settings
 from service.problem_details import ApiProblem, http_problem, problem_response
+from service.request_records import install_request_records
 from service.runtime import build_runtime
 from service.structured_logs import configure_logging, install_request_context
+from service.views.comparisons import bayes_factors, comparisons
 from service.views.health import health
 from service.views.jobs import jobs
 from service.views.metrics import metrics
@@ -28,12 +30,13 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app.config["MAX_CONTENT_LENGTH"] = settings.max_body_bytes
     app.json.sort_keys = False
     configure_logging(settings)
+    install_request_records(app)
     install_request_context(app)
     runtime = build_runtime(settings)
     app.extensions["drawyard"] = runtime
-    for blueprint in (jobs, results, models, health, metrics, web):
+    for blueprint in (jobs, results, models, comparisons, bayes_factors, health, metrics, web):
         app.register_blueprint(blueprint)
-    install_access(app, runtime, (jobs, results, models))
+    install_access(app, runtime, (jobs, results, models, comparisons, bayes_factors, metrics))
 
     @app.errorhandler(ApiProblem)
     def api_problem(problem: ApiProblem):

@@ -10,8 +10,10 @@ HMAC-SHA256 (RFC 2104) of ``<id>.<timestamp>.<body bytes>``. The key is the secr
 DRAWYARD_CALLBACK_SECRET: in the specification's form ``whsec_<base64>`` it is the decoded bytes;
 any other string is used as its UTF-8 bytes. The timestamp is part of the signed message, so a
 receiver that rejects old timestamps cannot be fed a recorded request again. Delivery runs in a
-Celery task that retries with doubling delays up to DRAWYARD_CALLBACK_ATTEMPTS attempts; every
-attempt is written to the job's event log.
+Celery task that retries with doubling delays up to DRAWYARD_CALLBACK_ATTEMPTS attempts, each
+within one deadline of DRAWYARD_CALLBACK_TIMEOUT seconds for the whole exchange; every attempt is
+written to the job's event log. The task runs on the closing queue's own worker, never in a
+chain's process.
 """
 
 from __future__ import annotations
@@ -25,13 +27,14 @@ import logging
 import re
 import time
 from dataclasses import dataclass
+from http.client import HTTPException
 from typing import Any
 from urllib.parse import urlsplit
 
-import requests
 from sqlalchemy import select
 
 from service import events
+from service.bounded_post import post_within
 from service.config import Settings
 from service.job_resources import job_resource
 from service.runtime import Runtime
@@ -55,19 +58,77 @@ def allowed_prefixes(settings: Settings) -> list[str]:
     return [part for part in re.split(r"[\s,]+", settings.callback_allow) if part]
 
 
+class UnusableUrl(ValueError):
+    """A callback URL that cannot be parsed or is refused outright; the message says why."""
+
+
+DEFAULT_PORTS = {"http": 80, "https": 443}
+UNRESERVED = frozenset("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789-._~")
+PERCENT_TRIPLET = re.compile(r"%([0-9A-Fa-f]{2})")
+DOT_SEGMENT = re.compile(r"(^|/)\.{1,2}(/|$)")
+
+
+def _percent_normalised(text: str) -> str:
+    """RFC 3986 section 6.2.2.2: unreserved characters decoded, other triplets in upper case."""
+
+    def one(match: re.Match[str]) -> str:
+        char = chr(int(match.group(1), 16))
+        return char if char in UNRESERVED else "%" + match.group(1).upper()
+
+    return PERCENT_TRIPLET.sub(one, text)
+
+
+def normalised_url(url: str) -> str:
+    """The URL in RFC 3986 section 6.2.2 normal form (case, percent-encoding, default port,
+    empty path), or UnusableUrl.
+
+    Refused outright rather than resolved: dot segments and encoded dots (which would reach
+    other paths on an allowed host), user information (``https://allowed@other/``), backslashes
+    and control characters (which parsers disagree about).
+    """
+    if any(ord(c) < 0x21 or c in "\\\x7f" for c in url):
+        raise UnusableUrl("The URL holds spaces, control characters or backslashes.")
+    try:
+        parts = urlsplit(url)
+        port = parts.port
+    except ValueError as error:
+        raise UnusableUrl(f"The URL cannot be parsed ({error}).") from None
+    scheme = parts.scheme.lower()
+    if scheme not in DEFAULT_PORTS:
+        raise UnusableUrl("The URL must start with http:// or https://.")
+    if not parts.hostname:
+        raise UnusableUrl("The URL names no host.")
+    if "@" in parts.netloc:
+        raise UnusableUrl("The URL may not carry user information ('name@' before the host).")
+    if re.search(r"%2e", url, re.IGNORECASE):
+        raise UnusableUrl("The URL may not hold encoded dots ('%2e').")
+    if DOT_SEGMENT.search(parts.path):
+        raise UnusableUrl("The URL's path may not hold '.' or '..' segments.")
+    host = parts.hostname.lower()
+    if ":" in host:
+        host = f"[{host}]"
+    authority = host if port in (None, DEFAULT_PORTS[scheme]) else f"{host}:{port}"
+    path = _percent_normalised(parts.path) or "/"
+    query = f"?{_percent_normalised(parts.query)}" if parts.query else ""
+    return f"{scheme}://{authority}{path}{query}"
+
+
 def url_allowed(url: str, prefixes: list[str]) -> bool:
-    """True when ``url`` is http(s) and starts with a prefix at a boundary.
+    """True when ``url``, normalised, starts with a normalised prefix at a boundary.
 
     The boundary matters: the prefix "https://hooks.example" must not admit
     "https://hooks.example.evil.net/", so after a prefix not ending in "/" the URL must end or
-    go on with "/", "?" or "#".
+    go on with "/", "?" or "#". UnusableUrl when the URL itself is refused.
     """
-    if urlsplit(url).scheme not in ("http", "https"):
-        return False
-    for prefix in prefixes:
-        if not url.startswith(prefix):
+    target = normalised_url(url)
+    for raw in prefixes:
+        try:
+            prefix = normalised_url(raw)
+        except UnusableUrl:
             continue
-        rest = url[len(prefix) :]
+        if not target.startswith(prefix):
+            continue
+        rest = target[len(prefix) :]
         if prefix.endswith("/") or rest == "" or rest[0] in "/?#":
             return True
     return False
@@ -82,7 +143,11 @@ def notify_problems(body: Any, settings: Settings) -> list[Problem]:
         return []  # the schema reports the missing or mistyped URL
     if not settings.callback_secret:
         return [Problem(POINTER, "This service is not set up to send completion callbacks.")]
-    if not url_allowed(url, allowed_prefixes(settings)):
+    try:
+        allowed = url_allowed(url, allowed_prefixes(settings))
+    except UnusableUrl as error:
+        return [Problem(POINTER, str(error))]
+    if not allowed:
         return [
             Problem(
                 POINTER,
@@ -127,7 +192,7 @@ def queue_callback(runtime: Runtime, job_id: str) -> None:
     if callback_url(runtime, job_id) is None:
         return
     runtime.celery.send_task(
-        DELIVER_CALLBACK, args=[job_id], queue=runtime.settings.queue, retry=True
+        DELIVER_CALLBACK, args=[job_id], queue=runtime.settings.closing_queue, retry=True
     )
 
 
@@ -186,17 +251,11 @@ def deliver(runtime: Runtime, job_id: str, attempt: int) -> Outcome:
     }
     detail: dict[str, Any] = {"attempt": attempt, "url": url}
     try:
-        # No redirects: a redirect could lead outside the allowed prefixes.
-        response = requests.post(
-            url,
-            data=body,
-            headers=headers,
-            timeout=settings.callback_timeout,
-            allow_redirects=False,
-        )
-        detail["status_code"] = response.status_code
-        delivered = 200 <= response.status_code < 300
-    except requests.RequestException as error:
+        # One deadline for the whole attempt, and no redirects (they could leave the prefixes).
+        status = post_within(url, body, headers, settings.callback_timeout)
+        detail["status_code"] = status
+        delivered = 200 <= status < 300
+    except (OSError, HTTPException) as error:
         detail["error"] = f"{type(error).__name__}: {error}"[:500]
         delivered = False
     detail["delivered"] = delivered

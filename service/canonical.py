@@ -6,7 +6,7 @@ strings escaped as ECMAScript's JSON.stringify does, numbers written as ECMAScri
 754 double (ECMA-262, Number::toString), all in UTF-8. Any other implementation of the RFC gives
 the same bytes, so a reviewer can check a digest without this program.
 
-Jobs stored before migration 0007 were digested with the earlier scheme, sorted keys and
+Jobs stored before migration 0008 were digested with the earlier scheme, sorted keys and
 Python's number formatting; each job records its scheme's name (``digest_scheme``) so those
 digests stay verifiable.
 """
@@ -30,7 +30,7 @@ CURRENT_SCHEME = JCS
 
 
 def sorted_keys_json(value: Any) -> bytes:
-    """The scheme before 0007: sorted keys, no insignificant whitespace, Python's numbers."""
+    """The scheme before 0008: sorted keys, no insignificant whitespace, Python's numbers."""
     return json.dumps(
         value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False
     ).encode("utf-8")

@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy import and_, delete, exists, func, or_, select, update
 
-from service import crash_drill, evaluation_counts, events
+from service import crash_drill, evaluation_counts, events, metrics
 from service.dispatch import send_finish_task
 from service.runtime import Runtime
 from service.store.arrays import ENCODING, encode_array
@@ -43,6 +43,8 @@ class Lease:
     attempt: int
     checkpoint: bytes | None
     body: dict[str, Any]
+    # the spec's and the data's fingerprints from submission: the compiled model's cache key
+    model_key: str | None = None
 
 
 def take_lease(
@@ -125,7 +127,10 @@ def take_lease(
         if started == 1:
             events.record(session, job_id, "job_state", "running")
         return Lease(
-            chain.id, job_id, chain_index, token, chain.attempts, chain.checkpoint, job.body
+            chain.id, job_id, chain_index, token, chain.attempts, chain.checkpoint, job.body,
+            # the reparametrisation setting changes the compiled model's coordinates
+            f"{job.spec_sha256}:{job.data_sha256}:"
+            f"{(job.body.get('sampler') or {}).get('reparametrise', True)}",
         )
 
 
@@ -289,8 +294,12 @@ def run_chain(
         _resend_finish_if_due(runtime, job_id)
         return ChainOutcome("dropped")
     monitor = ChainMonitor(runtime, lease).start()
+    model = None
     try:
-        chain_run = _start_or_resume(lease)
+        from worker.runner import compile_body
+
+        model = runtime.models.borrow(lease.model_key, lambda: compile_body(lease.body))
+        chain_run = _start_or_resume(lease, model)
         monitor.snapshot_source = chain_run.snapshot
         result = chain_run.run(
             progress=monitor.progress,
@@ -300,11 +309,13 @@ def run_chain(
         )
     except Exception as error:
         monitor.close()
+        runtime.models.give_back(lease.model_key, model)
         log.exception("chain %s of job %s failed", chain_index + 1, job_id)
         outcome = "failed"
         ended = end_chain(runtime, lease, "failed", f"{type(error).__name__}: {error}", monitor)
     else:
         monitor.close()
+        runtime.models.give_back(lease.model_key, model)
         if result.completed:
             outcome = "succeeded"
             ended = store_result(runtime, lease, result, monitor)
@@ -323,11 +334,11 @@ def run_chain(
             reason = "the sampler stopped before the last draw"
             ended = end_chain(runtime, lease, "failed", reason, monitor)
     if ended and claim_finish(runtime, job_id):
-        send_finish_task(runtime.celery, runtime.settings.queue, job_id)
+        send_finish_task(runtime.celery, runtime.settings.closing_queue, job_id)
     return ChainOutcome(outcome if ended else "lease lost")
 
 
-def _start_or_resume(lease: Lease) -> Any:
+def _start_or_resume(lease: Lease, model: Any = None) -> Any:
     """The chain from its checkpoint, or from the start when the checkpoint cannot be used.
 
     Starting over costs time but not correctness: a chain's draws depend only on the body and its
@@ -337,7 +348,7 @@ def _start_or_resume(lease: Lease) -> Any:
 
     if lease.checkpoint is not None:
         try:
-            return runner.resume_chain(lease.body, lease.chain_index, lease.checkpoint)
+            return runner.resume_chain(lease.body, lease.chain_index, lease.checkpoint, model)
         except Exception as error:  # any unreadable or mismatched snapshot: start over
             log.warning(
                 "checkpoint of chain %s of job %s unusable (%s); starting it over",
@@ -345,7 +356,7 @@ def _start_or_resume(lease: Lease) -> Any:
                 lease.job_id,
                 error,
             )
-    return runner.start_chain(lease.body, lease.chain_index)
+    return runner.start_chain(lease.body, lease.chain_index, model)
 
 
 def end_chain(
@@ -379,6 +390,8 @@ def end_chain(
         if done:
             detail = {"error": error} if error else None
             events.record(session, lease.job_id, "chain_state", state, lease.chain_index, detail)
+    if done:
+        metrics.chain_ran(state, None, now, None)
     return bool(done)
 
 
@@ -483,6 +496,7 @@ def store_result(
         ).rowcount
         if not done:
             return False
+        started_at = session.scalar(select(Chain.started_at).where(Chain.id == lease.chain_id))
         session.execute(delete(ChainArray).where(ChainArray.chain_id == lease.chain_id))
         integers = getattr(result, "integer_names", frozenset())
         types = ["int64" if name in integers else "float64" for name in result.names]
@@ -511,6 +525,7 @@ def store_result(
             lease.chain_index,
             detail,
         )
+    metrics.chain_ran(state, started_at, now, getattr(result, "evaluations", None))
     return True
 
 
@@ -554,7 +569,7 @@ def _resend_finish_if_due(runtime: Runtime, job_id: str) -> None:
     finishing task is safe to run more than once.
     """
     if claim_finish(runtime, job_id):
-        send_finish_task(runtime.celery, runtime.settings.queue, job_id)
+        send_finish_task(runtime.celery, runtime.settings.closing_queue, job_id)
         return
     with runtime.sessions() as session:
         job_state = session.scalar(select(Job.state).where(Job.id == job_id))
@@ -564,4 +579,4 @@ def _resend_finish_if_due(runtime: Runtime, job_id: str) -> None:
             .where(Chain.job_id == job_id, Chain.state.not_in(TERMINAL_STATES))
         )
     if job_state is not None and job_state not in TERMINAL_STATES and pending == 0:
-        send_finish_task(runtime.celery, runtime.settings.queue, job_id)
+        send_finish_task(runtime.celery, runtime.settings.closing_queue, job_id)

@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import NoReturn
 
 from service.access.commands import add_keys_command, serve_host
+from service.config import load_settings
 from service.local_stack import CELERY_APP, LocalStack, StartupError
 from service.versions import software_versions
 
@@ -85,8 +86,13 @@ def _add_worker(commands: argparse._SubParsersAction) -> None:
             "to the store in DRAWYARD_DATABASE_URL. Start one per core."
         ),
     )
-    worker.add_argument("--processes", type=int, default=1,
-                        help="chains this worker runs side by side, one process each (default: 1)")
+    worker.add_argument("--processes", type=int, default=None,
+                        help="chains this worker runs side by side, one process each (default: "
+                             "1); with --closing, threads (default: 4)")
+    worker.add_argument("--closing", action="store_true",
+                        help="run finishing steps and completion callbacks (the closing queue, "
+                             "DRAWYARD_CLOSING_QUEUE) in threads instead of chains; a deployment "
+                             "runs at least one such worker")
     worker.add_argument("--name", default=None,
                         help="this worker's name in logs and metrics (default: drawyard@<host>)")
     worker.add_argument("--logging", default="INFO", choices=LOG_LEVELS,
@@ -118,7 +124,10 @@ def build_parser() -> argparse.ArgumentParser:
         "tasks again (service/sweeper.py). Safe to run more than one.",
     )
     sweeper.add_argument("--once", action="store_true", help="sweep once and exit")
-    sweeper.set_defaults(run=lambda args: _sweeper_main(["--once"] if args.once else []))
+    sweeper.add_argument("--check", action="store_true",
+                         help="exit 0 if a sweep reached the store recently, else 1")
+    sweeper.set_defaults(run=lambda args: _sweeper_main(
+        ["--once"] * args.once + ["--check"] * args.check))
     add_keys_command(commands)
     from service.job_commands import add_job_commands
 
@@ -126,6 +135,9 @@ def build_parser() -> argparse.ArgumentParser:
     from service.model_commands import add_models_command
 
     add_models_command(commands)
+    from service.assessment_commands import add_assessment_commands
+
+    add_assessment_commands(commands)
     return parser
 
 
@@ -219,15 +231,18 @@ def _sweeper_main(argv: list[str]) -> int:
 
 
 def run_worker(args: argparse.Namespace) -> NoReturn:
-    name = args.name or f"drawyard@{socket.gethostname()}"
+    name = args.name or f"drawyard{'-closing' if args.closing else ''}@{socket.gethostname()}"
     passed = [o for o in args.library_options if o != "--"]
+    processes = args.processes or (4 if args.closing else 1)
     # drawyard's words mapped onto the library's options; one task per process at a time, so a
     # long chain never holds a second one back
     argv = [
-        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
-        "--concurrency", str(args.processes), "--prefetch-multiplier", "1",
+        sys.executable, "-m", "celery", "-A", CELERY_APP, "--quiet", "worker",
+        "--concurrency", str(processes), "--prefetch-multiplier", "1",
         "-n", name, "--loglevel", args.logging, *passed,
     ]
+    if args.closing:
+        argv += ["-Q", load_settings().closing_queue, "--pool", "threads"]
     # Replace this process so that signals from a supervisor reach the worker itself.
     os.execv(sys.executable, argv)
 

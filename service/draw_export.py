@@ -13,8 +13,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-# Rows formatted per block: bounds the text held in memory for a long chain.
-ROWS_PER_BLOCK = 2000
+# Cells formatted per block: bounds the text (and the Python numbers it is made from) held in
+# memory at once, about 2 MB, however long the chain and however many its quantities. Our choice:
+# large enough that the per-block Python work is noise beside the formatting itself.
+CELLS_PER_BLOCK = 50_000
+
+
+def _rows_per_block(columns: int) -> int:
+    return max(1, CELLS_PER_BLOCK // max(1, columns))
 
 
 @dataclass(frozen=True)
@@ -27,77 +33,86 @@ class Selection:
     types: tuple[str, ...] = ()
 
 
-def _format_cells(block: np.ndarray, nan: str, inf: str, minus_inf: str) -> np.ndarray:
-    """A string array of ``block``'s cells, vectorised over rows."""
-    values = np.asarray(block, dtype=np.float64)
-    cells = np.char.mod("%.17g", values)
-    if not np.isfinite(values).all():
-        cells = cells.astype(object)
-        cells[np.isnan(values)] = nan
-        cells[values == np.inf] = inf
-        cells[values == -np.inf] = minus_inf
-        cells = cells.astype(str)
-    return cells
+# Python's own %-formatting of a float with 17 significant digits; finite values never contain a
+# letter, so the non-finite words can be found and replaced in a block's text afterwards.
+_CELL = "%.17g"
+_NON_FINITE = (("nan", "NaN"), ("-inf", "-Inf"), ("inf", "Inf"))
+_NON_FINITE_JSON = (("nan", '"NaN"'), ("-inf", '"-Infinity"'), ("inf", '"Infinity"'))
 
 
-def _retype_cells(
-    cells: np.ndarray, values: np.ndarray, types: Sequence[str], words: tuple[str, str, str]
+def _formatted(template: str, values: list, block: np.ndarray,
+               words: tuple[tuple[str, str], ...]) -> str:
+    """``template % values``: one C-level formatting pass over a whole block of rows.
+
+    The block's text is the only thing built (a few bytes per cell more than the numbers), so the
+    memory a download holds is bounded by one block of rows, whatever the chain's length.
+    """
+    text = template % tuple(values)
+    if not np.isfinite(block).all():
+        for word, replacement in words:
+            text = text.replace(word, replacement)
+    return text
+
+
+def _cell_formats(types: Sequence[str], columns: int) -> list[str]:
+    """Reals with 17 digits; whole numbers and yes/no as the text _typed_cells makes of them."""
+    kinds = list(types) or ["float64"] * columns
+    return [_CELL if kind == "float64" else "%s" for kind in kinds]
+
+
+def _typed_cells(
+    block: np.ndarray, types: Sequence[str], words: tuple[str, str, str]
 ) -> np.ndarray:
-    """Cells of whole-number columns as integers (``missing`` where there is no value) and of
-    yes/no columns as ``true``/``false``; ``words`` is (true, false, missing)."""
+    """The block as the values its template formats: unchanged when every column is real (the
+    fast path), else an object array with whole numbers as Python ints (``missing`` where there is
+    no value) and yes/no as ``true``/``false``; ``words`` is (true, false, missing)."""
     special = [i for i, kind in enumerate(types) if kind != "float64"]
     if not special:
-        return cells
-    cells = cells.astype(object)
+        return block
+    cells = block.astype(object)
     true, false, missing = words
     for i in special:
-        column = values[:, i]
+        column = block[:, i]
         if types[i] == "bool":
             cells[:, i] = np.where(column != 0, true, false)
         else:
             finite = np.isfinite(column)
-            whole = np.char.mod("%d", np.where(finite, column, 0).astype(np.int64))
+            whole = np.where(finite, column, 0).astype(np.int64).astype(object)
             cells[:, i] = np.where(finite, whole, missing)
-    return cells.astype(str)
-
-
-def _join_columns(cells: np.ndarray, separator: str) -> np.ndarray:
-    """One string per row: the row's cells joined (a loop over columns, never over rows)."""
-    if cells.shape[1] == 0:
-        return np.full(cells.shape[0], "", dtype=str)
-    line = cells[:, 0]
-    for column in range(1, cells.shape[1]):
-        line = np.char.add(np.char.add(line, separator), cells[:, column])
-    return line
+    return cells
 
 
 def json_rows(values: np.ndarray, types: Sequence[str] = ()) -> Iterator[str]:
     """``[a,b,...]`` rows separated by commas, block by block."""
-    for start in range(0, values.shape[0], ROWS_PER_BLOCK):
-        block = values[start : start + ROWS_PER_BLOCK]
-        cells = _format_cells(block, '"NaN"', '"Infinity"', '"-Infinity"')
-        cells = _retype_cells(cells, block, types, ("true", "false", "null"))
-        lines = np.char.add(np.char.add("[", _join_columns(cells, ",")), "]")
-        yield ("," if start else "") + ",".join(lines.tolist())
+    values = np.asarray(values, dtype=np.float64)
+    line = "[" + ",".join(_cell_formats(types, values.shape[1])) + "]"
+    step = _rows_per_block(values.shape[1])
+    for start in range(0, values.shape[0], step):
+        block = values[start : start + step]
+        template = ",".join([line] * block.shape[0])
+        cells = _typed_cells(block, types, ("true", "false", "null")).ravel().tolist()
+        text = _formatted(template, cells, block, _NON_FINITE_JSON)
+        yield ("," if start else "") + text
 
 
 def csv_rows(
     chain_number: int, first_draw: int, thin: int, values: np.ndarray, types: Sequence[str] = ()
 ) -> Iterator[str]:
     """``chain,draw,values...`` lines; draw numbers are 1-based positions in the stored chain."""
-    for start in range(0, values.shape[0], ROWS_PER_BLOCK):
-        block = values[start : start + ROWS_PER_BLOCK]
-        cells = _format_cells(block, "NaN", "Inf", "-Inf")
+    values = np.asarray(values, dtype=np.float64)
+    columns = values.shape[1]
+    line = f"{chain_number},%d" + "".join("," + f for f in _cell_formats(types, columns)) + "\n"
+    step = _rows_per_block(columns)
+    for start in range(0, values.shape[0], step):
+        block = values[start : start + step]
+        rows = block.shape[0]
+        # each row's draw number (exact as a float64 below 2^53; %d prints it whole), then its
+        # cells, in one flat list matching the template
+        draw_numbers = first_draw + thin * np.arange(start, start + rows, dtype=np.float64)
         # an empty field is what CSV readers take for a missing value
-        cells = _retype_cells(cells, block, types, ("true", "false", ""))
-        draw_numbers = first_draw + thin * np.arange(start, start + block.shape[0])
-        prefix = np.char.add(f"{chain_number},", draw_numbers.astype(str))
-        lines = _join_columns(cells, ",")
-        if cells.shape[1]:
-            lines = np.char.add(np.char.add(prefix, ","), lines)
-        else:
-            lines = prefix
-        yield "\n".join(lines.tolist()) + "\n"
+        typed = _typed_cells(block, types, ("true", "false", ""))
+        cells = np.column_stack((draw_numbers.astype(typed.dtype), typed)).ravel().tolist()
+        yield _formatted(line * rows, cells, block, _NON_FINITE)
 
 
 def csv_quote(name: str) -> str:

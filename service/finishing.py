@@ -5,11 +5,13 @@ from __future__ import annotations
 import logging
 from typing import Any
 
+import numpy as np
 from sqlalchemy import select, update
 from sqlalchemy.orm import undefer
 
 from service import evaluation_counts, events
 from service.callbacks import queue_callback_safely
+from service.metrics import JOBS_FINISHED
 from service.partial_results import summarise_partial
 from service.runtime import Runtime
 from service.store.arrays import decode_array
@@ -41,6 +43,25 @@ def load_chain_result(
     )
 
 
+def load_chain_results(runtime: Runtime, chains: list[Chain], with_counts: bool) -> list[Any]:
+    """Every chain's ChainResult, their draws copied as they are decoded into one
+    (chains, draws, quantities) array: the job's draws are held once (plus one chain's decoded
+    copy at a time), and the engine pools them without stacking a second copy."""
+    results: list[Any] = []
+    pooled: np.ndarray | None = None
+    for position, chain in enumerate(chains):
+        counts = evaluation_counts.engine_counts(chain) if with_counts else None
+        result = load_chain_result(runtime, chain.id, chain.adapted, counts)
+        values = np.asarray(result.values, dtype=np.float64)
+        if position == 0:
+            pooled = np.empty((len(chains), *values.shape))
+        if pooled is not None and values.shape == pooled.shape[1:]:
+            pooled[position] = values
+            result.values = pooled[position]
+        results.append(result)
+    return results
+
+
 def _close(runtime: Runtime, job_id: str, state: str, **values: Any) -> bool:
     with transaction(runtime.sessions) as session:
         done = session.execute(
@@ -55,6 +76,7 @@ def _close(runtime: Runtime, job_id: str, state: str, **values: Any) -> bool:
             detail = {"error": values["error"]} if values.get("error") else None
             events.record(session, job_id, "job_state", state, detail=detail)
     if done:
+        JOBS_FINISHED.labels(state).inc()
         queue_callback_safely(runtime, job_id)
     return bool(done)
 
@@ -88,10 +110,7 @@ def finish(runtime: Runtime, job_id: str) -> str:
     if any(chain.state == "timed_out" for chain in chains):
         return _finish_partial(runtime, job, chains)
     try:
-        results = [
-            load_chain_result(runtime, c.id, c.adapted, evaluation_counts.engine_counts(c))
-            for c in chains
-        ]
+        results = load_chain_results(runtime, chains, with_counts=True)
         outcome = runner.finish_job(job.body, results)
     except Exception as error:
         log.exception("finishing job %s failed", job_id)

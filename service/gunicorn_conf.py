@@ -9,15 +9,37 @@ import os
 bind = os.environ.get("GUNICORN_BIND", "0.0.0.0:8000")
 # WEB_CONCURRENCY is the conventional name platforms set for the number of web processes.
 workers = int(os.environ.get("WEB_CONCURRENCY", "2"))
-# Threaded workers keep heart-beating to the arbiter while a thread streams a large draws download,
-# so a long download is not mistaken for a hung worker.
-worker_class = "gthread"
+# Each worker reads whole requests in an event loop before an app thread sees them, so slow or
+# idle clients cannot hold the threads (service/buffered_worker.py); its loop keeps heart-beating
+# to the arbiter while a thread streams a large draws download.
+worker_class = "service.buffered_worker.BufferedRequestWorker"
 threads = int(os.environ.get("GUNICORN_THREADS", "4"))
 timeout = 120
 graceful_timeout = 10
 keepalive = 5
-accesslog = "-"
+# The app writes each request's access line itself, as JSON with its request id
+# (service/request_records.py); gunicorn's own lines go through the same JSON formatter.
+accesslog = None
 errorlog = "-"
 loglevel = os.environ.get("GUNICORN_LOG_LEVEL", "info")
+logconfig_dict = {
+    "version": 1,
+    "disable_existing_loggers": False,
+    "formatters": {"json": {"()": "service.structured_logs.JsonLineFormatter"}},
+    "filters": {"context": {"()": "service.structured_logs.JobContextFilter"}},
+    "handlers": {
+        "stderr": {
+            "class": "logging.StreamHandler",
+            "formatter": "json",
+            "filters": ["context"],
+            "stream": "ext://sys.stderr",
+        }
+    },
+    "loggers": {
+        "gunicorn.error": {"handlers": ["stderr"], "level": loglevel.upper(), "propagate": False},
+    },
+    # The app puts its own JSON handler on the root logger (service/structured_logs.py).
+    "root": {"level": "INFO", "handlers": []},
+}
 # Behind the compose file's network (or a reverse proxy) the client address arrives in headers.
 forwarded_allow_ips = os.environ.get("FORWARDED_ALLOW_IPS", "127.0.0.1")

@@ -535,7 +535,11 @@ def _submission_options() -> argparse.ArgumentParser:
     group.add_argument("--settings", type=Path, default=None, metavar="FILE",
                        help="a JSON file with any of the submission members 'sampler', "
                             "'summary', 'checks' and 'labels'; the options below override it")
-    group.add_argument("--method", choices=("nuts", "hmc", "metropolis"), default=None)
+    group.add_argument("--method", choices=("nuts", "hmc", "metropolis", "laplace", "grid"),
+                       default=None,
+                       help="a sampler, or an approximation run as one task: laplace (a "
+                            "Gaussian at the mode, checked by PSIS) or grid (exact, for one or "
+                            "two unconstrained coordinates)")
     group.add_argument("--chains", type=int, default=None, metavar="N")
     group.add_argument("--warmup", type=int, default=None, metavar="N",
                        help="warm-up iterations per chain")

@@ -12,6 +12,7 @@ import contextlib
 import ctypes
 import json
 import os
+import secrets
 import shutil
 import signal
 import socket
@@ -24,10 +25,12 @@ from pathlib import Path
 
 import requests
 
+SESSION_SECRET_VARIABLES = ("DRAWYARD_SESSION_SECRET", "DRAWYARD_SESSION_SECRET_FILE")
 READY_PATH = "/v1/health/ready"
 LIVE_PATH = "/v1/health/live"
 APP_FACTORY = "service.app:create_app()"
 CELERY_APP = "worker.celery_app:celery_app"
+GUNICORN_CONFIG = "python:service.gunicorn_conf"
 
 _PR_SET_PDEATHSIG = 1
 
@@ -270,11 +273,59 @@ class RedisServer:
 def service_env(database_url: str, broker_url: str, extra: Mapping[str, str] | None = None) -> dict:
     """The DRAWYARD_* settings the API and the workers share."""
     env = {"DRAWYARD_DATABASE_URL": database_url, "DRAWYARD_BROKER_URL": broker_url}
+    # One secret for the whole stack signs browser sessions, so any API process can read a cookie
+    # another made; a new one each start signs every browser out, which a local stack can afford.
+    if not any(name in os.environ for name in SESSION_SECRET_VARIABLES):
+        env["DRAWYARD_SESSION_SECRET"] = secrets.token_urlsafe(32)
     # Child Pythons must not buffer logs, or a crash loses the lines that explain it.
     env["PYTHONUNBUFFERED"] = "1"
     if extra:
         env.update(extra)
     return env
+
+
+# What each long-running part runs, without the interpreter: docker-compose.yml runs the same
+# (tests/infra/test_compose.py compares them), so a local stack and a deployment cannot drift.
+def api_command(host: str, port: int, processes: int) -> list[str]:
+    return [
+        "gunicorn",
+        "--config", GUNICORN_CONFIG,
+        "--bind", f"{host}:{port}",
+        "--workers", str(processes),
+        APP_FACTORY,
+    ]
+
+
+def worker_command(name: str, concurrency: int) -> list[str]:
+    # --quiet: no start-up banner, which is plain text among the JSON log lines.
+    return [
+        "celery", "-A", CELERY_APP, "--quiet", "worker",
+        "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
+        "-n", name, "--loglevel", "INFO",
+    ]
+
+
+def closing_worker_command(name: str, queue: str, threads: int) -> list[str]:
+    # Threads, not forked processes: callbacks mostly wait on the network, and a finishing step
+    # is short.
+    return [
+        "celery", "-A", CELERY_APP, "--quiet", "worker",
+        "-Q", queue, "--pool", "threads", "--concurrency", str(threads),
+        "--prefetch-multiplier", "1", "-n", name, "--loglevel", "INFO",
+    ]
+
+
+# The console command `drawyard sweeper` (pyproject's drawyard = service.cli:main).
+SWEEPER_COMMAND = ["service.cli", "sweeper"]
+
+
+def metrics_env(folder: Path) -> dict[str, str]:
+    """The metrics folder every process of one stack shares (service/metrics.py), emptied first:
+    a new stack starts its counters from zero, as a restarted deployment may."""
+    folder.mkdir(parents=True, exist_ok=True)
+    for stale in folder.glob("*.db"):
+        stale.unlink()
+    return {"PROMETHEUS_MULTIPROC_DIR": str(folder)}
 
 
 def start_api(
@@ -285,13 +336,7 @@ def start_api(
     processes: int = 1,
 ) -> ChildProcess:
     """gunicorn serving the app factory with the production settings of gunicorn_conf.py."""
-    argv = [
-        sys.executable, "-m", "gunicorn",
-        "--config", "python:service.gunicorn_conf",
-        "--bind", f"{host}:{port}",
-        "--workers", str(processes),
-        APP_FACTORY,
-    ]
+    argv = [sys.executable, "-m", *api_command(host, port, processes)]
     # SIGINT is gunicorn's quick shutdown; SIGTERM would wait for slow clients.
     return start_child("api", argv, log_path, env, stop_signal=signal.SIGINT, grace_seconds=10.0)
 
@@ -303,15 +348,27 @@ def start_worker(
     concurrency: int = 1,
 ) -> ChildProcess:
     """One Celery worker process (a main process plus `concurrency` pool processes)."""
-    argv = [
-        sys.executable, "-m", "celery", "-A", CELERY_APP, "worker",
-        "--concurrency", str(concurrency), "--prefetch-multiplier", "1",
-        "-n", f"w{index}@%h", "--loglevel", "INFO",
-        "--without-heartbeat", "--without-gossip", "--without-mingle",
-    ]
+    argv = [sys.executable, "-m", *worker_command(f"w{index}@%h", concurrency)]
+    # One machine: no worker-to-worker chatter to wait for at start-up.
+    argv += ["--without-heartbeat", "--without-gossip", "--without-mingle"]
     # Warm shutdown (SIGTERM) lets a running chain notice and stop; late acknowledgement puts any
     # unfinished chain back on the queue, so the grace period can be short.
     return start_child(f"worker {index}", argv, log_path, single_threaded_numerics(env),
+                       grace_seconds=15.0)
+
+
+def start_closing_worker(env: Mapping[str, str], log_path: Path, threads: int = 4) -> ChildProcess:
+    """The Celery worker of the closing queue: finishing steps and completion callbacks.
+
+    Its own process and queue, so a job's end never waits behind other jobs' chains and a slow
+    callback receiver never holds a chain's process.
+    """
+    from service.config import load_settings
+
+    queue = load_settings(environ={**os.environ, **env}).closing_queue
+    argv = [sys.executable, "-m", *closing_worker_command("closing@%h", queue, threads)]
+    argv += ["--without-heartbeat", "--without-gossip", "--without-mingle"]
+    return start_child("closing worker", argv, log_path, single_threaded_numerics(env),
                        grace_seconds=15.0)
 
 
@@ -333,7 +390,7 @@ def single_threaded_numerics(env: Mapping[str, str]) -> dict[str, str]:
 
 def start_sweeper(env: Mapping[str, str], log_path: Path) -> ChildProcess:
     """The sweeper (service/sweeper.py): requeues chains whose worker died or task was lost."""
-    argv = [sys.executable, "-m", "service.sweeper"]
+    argv = [sys.executable, "-m", *SWEEPER_COMMAND]
     return start_child("sweeper", argv, log_path, env, grace_seconds=5.0)
 
 
@@ -371,6 +428,7 @@ class LocalStack:
     redis: RedisServer | None = None
     api: ChildProcess | None = None
     worker_processes: list[ChildProcess] = field(default_factory=list)
+    closing_worker: ChildProcess | None = None
     sweeper: ChildProcess | None = None
     broker_url: str = ""
     broker_note: str = ""
@@ -414,6 +472,7 @@ class LocalStack:
             self.database_url = f"sqlite:///{(self.var_dir / 'drawyard.sqlite').resolve()}"
         try:
             env = self._choose_broker()
+            env.update(metrics_env(self.var_dir / "metrics"))
             env.update(self.extra_env)
             env = service_env(self.database_url, self.broker_url, env)
             run_migrations(self.database_url)
@@ -424,10 +483,11 @@ class LocalStack:
                 start_worker(i, env, logs / f"worker{i}.log", self.concurrency)
                 for i in range(self.workers)
             ]
+            self.closing_worker = start_closing_worker(env, logs / "closing.log")
             self.sweeper = start_sweeper(env, logs / "sweeper.log")
             wait_until(
                 api_ready(self.base_url),
-                [self.api, *self.worker_processes],
+                [self.api, *self.worker_processes, self.closing_worker],
                 timeout,
                 f"the API to answer {self.base_url}{READY_PATH}",
             )
@@ -437,7 +497,8 @@ class LocalStack:
         return self
 
     def children(self) -> list[ChildProcess]:
-        out = [c for c in [self.api, *self.worker_processes, self.sweeper] if c is not None]
+        out = [c for c in [self.api, *self.worker_processes, self.closing_worker, self.sweeper]
+               if c is not None]
         if self.redis is not None and self.redis.child is not None:
             out.append(self.redis.child)
         return out
@@ -448,6 +509,8 @@ class LocalStack:
             worker.signal_leader(worker.stop_signal)
         for worker in self.worker_processes:
             worker.stop()
+        if self.closing_worker is not None:
+            self.closing_worker.stop()
         if self.sweeper is not None:
             self.sweeper.stop()
         if self.api is not None:

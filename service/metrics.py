@@ -1,156 +1,169 @@
-"""Service metrics in the Prometheus text exposition format, version 0.0.4.
+"""Service metrics with prometheus_client: counters and histograms where things happen, gauges
+read from the store at scrape time by aggregate queries.
 
-Everything is read at scrape time from where it already lives: job and chain rows in the store,
-the Celery queue's Redis lists, and a bounded ping of the workers. Chain durations are a histogram
-of succeeded chains' wall time (warm-up included). Evaluation rates divide the evaluations of the
-model the workers counted for succeeded chains, in every phase (initialisation, step-size searches,
-warm-up, sampling), by those chains' wall time: evaluations with the gradient for the chains that
-made any (NUTS, static HMC), of the log density alone for those that made none (random-walk
-Metropolis). Chains stored before the counts existed (migration 0005) count their stored
-sampling-phase leapfrog steps instead, a lower bound; such Metropolis chains are left out. Reused
-chains have no start or finish time: no worker ran them, so they are in neither figure.
+Counters and histograms follow the library's conventions (prometheus.io, "Metric and label
+naming"): base units (seconds), ``_total`` on counters, so that ``rate()`` and
+``histogram_quantile()`` work. The API counts requests and submissions; the workers count the
+chains and jobs they end and the model evaluations those chains made. Each process writes its own
+values; under gunicorn and Celery (several processes, and workers in other containers) they go to
+files in PROMETHEUS_MULTIPROC_DIR, a folder every process of the deployment shares, and the scrape
+sums them (the library's multiprocess mode). Without that variable (one process, as in unit tests)
+the values are this process's own.
+
+Gauges are what the store and the broker hold now: jobs and chains by state (one GROUP BY each)
+and the messages waiting in the queue (LLEN). Nothing at scrape time reads chain rows one by one.
 """
 
 from __future__ import annotations
 
-import math
-from collections.abc import Iterable
+import os
+import socket
+from collections.abc import Iterator
+from datetime import datetime
 
-import numpy as np
 import redis
-from sqlalchemy import Float, cast, func, select
+from prometheus_client import CollectorRegistry, Counter, Histogram, values
+from prometheus_client.core import GaugeMetricFamily, Metric
+from prometheus_client.exposition import choose_encoder
+from prometheus_client.multiprocess import MultiProcessCollector
+from sqlalchemy import func, select
 
-from service.evaluation_counts import COLUMNS as COUNT_COLUMNS
 from service.runtime import Runtime
-from service.store.arrays import decode_array
-from service.store.models import JOB_STATES, Chain, ChainArray, Job
+from service.store.models import JOB_STATES, Chain, Job
 
-MEDIA_TYPE = "text/plain; version=0.0.4; charset=utf-8"
-DURATION_BUCKETS = (1.0, 5.0, 15.0, 60.0, 300.0, 900.0, 3600.0, 14400.0)
+MULTIPROCESS_VARIABLE = "PROMETHEUS_MULTIPROC_DIR"
+# Our own choice: from a one-second toy chain to the four-hour longest a deployment might allow.
+CHAIN_DURATION_BUCKETS = (1.0, 5.0, 15.0, 60.0, 300.0, 900.0, 3600.0, 14400.0)
 # Celery's Redis transport keeps one list per priority step besides the plain one (steps 3, 6, 9
 # by default), named queue + "\x06\x16" + step.
 PRIORITY_SEPARATOR = "\x06\x16"
 PRIORITY_STEPS = (3, 6, 9)
-
-# Stored arrays never change once a chain succeeded, so each chain's step count is read once;
-# None for a chain without the statistic (random-walk Metropolis).
-_leapfrog_by_chain: dict[tuple[str, int], int | None] = {}
+CHAIN_STATES = ("queued", "running", "succeeded", "failed", "cancelled", "timed_out")
 
 
-def _escape(value: str) -> str:
-    return value.replace("\\", "\\\\").replace("\n", "\\n").replace('"', '\\"')
+def _multiprocess_folder() -> str | None:
+    folder = os.environ.get(MULTIPROCESS_VARIABLE)
+    if folder:
+        os.makedirs(folder, exist_ok=True)
+    return folder or None
 
 
-def _number(value: float) -> str:
-    if math.isnan(value):
-        return "NaN"
-    if math.isinf(value):
-        return "+Inf" if value > 0 else "-Inf"
-    return repr(float(value)) if not float(value).is_integer() else str(int(value))
+if _multiprocess_folder():
+    # Each process's values file is named by its id; containers sharing the folder reuse process
+    # ids, so the host name goes in too ("-": the library splits file names on "_").
+    values.ValueClass = values.MultiProcessValue(
+        process_identifier=lambda: f"{socket.gethostname()}-{os.getpid()}"
+    )
+
+# registry=None: the scrape builds its own registry (multiprocess files, or these objects).
+HTTP_REQUESTS = Counter(
+    "drawyard_http_requests", "HTTP requests answered, by route template, method and status.",
+    ("route", "method", "status"), registry=None,
+)
+HTTP_DURATION = Histogram(
+    "drawyard_http_request_duration_seconds",
+    "Time from a request's arrival in the app to its answer (the library's default buckets).",
+    ("route", "method"), registry=None,
+)
+JOBS_SUBMITTED = Counter(
+    "drawyard_jobs_submitted",
+    "Jobs stored by a submission (replays of an idempotency key are not).",
+    registry=None,
+)
+JOBS_REFUSED = Counter(
+    "drawyard_jobs_refused", "Submissions refused with a 4xx answer, by problem type.",
+    ("problem",), registry=None,
+)
+JOBS_FINISHED = Counter(
+    "drawyard_jobs_finished", "Jobs that reached a final state, by that state.", ("state",),
+    registry=None,
+)
+CHAINS_FINISHED = Counter(
+    "drawyard_chains_finished", "Chains a worker ended, by final state.", ("state",),
+    registry=None,
+)
+CHAIN_DURATION = Histogram(
+    "drawyard_chain_duration_seconds",
+    "Wall time of chains a worker ran to the end, from first start (warm-up included).",
+    buckets=CHAIN_DURATION_BUCKETS, registry=None,
+)
+MODEL_EVALUATIONS = Counter(
+    "drawyard_model_evaluations",
+    "Evaluations of the model in every phase by chains a worker ran to the end: 'gradient' "
+    "(log density with its gradient: NUTS, static HMC) or 'log_density' (alone: Metropolis).",
+    ("kind",), registry=None,
+)
+EVALUATING_SECONDS = Counter(
+    "drawyard_evaluating_chain_seconds",
+    "Wall seconds of the chains counted in drawyard_model_evaluations_total, by the kind of "
+    "evaluation they make; rate(evaluations) / rate(seconds) is evaluations per chain-second.",
+    ("kind",), registry=None,
+)
+OWN_METRICS = (
+    HTTP_REQUESTS, HTTP_DURATION, JOBS_SUBMITTED, JOBS_REFUSED, JOBS_FINISHED, CHAINS_FINISHED,
+    CHAIN_DURATION, MODEL_EVALUATIONS, EVALUATING_SECONDS,
+)
 
 
-def _family(name: str, kind: str, text: str, samples: Iterable[tuple[str, dict, float]]) -> str:
-    lines = [f"# HELP {name} {text}", f"# TYPE {name} {kind}"]
-    for sample, labels, value in samples:
-        label_text = ",".join(f'{k}="{_escape(str(v))}"' for k, v in labels.items())
-        lines.append(
-            f"{sample}{{{label_text}}} {_number(value)}" if labels else f"{sample} {_number(value)}"
+def chain_ran(state: str, started_at: datetime | None, finished_at: datetime,
+              evaluations: object | None) -> None:
+    """A worker ended a chain; for one run to the end, its time and its evaluations too."""
+    CHAINS_FINISHED.labels(state).inc()
+    if state != "succeeded" or started_at is None:
+        return
+    seconds = max(0.0, (finished_at - started_at).total_seconds())
+    CHAIN_DURATION.observe(seconds)
+    if evaluations is None:
+        return
+    gradient = sum(evaluations.gradient.values())  # type: ignore[attr-defined]
+    density = sum(evaluations.log_density.values())  # type: ignore[attr-defined]
+    kind = "gradient" if gradient > 0 else "log_density"
+    counted = gradient if gradient > 0 else density
+    MODEL_EVALUATIONS.labels(kind).inc(counted)
+    EVALUATING_SECONDS.labels(kind).inc(seconds)
+
+
+class StoreCollector:
+    """Gauges of what the store and the broker hold at scrape time."""
+
+    def __init__(self, runtime: Runtime):
+        self.runtime = runtime
+
+    def collect(self) -> Iterator[Metric]:
+        jobs = GaugeMetricFamily("drawyard_jobs", "Jobs in the store by state.", labels=["state"])
+        for state, count in _counts_by_state(self.runtime, Job.state, JOB_STATES).items():
+            jobs.add_metric([state], count)
+        yield jobs
+        chains = GaugeMetricFamily(
+            "drawyard_chains", "Chains in the store by state.", labels=["state"]
         )
-    return "\n".join(lines) + "\n"
+        for state, count in _counts_by_state(self.runtime, Chain.state, CHAIN_STATES).items():
+            chains.add_metric([state], count)
+        yield chains
+        depth = queue_depth(self.runtime)
+        if depth is not None:
+            queue = GaugeMetricFamily(
+                "drawyard_queue_messages", "Task messages waiting in the broker queue.",
+                labels=["queue"],
+            )
+            queue.add_metric([self.runtime.settings.queue], depth)
+            yield queue
 
 
-def _duration_seconds(runtime: Runtime):
-    """A SQL expression for a chain's wall time in seconds on this backend."""
-    if runtime.engine.dialect.name == "sqlite":
-        return (func.julianday(Chain.finished_at) - func.julianday(Chain.started_at)) * 86400.0
-    return cast(func.extract("epoch", Chain.finished_at - Chain.started_at), Float)
+class ProcessMetrics:
+    """This process's own counters and histograms, when there is no multiprocess folder."""
+
+    def collect(self) -> Iterator[Metric]:
+        for metric in OWN_METRICS:
+            yield from metric.collect()
 
 
-def job_counts(runtime: Runtime) -> dict[str, int]:
+def _counts_by_state(runtime: Runtime, column, states: tuple[str, ...]) -> dict[str, int]:
     with runtime.sessions() as session:
-        rows = session.execute(select(Job.state, func.count()).group_by(Job.state)).all()
-    counts = dict.fromkeys(JOB_STATES, 0)
+        rows = session.execute(select(column, func.count()).group_by(column)).all()
+    counts = dict.fromkeys(states, 0)
     counts.update({state: int(n) for state, n in rows})
     return counts
-
-
-def chain_durations(runtime: Runtime) -> np.ndarray:
-    """Wall times of succeeded chains (those a worker ran: reused chains have no times)."""
-    with runtime.sessions() as session:
-        seconds = session.scalars(
-            select(_duration_seconds(runtime)).where(
-                Chain.state == "succeeded",
-                Chain.started_at.is_not(None),
-                Chain.finished_at.is_not(None),
-            )
-        ).all()
-    return np.asarray(list(seconds), dtype=np.float64)
-
-
-def leapfrog_total(runtime: Runtime, keys: list[tuple[str, int]]) -> int:
-    missing = [key for key in keys if key not in _leapfrog_by_chain]
-    if missing:
-        jobs = sorted({job for job, _ in missing})
-        with runtime.sessions() as session:
-            rows = session.execute(
-                select(Chain.job_id, Chain.chain_index, ChainArray.data, ChainArray.sha256)
-                .join(ChainArray, ChainArray.chain_id == Chain.id)
-                .where(
-                    Chain.job_id.in_(jobs),
-                    ChainArray.kind == "stat",
-                    ChainArray.name == "gradient_calls",
-                )
-            ).all()
-        for key in missing:
-            _leapfrog_by_chain[key] = None
-        for job_id, index, data, sha in rows:
-            _leapfrog_by_chain[(job_id, index)] = int(np.sum(decode_array(data, sha)))
-    return sum(_leapfrog_by_chain.get(key) or 0 for key in keys)
-
-
-def evaluation_rates(runtime: Runtime) -> tuple[float, float]:
-    """Gradient evaluations per second over succeeded chains that evaluate gradients, and
-    log-density-only evaluations per second over those that do not (see the module docstring)."""
-    with runtime.sessions() as session:
-        rows = session.execute(
-            select(
-                Chain.job_id,
-                Chain.chain_index,
-                _duration_seconds(runtime),
-                *(getattr(Chain, name) for name in COUNT_COLUMNS),
-            ).where(
-                Chain.state == "succeeded",
-                Chain.started_at.is_not(None),
-                Chain.finished_at.is_not(None),
-            )
-        ).all()
-    gradients = gradient_seconds = densities = density_seconds = 0.0
-    uncounted: list[tuple[tuple[str, int], float]] = []
-    for job_id, index, seconds, *counts in rows:
-        if any(count is None for count in counts):
-            uncounted.append(((job_id, index), float(seconds)))
-            continue
-        by_name = dict(zip(COUNT_COLUMNS, counts, strict=True))
-        chain_gradients = by_name["warmup_gradient_evaluations"] + by_name[
-            "sampling_gradient_evaluations"
-        ]
-        if chain_gradients > 0:
-            gradients += chain_gradients
-            gradient_seconds += float(seconds)
-        else:
-            densities += by_name["warmup_log_density_evaluations"]
-            densities += by_name["sampling_log_density_evaluations"]
-            density_seconds += float(seconds)
-    if uncounted:
-        gradients += leapfrog_total(runtime, [key for key, _ in uncounted])
-        # Only chains with stored leapfrog steps made gradient evaluations.
-        gradient_seconds += sum(
-            s for key, s in uncounted if _leapfrog_by_chain.get(key) is not None
-        )
-    return (
-        gradients / gradient_seconds if gradient_seconds > 0 else 0.0,
-        densities / density_seconds if density_seconds > 0 else 0.0,
-    )
 
 
 def queue_depth(runtime: Runtime) -> int | None:
@@ -172,84 +185,15 @@ def queue_depth(runtime: Runtime) -> int | None:
         return None
 
 
-def live_workers(runtime: Runtime) -> int | None:
-    """Workers answering a broadcast ping within the configured short timeout."""
-    try:
-        replies = runtime.celery.control.ping(timeout=runtime.settings.metrics_ping_timeout)
-    except Exception:  # any broker failure means "unknown", reported by leaving the metric out
-        return None
-    return len(replies or [])
-
-
-def exposition(runtime: Runtime) -> str:
-    """The whole scrape body."""
-    parts = []
-    counts = job_counts(runtime)
-    parts.append(
-        _family(
-            "drawyard_jobs",
-            "gauge",
-            "Jobs in the store by state.",
-            [("drawyard_jobs", {"state": s}, n) for s, n in counts.items()],
-        )
-    )
-    depth = queue_depth(runtime)
-    if depth is not None:
-        parts.append(
-            _family(
-                "drawyard_queue_messages",
-                "gauge",
-                "Task messages waiting in the broker queue.",
-                [("drawyard_queue_messages", {"queue": runtime.settings.queue}, depth)],
-            )
-        )
-    durations = chain_durations(runtime)
-    cumulative = np.searchsorted(np.sort(durations), DURATION_BUCKETS, side="right")
-    buckets = [
-        ("drawyard_chain_duration_seconds_bucket", {"le": repr(b)}, int(c))
-        for b, c in zip(DURATION_BUCKETS, cumulative, strict=True)
-    ]
-    buckets.append(("drawyard_chain_duration_seconds_bucket", {"le": "+Inf"}, durations.size))
-    buckets.append(("drawyard_chain_duration_seconds_sum", {}, float(durations.sum())))
-    buckets.append(("drawyard_chain_duration_seconds_count", {}, durations.size))
-    parts.append(
-        _family(
-            "drawyard_chain_duration_seconds",
-            "histogram",
-            "Wall time of succeeded chains, warm-up included.",
-            buckets,
-        )
-    )
-    gradient_rate, density_rate = evaluation_rates(runtime)
-    parts.append(
-        _family(
-            "drawyard_gradient_evaluations_per_second",
-            "gauge",
-            "Evaluations of the log density with its gradient in all phases (initialisation, "
-            "step-size search, warm-up, sampling) per second of wall time, over succeeded chains "
-            "that evaluate gradients (NUTS, static HMC). Chains stored before the counts existed "
-            "contribute their sampling-phase leapfrog steps, a lower bound.",
-            [("drawyard_gradient_evaluations_per_second", {}, gradient_rate)],
-        )
-    )
-    parts.append(
-        _family(
-            "drawyard_log_density_evaluations_per_second",
-            "gauge",
-            "Evaluations of the log density alone (no gradient) in all phases per second of wall "
-            "time, over succeeded chains that evaluate no gradient (random-walk Metropolis). "
-            "Chains stored before the counts existed are left out.",
-            [("drawyard_log_density_evaluations_per_second", {}, density_rate)],
-        )
-    )
-    workers = live_workers(runtime)
-    if workers is not None:
-        parts.append(
-            _family(
-                "drawyard_workers_live",
-                "gauge",
-                "Workers that answered a ping within the timeout.",
-                [("drawyard_workers_live", {}, workers)],
-            )
-        )
-    return "".join(parts)
+def exposition(runtime: Runtime, accept: str = "") -> tuple[bytes, str]:
+    """The whole scrape body and its media type, in the format the scraper's Accept header asks
+    for (the library's negotiation: the text format 0.0.4 unless OpenMetrics is asked for)."""
+    encoder, media_type = choose_encoder(accept)
+    registry = CollectorRegistry()
+    folder = _multiprocess_folder()
+    if folder:
+        MultiProcessCollector(registry, path=folder)
+    else:
+        registry.register(ProcessMetrics())
+    registry.register(StoreCollector(runtime))
+    return encoder(registry), media_type

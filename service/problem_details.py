@@ -5,12 +5,19 @@ from __future__ import annotations
 from collections.abc import Iterable
 from typing import Any
 
-from flask import Response, json
+from flask import Response, g, has_request_context, json
 
 from worker.problems import Problem
 
 MEDIA_TYPE = "application/problem+json"
 TYPE_PREFIX = "urn:drawyard:problem:"
+# flask.g: the problem type of this request's answer, for its metrics and log lines.
+PROBLEM_TYPE = "drawyard_problem"
+
+
+def note_problem(slug: str) -> None:
+    if has_request_context():
+        setattr(g, PROBLEM_TYPE, slug)
 
 
 class ApiProblem(Exception):
@@ -48,6 +55,7 @@ class ApiProblem(Exception):
 
 
 def problem_response(problem: ApiProblem, instance: str | None = None) -> Response:
+    note_problem(problem.slug)
     response = Response(json.dumps(problem.document(instance)), status=problem.status)
     response.mimetype = MEDIA_TYPE
     for name, value in problem.headers.items():

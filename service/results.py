@@ -67,7 +67,7 @@ def request_document(runtime: Runtime, job_id: str) -> tuple[dict[str, Any], dic
 
     ``spec`` and ``data`` are what ran (a registered model's spec filled in); ``submission`` is
     the stored body (with the seed the service drew); ``request`` is the body as sent, kept from
-    migration 0007 on (null before); ``settings`` are the sampler settings after defaults.
+    migration 0008 on (null before); ``settings`` are the sampler settings after defaults.
     """
     with runtime.sessions() as session:
         job, _ = load_job(session, job_id)

@@ -11,6 +11,7 @@ from jsonschema import Draft202012Validator
 from referencing import Registry, Resource
 from referencing.jsonschema import DRAFT202012
 
+from schemas.validation import SchemaValidator
 from worker.problems import Problem, pointer
 
 SCHEMA_FOLDER = Path(__file__).resolve().parent.parent / "schemas"
@@ -46,7 +47,7 @@ def registry() -> Registry:
 def validator(stem: str) -> Draft202012Validator:
     schema = dict(load_schemas()[stem])
     schema.setdefault("$id", BASE_URI + stem + ".json")
-    return Draft202012Validator(
+    return SchemaValidator(
         schema, registry=registry(), format_checker=Draft202012Validator.FORMAT_CHECKER
     )
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import re
 import uuid
 from collections.abc import Sequence
@@ -9,7 +10,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from sqlalchemy import select
+from sqlalchemy import select, update
 from sqlalchemy.exc import IntegrityError
 
 from service import events
@@ -24,6 +25,7 @@ from service.canonical import (
 )
 from service.config import Settings
 from service.dispatch import send_chain_tasks
+from service.metrics import JOBS_SUBMITTED
 from service.problem_details import ApiProblem
 from service.registry import ModelReference, reference_problems, resolve_reference
 from service.reuse import copy_result, find_source, fingerprints_by_scheme, wants_reuse
@@ -35,6 +37,7 @@ from service.versions import software_versions
 from service.warm_start import DEFAULT_WARM_WARMUP, WarmStart, resolve_warm_start
 from worker.problems import Problem, escape_token
 
+log = logging.getLogger(__name__)
 JOB_ID = re.compile(r"[0-9a-f]{32}")
 
 
@@ -404,22 +407,45 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
     if source is not None:
         # Final from the start: a completion callback, if asked for, goes out now.
         queue_callback_safely(runtime, job.id)
+        JOBS_SUBMITTED.inc()
         return Accepted(job, created=True)
     try:
         send_chain_tasks(runtime.celery, runtime.settings.queue, job.id, chains)
     except Exception as error:
-        with transaction(runtime.sessions) as session:
-            session.execute(
-                Job.__table__.update()
-                .where(Job.id == job.id)
-                .values(state="failed", finished_at=utc_now(), error=f"broker unreachable: {error}")
-            )
-            events.record(session, job.id, "job_state", "failed", detail={"error": str(error)})
+        _not_queued(runtime, job.id, error)
         raise ApiProblem(
             503,
             "broker-unavailable",
             "The queue is unreachable",
-            "The job could not be queued and was marked failed; try again shortly.",
+            "The job could not be queued and was marked failed; send it again shortly (with the "
+            "same Idempotency-Key, if any: it was not kept).",
             headers={"Retry-After": "5"},
         ) from error
+    JOBS_SUBMITTED.inc()
     return Accepted(job, created=True)
+
+
+NOT_QUEUED = "The queue was unreachable when the job was submitted; it never ran."
+
+
+def _not_queued(runtime: Runtime, job_id: str, error: Exception) -> None:
+    """Mark a job the broker refused as failed, and free its idempotency key.
+
+    The key is freed so that a retry after the 503 makes a job that runs, instead of being
+    answered with this failed one. The broker's own message (which names its host and port) goes
+    to the service log only; the job's error and event say what happened in words of our own.
+    """
+    log.error("job %s could not be queued: %s: %s", job_id, type(error).__name__, error)
+    with transaction(runtime.sessions) as session:
+        session.execute(
+            update(Job)
+            .where(Job.id == job_id)
+            .values(state="failed", finished_at=utc_now(), error=NOT_QUEUED, idempotency_key=None)
+        )
+        # Its chains were never sent: ended here, so the sweeper does not send them later.
+        session.execute(
+            update(Chain)
+            .where(Chain.job_id == job_id, Chain.state == "queued")
+            .values(state="failed", error=NOT_QUEUED, updated_at=utc_now())
+        )
+        events.record(session, job_id, "job_state", "failed", detail={"error": "queue unreachable"})

@@ -13,7 +13,10 @@ of sweepers may run side by side without flooding the queue; a task sent twice i
 chain's lease drops the extra delivery. Attempts are bounded where the lease is taken
 (``give_up_if_exhausted``), so a chain that keeps killing its worker ends as failed.
 
-Run it as its own process: ``drawyard sweeper`` (or ``python -m service.sweeper``).
+Run it as its own process: ``drawyard sweeper`` (or ``python -m service.sweeper``). After each
+sweep that reached the store it touches DRAWYARD_SWEEPER_HEARTBEAT (when set), and
+``drawyard sweeper --check`` says whether that happened recently: a container health check that
+fails while the sweeper is stuck or cannot reach the store, not merely while its process is gone.
 """
 
 from __future__ import annotations
@@ -21,15 +24,19 @@ from __future__ import annotations
 import argparse
 import logging
 import signal
+import sys
 import threading
+import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
+from pathlib import Path
 from typing import Any
 
 from sqlalchemy import and_, func, or_, select, update
 
 from service import events
+from service.config import Settings
 from service.dispatch import RUN_CHAIN, send_finish_task
 from service.runtime import Runtime
 from service.store.engine import transaction
@@ -190,7 +197,7 @@ def _resend_finishes(runtime: Runtime, report: SweepReport) -> None:
                 .execution_options(synchronize_session=False)
             ).rowcount
         if claimed:
-            send_finish_task(runtime.celery, settings.queue, job_id)
+            send_finish_task(runtime.celery, settings.closing_queue, job_id)
             report.finishes_sent.append(job_id)
 
 
@@ -215,10 +222,30 @@ def run_sweeper(runtime: Runtime, stop: threading.Event) -> None:
             report = sweep(runtime)
             if report.anything:
                 log.warning("sweep: %s", report)
+            beat(runtime.settings)
         except Exception:  # the store or the broker is away for a moment; look again later
             log.exception("sweep failed")
         stop.wait(interval)
     log.info("sweeper stopped")
+
+
+def beat(settings: Settings) -> None:
+    if settings.sweeper_heartbeat:
+        path = Path(settings.sweeper_heartbeat)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.touch()
+
+
+def healthy(settings: Settings, now: float | None = None) -> bool:
+    """Whether the last good sweep was within three intervals (a missed sweep is not yet ill)."""
+    if not settings.sweeper_heartbeat:
+        return False
+    try:
+        last = Path(settings.sweeper_heartbeat).stat().st_mtime
+    except OSError:
+        return False
+    age = (time.time() if now is None else now) - last
+    return age <= 3 * settings.sweep_interval + 5.0
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -227,12 +254,21 @@ def main(argv: Sequence[str] | None = None) -> int:
         description="Requeue chains whose worker died or whose task the broker lost.",
     )
     parser.add_argument("--once", action="store_true", help="sweep once and exit")
+    parser.add_argument("--check", action="store_true",
+                        help="exit 0 if a sweep reached the store recently (DRAWYARD_SWEEPER_"
+                             "HEARTBEAT), else 1; for health checks")
     args = parser.parse_args(argv)
     from service.config import load_settings
     from service.runtime import build_runtime
+    from service.structured_logs import configure_logging
 
-    logging.basicConfig(level=logging.INFO, format="%(asctime)s %(levelname)s %(name)s %(message)s")
-    runtime = build_runtime(load_settings())
+    settings = load_settings()
+    if args.check:
+        ok = healthy(settings)
+        print("sweeper healthy" if ok else "no recent sweep", file=sys.stdout if ok else sys.stderr)
+        return 0 if ok else 1
+    configure_logging(settings)
+    runtime = build_runtime(settings)
     try:
         if args.once:
             print(sweep(runtime))

@@ -164,6 +164,7 @@ def test_resolve_sampler_fills_every_default() -> None:
     assert resolved["chains"] == runner.DEFAULT_CHAINS
     assert resolved["draws"] == 1000 and resolved["warmup_iterations"] == 1000
     assert set(runner.CHAIN_SETTINGS) <= set(resolved)
+    assert resolved["reparametrise"] is True
     drawn = {runner.resolve_sampler({})["seed"] for _ in range(5)}
     assert len(drawn) == 5  # drawn from OS entropy, not a fixed default
 
@@ -185,6 +186,7 @@ def test_resolve_sampler_fills_every_default() -> None:
         ({"divergence_threshold": float("inf")}, ["/sampler/divergence_threshold"]),
         ({"initialisation": "given"}, ["/sampler/initial_values"]),
         ({"start_spread": 0}, ["/sampler/start_spread"]),
+        ({"reparametrise": "no"}, ["/sampler/reparametrise"]),
         ({"step_size": 0.1}, ["/sampler/step_size"]),
         ({"initial_values": [{"mu": 1.0}]}, ["/sampler/initial_values"]),
         ({"initial_values": {"mu": [1.0, 2.0]}}, ["/sampler/initial_values/mu"]),
@@ -239,3 +241,21 @@ def test_given_initial_values_start_every_chain_there() -> None:
     first = runner.start_chain(body, 0).chain.state.position
     second = runner.start_chain(body, 1).chain.state.position
     assert first.tolist() == [40.0] and second.tolist() == [-40.0]
+
+
+def test_finishing_pools_chains_held_in_one_array_without_a_copy():
+    """The service's finishing step decodes chains into one (chains, draws, quantities) array;
+    finish_job then summarises that array itself, with the same records as from separate arrays."""
+    body = normal_mean_body(chains=2, warmup_iterations=50, draws=30, seed=5)
+    resolved = runner.resolve_sampler(body["sampler"])
+    job = {**body, "sampler": {k: v for k, v in resolved.items() if v is not None}}
+    results = [runner.start_chain(job, i).run() for i in range(2)]
+    separate = runner.finish_job(job, results)
+    pooled = np.stack([r.values for r in results])
+    for i, r in enumerate(results):
+        r.values = pooled[i]
+    assert runner.pooled_draws(results) is pooled
+    assert json.dumps(runner.finish_job(job, results), sort_keys=True) == json.dumps(
+        separate, sort_keys=True)
+    results[1].values = pooled[1].copy()
+    assert runner.pooled_draws(results) is not pooled

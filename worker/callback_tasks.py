@@ -16,5 +16,7 @@ def deliver_callback(self: Task, job_id: str) -> str:
     # so the event log and the retries agree on the count.
     outcome = deliver(_runtime(self), job_id, attempt=self.request.retries + 1)
     if outcome.retry_in is not None:
-        raise self.retry(countdown=outcome.retry_in)
+        # The retry goes back to the closing queue, never behind chains.
+        raise self.retry(countdown=outcome.retry_in,
+                         queue=self.app.conf.drawyard_settings.closing_queue)
     return "delivered" if outcome.delivered else "not delivered"

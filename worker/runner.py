@@ -17,6 +17,12 @@ from typing import Any
 
 import numpy as np
 
+from worker.approximation.runs import (
+    APPROXIMATION_METHODS,
+    ApproximationRun,
+    approximation_verdict,
+    grid_dimension_problem,
+)
 from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
 from worker.diagnostics.summary import DEFAULT_INTERVAL, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
@@ -47,7 +53,7 @@ TOP_LEVEL_MEMBERS = (
     "warm_start",
 )
 # settings of the runner itself, beside those of one chain (SamplerSettings)
-JOB_SETTINGS = ("chains", "seed", "initial_values")
+JOB_SETTINGS = ("chains", "seed", "initial_values", "reparametrise")
 CHAIN_SETTINGS = tuple(f.name for f in dataclasses.fields(SamplerSettings))
 GENERATED_CHILD = 1  # DEVELOPERS.md: child 1 of a chain's sequence drives the per-draw outputs
 
@@ -91,8 +97,8 @@ def _acceptance_problem(value: Any) -> str | None:
     return f"The target acceptance must be strictly between 0 and 1 (or null), got {value!r}."
 
 
-def _flag_problem(value: Any) -> str | None:
-    return None if isinstance(value, bool) else f"The jitter must be true or false, got {value!r}."
+def _flag_problem(value: Any, what: str = "jitter") -> str | None:
+    return None if isinstance(value, bool) else f"The {what} must be true or false, got {value!r}."
 
 
 def sampler_problems(
@@ -104,7 +110,7 @@ def sampler_problems(
     if not isinstance(sampler, dict):
         return [Problem("/sampler", "The sampler settings must be an object.")]
     checks: dict[str, Callable[[Any], str | None]] = {
-        "method": lambda v: _choice_problem(v, METHODS, "method"),
+        "method": lambda v: _choice_problem(v, METHODS + APPROXIMATION_METHODS, "method"),
         "warmup_iterations": lambda v: _integer_problem(v, 0, max_draws, "warm-up length"),
         "draws": lambda v: _integer_problem(v, 1, max_draws, "number of draws per chain"),
         "chains": lambda v: _integer_problem(v, 1, max_chains, "number of chains"),
@@ -118,6 +124,7 @@ def sampler_problems(
         "initialisation": lambda v: _choice_problem(v, INITIALISATIONS, "initialisation"),
         "start_spread": lambda v: _positive_problem(v, "start spread"),
         "initial_values": lambda v: None,  # checked against the model below
+        "reparametrise": lambda v: _flag_problem(v, "setting reparametrise"),
     }  # fmt: skip
     problems = []
     for name, value in sampler.items():
@@ -187,13 +194,11 @@ def _initial_values_for(sampler: dict, chain_index: int) -> dict | None:
 
 def _initial_value_problems(body: dict) -> list[Problem]:
     """Initial values the compiled model cannot take (unknown names, wrong shapes, bounds)."""
-    from worker.modeling import compile_model
-
     sampler = body.get("sampler") or {}
     values = sampler.get("initial_values")
     if values is None:
         return []
-    model = compile_model(body["model"], body.get("data") or {})
+    model = compile_body(body)
     sets = values if isinstance(values, list) else [values]
     known = set(body["model"].get("unknowns") or {})
     problems = []
@@ -253,9 +258,35 @@ def check_submission(
     problems.extend(check_thresholds(body.get("checks")))
     problems.extend(member_problems(body.get("warm_start"), max_chains))
     if not problems:
+        problems.extend(_approximation_problems(body))
+    if not problems:
         problems.extend(_initial_value_problems(body))
     if not problems:
         problems.extend(warm_start_problems(body))
+    return problems
+
+
+def _approximation_problems(body: dict) -> list[Problem]:
+    """A Laplace or grid job runs as one task, starts from no earlier chain, and a grid covers
+    at most two unconstrained coordinates."""
+    sampler = body.get("sampler") or {}
+    method = sampler.get("method")
+    if method not in APPROXIMATION_METHODS:
+        return []
+    problems = []
+    if sampler.get("chains", 1) != 1:
+        problems.append(Problem("/sampler/chains", f"a {method} job runs once: leave chains "
+                                                    "out or set it to 1"))
+    if sampler.get("warmup_iterations", 0) != 0:
+        problems.append(Problem("/sampler/warmup_iterations", f"a {method} job has no warm-up: "
+                                                               "leave it out or set it to 0"))
+    if body.get("warm_start") is not None:
+        problems.append(Problem("/warm_start", f"a {method} job does not start from an earlier "
+                                               "job's chains"))
+    if method == "grid":
+        reason = grid_dimension_problem(compile_body(body))
+        if reason is not None:
+            problems.append(Problem("/sampler/method", reason))
     return problems
 
 
@@ -302,7 +333,7 @@ def warm_start_problems(body: dict, model: Any = None) -> list[Problem]:
     if structural:
         return structural
     method = (body.get("sampler") or {}).get("method", SamplerSettings().method)
-    return record_problems(member, method, model if model is not None else _compile(body))
+    return record_problems(member, method, model if model is not None else compile_body(body))
 
 
 # ---- settings and seeds ----------------------------------------------------------------------
@@ -318,7 +349,12 @@ def resolve_sampler(body_sampler: dict | None) -> dict:
     """
     given = dict(body_sampler or {})
     resolved: dict[str, Any] = SamplerSettings().as_dict()
-    resolved.update({"chains": DEFAULT_CHAINS, "seed": None, "initial_values": None})
+    if given.get("method") in APPROXIMATION_METHODS:
+        # One task, no warm-up: the deployment's iteration limit then bounds the draws alone.
+        resolved.update({"chains": 1, "warmup_iterations": 0})
+    else:
+        resolved["chains"] = DEFAULT_CHAINS
+    resolved.update({"seed": None, "initial_values": None, "reparametrise": True})
     resolved.update(given)
     if resolved["seed"] is None:
         resolved["seed"] = secrets.randbits(63)
@@ -421,19 +457,28 @@ class ChainRun:
         return self.chain.snapshot()
 
 
-def _compile(body: dict) -> Any:
+def compile_body(body: dict) -> Any:
+    """The body's compiled model, with the QR reparametrisation unless the sampler turns it off
+    (the sampled coordinates depend on it, so every chain, resume and check compiles alike)."""
     from worker.modeling import compile_model
 
-    return compile_model(body["model"], body.get("data") or {})
+    reparametrise = (body.get("sampler") or {}).get("reparametrise", True)
+    return compile_model(body["model"], body.get("data") or {}, reparametrise=reparametrise)
 
 
-def start_chain(body: dict, chain_index: int) -> ChainRun:
-    """Compile the model and initialise chain ``chain_index`` (0-based) of a checked submission."""
+def start_chain(body: dict, chain_index: int, model: Any = None) -> ChainRun | ApproximationRun:
+    """Initialise chain ``chain_index`` (0-based) of a checked submission.
+
+    ``model`` is the body's compiled model when the caller has it already (a worker keeps them
+    between chains: worker/model_cache.py); it is compiled here otherwise.
+    """
     resolved = _resolved_with_seed(body)
     if not 0 <= chain_index < resolved["chains"]:
         raise ValueError(f"chain index {chain_index} outside 0..{resolved['chains'] - 1}")
-    model = _compile(body)
+    model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
+    if resolved["method"] in APPROXIMATION_METHODS:
+        return ApproximationRun(model, resolved["method"], seed, resolved["draws"], ChainResult)
     values = _initial_values_for(resolved, chain_index)
     point = None if values is None else np.asarray(model.unconstrain(values), dtype=np.float64)
     warm = None
@@ -458,11 +503,12 @@ def _require_warm_records(body: dict, model: Any = None) -> None:
         raise InvalidSubmission(problems)
 
 
-def resume_chain(body: dict, chain_index: int, blob: bytes) -> ChainRun:
+def resume_chain(body: dict, chain_index: int, blob: bytes, model: Any = None) -> ChainRun:
     """Continue chain ``chain_index`` from a snapshot taken by ``ChainRun.snapshot`` or a
-    checkpoint; refuses a snapshot made with other settings than the body's."""
+    checkpoint; refuses a snapshot made with other settings than the body's. ``model`` as for
+    ``start_chain``."""
     resolved = _resolved_with_seed(body)
-    model = _compile(body)
+    model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
     chain = Chain.restore(model, blob)
     if chain.settings != _chain_settings(resolved):
@@ -471,6 +517,22 @@ def resume_chain(body: dict, chain_index: int, blob: bytes) -> ChainRun:
 
 
 # ---- the whole job ---------------------------------------------------------------------------
+
+
+def pooled_draws(results: list[ChainResult]) -> np.ndarray:
+    """(chains, draws, quantities) of the results' values, without a copy when they are already
+    the consecutive rows of one such array (as the service's finishing step loads them)."""
+    first = results[0].values
+    base = first.base if isinstance(first, np.ndarray) else None
+    if (isinstance(base, np.ndarray) and base.dtype == np.float64
+            and base.shape == (len(results), *first.shape) and base.flags.c_contiguous):
+        start, row = base.__array_interface__["data"][0], base.strides[0]
+        if all(isinstance(r.values, np.ndarray) and r.values.base is base
+               and r.values.shape == first.shape
+               and r.values.__array_interface__["data"][0] == start + i * row
+               for i, r in enumerate(results)):
+            return base
+    return np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
 
 
 def finish_job(body: dict, results: list[ChainResult]) -> dict:
@@ -488,8 +550,11 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     if len(lengths) != 1:
         raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
-    draws = np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
+    draws = pooled_draws(results)
     summary = summarize(draws, list(results[0].names), summary_interval(body))
+    if resolved["method"] in APPROXIMATION_METHODS:
+        report, checked = approximation_verdict(results)
+        return {"summary": summary, "sampler": report, "verdict": checked}
     depth = resolved["maximum_tree_depth"] if resolved["method"] == "nuts" else None
     report = sampler_checks([dict(r.stats) for r in results], depth)
     report["step_size_per_chain"] = [
@@ -502,6 +567,7 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     report["log_density_evaluations_per_chain"] = [
         None if r.evaluations is None else dict(r.evaluations.log_density) for r in results
     ]
+    report["reparametrisation"] = compile_body(body).reparametrisation
     return {
         "summary": summary,
         "sampler": report,
@@ -523,7 +589,8 @@ def run_in_process(body: dict) -> dict:
         _require_warm_records(body)
     resolved = resolve_sampler(body.get("sampler"))
     job = {**body, "sampler": {k: v for k, v in resolved.items() if v is not None}}
-    results = [start_chain(job, i).run() for i in range(resolved["chains"])]
+    model = compile_body(job)  # once for every chain: the chains run one after another
+    results = [start_chain(job, i, model).run() for i in range(resolved["chains"])]
     outcome = finish_job(job, results)
     return {
         **outcome,

@@ -25,7 +25,8 @@ def add_keys_command(commands: argparse._SubParsersAction) -> None:
     create = actions.add_parser("create", help="make a key; its secret is printed once")
     create.add_argument("--tenant", required=True, help="the tenant the key belongs to")
     create.add_argument("--scopes", default="submit,read",
-                        help="comma-separated scopes: submit, read (default: submit,read)")
+                        help="comma-separated scopes: submit, read, metrics "
+                        "(default: submit,read)")
     create.add_argument("--label", default=None, help="a note on what the key is for")
     create.set_defaults(run=run_create)
     revoke = actions.add_parser("revoke", help="revoke a key by its id")

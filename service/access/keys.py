@@ -22,7 +22,8 @@ from service.store.access_models import ApiKey
 from service.store.engine import transaction
 from service.store.models import utc_now
 
-SCOPES = ("submit", "read")
+# "metrics" lets a scraper read /metrics and nothing else (a key for the monitoring system).
+SCOPES = ("submit", "read", "metrics")
 KEY_PREFIX = "dyk_"
 KEY_PATTERN = re.compile(r"^dyk_([0-9a-f]{16})\.([A-Za-z0-9_-]{43})$")
 TENANT_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
@@ -65,7 +66,7 @@ def parse_scopes(raw: str | Iterable[str]) -> tuple[str, ...]:
 def create_key(
     sessions: sessionmaker[Session], tenant: str, scopes: Iterable[str], label: str | None = None
 ) -> NewKey:
-    if not TENANT_PATTERN.match(tenant):
+    if not TENANT_PATTERN.fullmatch(tenant):
         raise ValueError(
             "a tenant name is 1 to 64 letters, digits, '.', '_' or '-', starting with a letter "
             "or digit"

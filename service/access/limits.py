@@ -1,7 +1,10 @@
-"""Per-key request rate (a fixed-window counter in Redis) and per-tenant concurrent-job cap.
+"""Per-key request rate, failed authentications per client address, and the per-tenant job cap.
 
-Both refusals are 429 problem documents with Retry-After (RFC 6585 section 4; RFC 9110 section
-10.2.3). The rate counter lives in Redis so every API process of a deployment shares it.
+The rates are sliding windows: every request of the last `window` seconds counts, whenever it came
+(the moving-window strategy of the `limits` library, one sorted entry per request in Redis), so a
+burst across a clock boundary cannot reach twice the limit as it could with fixed windows. They
+live in Redis so every API process of a deployment shares them. Refusals are 429 problem
+documents with Retry-After (RFC 6585 section 4; RFC 9110 section 10.2.3).
 """
 
 from __future__ import annotations
@@ -11,6 +14,9 @@ import math
 import time
 
 import redis
+from limits import RateLimitItem, RateLimitItemPerSecond
+from limits.storage import RedisStorage
+from limits.strategies import MovingWindowRateLimiter
 from sqlalchemy import func, select
 
 from service.access.keys import KeyIdentity
@@ -22,46 +28,94 @@ from worker.problems import Problem
 
 log = logging.getLogger(__name__)
 ACTIVE_STATES = ("queued", "running")
-_clients: dict[str, redis.Redis] = {}
+_limiters: dict[str, MovingWindowRateLimiter] = {}
 
 
-def _client(url: str) -> redis.Redis:
-    client = _clients.get(url)
-    if client is None:
+def _limiter(url: str) -> MovingWindowRateLimiter:
+    limiter = _limiters.get(url)
+    if limiter is None:
         # Short timeouts: a slow broker must not stall every request behind the rate check.
-        client = redis.Redis.from_url(url, socket_timeout=1.0, socket_connect_timeout=1.0)
-        _clients[url] = client
-    return client
+        storage = RedisStorage(url, key_prefix="drawyard:rate", socket_timeout=1.0,
+                               socket_connect_timeout=1.0)
+        limiter = MovingWindowRateLimiter(storage)
+        _limiters[url] = limiter
+    return limiter
 
 
-def check_rate(runtime: Runtime, identity: KeyIdentity, now: float | None = None) -> None:
-    """Count this request against its key's window; 429 once the window's allowance is spent."""
+def _counted(settings: Settings) -> bool:
+    return settings.broker_url.startswith(("redis://", "rediss://"))
+
+
+def _retry_after(limiter: MovingWindowRateLimiter, item: RateLimitItem, *names: str) -> int:
+    """Seconds until the oldest request in the window leaves it (at least one)."""
+    reset = limiter.get_window_stats(item, *names).reset_time
+    return max(1, math.ceil(reset - time.time()))
+
+
+def check_rate(runtime: Runtime, identity: KeyIdentity) -> None:
+    """Count this request against its key's sliding window; 429 once the window is full."""
     settings = runtime.settings
-    if settings.rate_limit <= 0 or not settings.broker_url.startswith(("redis://", "rediss://")):
+    if settings.rate_limit <= 0 or not _counted(settings):
         return
-    now = time.time() if now is None else now
     window = max(1, settings.rate_window)
-    index = int(now // window)
-    counter = f"drawyard:rate:{identity.key_id}:{index}"
+    item = RateLimitItemPerSecond(settings.rate_limit, window)
+    limiter = _limiter(settings.broker_url)
     try:
-        pipeline = _client(settings.broker_url).pipeline()
-        pipeline.incr(counter)
-        pipeline.expire(counter, window * 2)
-        count = int(pipeline.execute()[0])
+        if limiter.hit(item, "key", identity.key_id):
+            return
+        retry_after = _retry_after(limiter, item, "key", identity.key_id)
     except redis.RedisError as error:
         # Without the broker no job can be queued anyway; reads stay available rather than 5xx.
         log.warning("rate limit not applied: Redis unreachable (%s)", type(error).__name__)
         return
-    if count > settings.rate_limit:
-        retry_after = max(1, math.ceil((index + 1) * window - now))
-        raise ApiProblem(
-            429,
-            "rate-limited",
-            "Too many requests",
-            f"This key may make {settings.rate_limit} requests per {window} s; "
-            f"try again in {retry_after} s.",
-            headers={"Retry-After": str(retry_after)},
-        )
+    raise ApiProblem(
+        429,
+        "rate-limited",
+        "Too many requests",
+        f"This key may make {settings.rate_limit} requests in any {window} s; "
+        f"try again in {retry_after} s.",
+        headers={"Retry-After": str(retry_after)},
+    )
+
+
+def _failure_item(settings: Settings) -> RateLimitItem:
+    return RateLimitItemPerSecond(settings.auth_failure_limit, max(1, settings.auth_failure_window))
+
+
+def check_failed_authentications(runtime: Runtime, address: str | None) -> None:
+    """429 while ``address`` has used up its allowance of failed authentications."""
+    settings = runtime.settings
+    if settings.auth_failure_limit <= 0 or not _counted(settings):
+        return
+    item, limiter, where = _failure_item(settings), _limiter(settings.broker_url), address or "-"
+    try:
+        if limiter.test(item, "auth-failures", where):
+            return
+        retry_after = _retry_after(limiter, item, "auth-failures", where)
+    except redis.RedisError as error:
+        log.warning("failed-authentication limit not applied: Redis unreachable (%s)",
+                    type(error).__name__)
+        return
+    raise ApiProblem(
+        429,
+        "too-many-failed-authentications",
+        "Too many failed authentications",
+        f"This address sent {settings.auth_failure_limit} invalid keys in the last "
+        f"{item.get_expiry()} s; try again in {retry_after} s.",
+        headers={"Retry-After": str(retry_after)},
+    )
+
+
+def count_failed_authentication(runtime: Runtime, address: str | None) -> None:
+    """Record one failed authentication from ``address``."""
+    settings = runtime.settings
+    if settings.auth_failure_limit <= 0 or not _counted(settings):
+        return
+    try:
+        _limiter(settings.broker_url).hit(_failure_item(settings), "auth-failures", address or "-")
+    except redis.RedisError as error:
+        log.warning("failed authentication not counted: Redis unreachable (%s)",
+                    type(error).__name__)
 
 
 def check_active_jobs(runtime: Runtime, tenant: str | None) -> None:

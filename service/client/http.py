@@ -213,6 +213,26 @@ class DrawyardClient:
     def audit(self, job_id: str) -> dict[str, Any]:
         return self._request("GET", f"/v1/jobs/{job_id}/audit").json()
 
+    def predictive_accuracy(self, job_id: str) -> dict[str, Any]:
+        """PSIS-LOO of a succeeded job that stores its pointwise log likelihood."""
+        return self._request("GET", f"/v1/jobs/{job_id}/predictive-accuracy").json()
+
+    def evidence(self, job_id: str) -> dict[str, Any]:
+        """The log marginal likelihood of a succeeded job, by bridge sampling."""
+        return self._request("GET", f"/v1/jobs/{job_id}/evidence").json()
+
+    def compare(self, job_ids: Sequence[str]) -> dict[str, Any]:
+        """Succeeded jobs on the same data, ordered by elpd_loo (read-only, so repeatable)."""
+        return self._request(
+            "POST", "/v1/comparisons", json={"jobs": list(job_ids)}, repeatable=True
+        ).json()
+
+    def bayes_factor(self, first: str, second: str) -> dict[str, Any]:
+        """log p(y | first) - log p(y | second) for two succeeded jobs on the same data."""
+        return self._request(
+            "POST", "/v1/bayes-factors", json={"jobs": [first, second]}, repeatable=True
+        ).json()
+
     def draws(
         self,
         job_id: str,

@@ -33,7 +33,7 @@ def draw_types(runtime: Runtime, chains: list[Chain]) -> list[str]:
                 ChainArray.chain_id == chains[0].id, ChainArray.kind == "draws"
             )
         ).one()
-    # Stored before migration 0007: no types recorded, and they were downloaded as float64.
+    # Stored before migration 0008: no types recorded, and they were downloaded as float64.
     return list(types) if types else [FLOAT] * len(columns or [])
 
 

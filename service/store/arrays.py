@@ -25,16 +25,27 @@ def canonical_bytes(values: np.ndarray) -> bytes:
     return np.ascontiguousarray(values, dtype=values.dtype.newbyteorder("<")).tobytes()
 
 
+def _sha256(little: np.ndarray) -> str:
+    """SHA-256 of a C-contiguous array's bytes, read through a view of its memory: a long chain
+    is not copied to be hashed."""
+    if little.size == 0:
+        return hashlib.sha256(b"").hexdigest()
+    return hashlib.sha256(memoryview(little).cast("B")).hexdigest()
+
+
 def encode_array(values: np.ndarray) -> EncodedArray:
     values = np.asarray(values)
     little = np.ascontiguousarray(values, dtype=values.dtype.newbyteorder("<"))
     buffer = io.BytesIO()
     np.save(buffer, little, allow_pickle=False)
+    # compressed straight from the buffer's memory (getvalue() would copy a long chain once more)
+    with buffer.getbuffer() as view:
+        data = zlib.compress(view, level=6)
     return EncodedArray(
-        data=zlib.compress(buffer.getvalue(), level=6),
+        data=data,
         dtype=little.dtype.str,
         shape=list(little.shape),
-        sha256=hashlib.sha256(little.tobytes()).hexdigest(),
+        sha256=_sha256(little),
     )
 
 
@@ -42,7 +53,7 @@ def decode_array(data: bytes, expected_sha256: str | None = None) -> np.ndarray:
     """The stored array; checks its SHA-256 when one is given."""
     values = np.load(io.BytesIO(zlib.decompress(data)), allow_pickle=False)
     if expected_sha256 is not None:
-        found = hashlib.sha256(canonical_bytes(values)).hexdigest()
+        found = _sha256(np.ascontiguousarray(values, dtype=values.dtype.newbyteorder("<")))
         if found != expected_sha256:
             raise ValueError(f"stored array is corrupt: SHA-256 {found}, not {expected_sha256}")
     return values

@@ -2,14 +2,15 @@
 
 from __future__ import annotations
 
-import json
 from typing import Any
 
 from flask import Blueprint, Response, jsonify, request
+from werkzeug.exceptions import RequestEntityTooLarge
 
 from service.http_caching import cached_json, next_link
 from service.job_queries import JobFilter, bad_parameter, cancel_job, get_job, list_jobs
 from service.job_resources import job_resource
+from service.json_body import parse_json_body
 from service.problem_details import ApiProblem
 from service.store.models import TERMINAL_STATES
 from service.submissions import submit
@@ -28,17 +29,20 @@ def _json_body() -> Any:
             f"Send the submission as application/json, not {request.mimetype or 'nothing'}.",
             [{"pointer": "", "message": "The body must be sent as application/json."}],
         )
-    data = request.get_data(cache=False)
-    try:
-        return json.loads(data)
-    except (ValueError, UnicodeDecodeError) as error:
-        raise ApiProblem(
-            400,
-            "invalid-json",
-            "The body is not JSON",
-            f"The body could not be parsed: {error}.",
-            [{"pointer": "", "message": "The body is not valid JSON."}],
-        ) from error
+    return parse_json_body(_body_within_limit())
+
+
+def _body_within_limit() -> bytes:
+    """The body, refused with 413 once more bytes arrive than the limit, whatever the framing.
+
+    A chunked body has no Content-Length for Flask to check up front, and reading it through a
+    limited stream would silently cut it; so count what is actually read.
+    """
+    limit = runtime().settings.max_body_bytes
+    data = request.stream.read(limit + 1)
+    if len(data) > limit:
+        raise RequestEntityTooLarge()
+    return data
 
 
 @jobs.post("")

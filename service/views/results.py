@@ -1,4 +1,5 @@
-"""A job's results: summary, draws, sampler statistics, diagnostics, the audit record."""
+"""A job's results: summary, draws, sampler statistics, diagnostics, predictive accuracy, the
+evidence (bridge sampling), the audit record."""
 
 from __future__ import annotations
 
@@ -6,14 +7,16 @@ from collections.abc import Callable
 from dataclasses import replace
 from typing import Any
 
-from flask import Blueprint, Response, request
+from flask import Blueprint, Response, jsonify, request
 
+from service.evidence import evidence_document
 from service.formats.column_types import draw_types, stat_types
 from service.formats.downloads import download
 from service.formats.negotiation import chosen_format, chosen_layout
 from service.formats.plain_names import chosen_naming, plain_name, plain_names
 from service.http_caching import cached_json, canonical_part
 from service.job_queries import bad_parameter
+from service.predictive import predictive_accuracy
 from service.results import (
     audit_document,
     diagnostics_document,
@@ -91,6 +94,16 @@ def _array_download(
         runtime(), request, kind, job_id, chains, selection, loader_of(chains, names),
         format_name, layout, is_partial(job), is_final(job),
     )
+
+
+@results.get("/predictive-accuracy")
+def loo(job_id: str) -> Response:
+    return jsonify(predictive_accuracy(runtime(), job_id))
+
+
+@results.get("/evidence")
+def evidence(job_id: str) -> Response:
+    return jsonify(evidence_document(runtime(), job_id))
 
 
 @results.get("/audit")

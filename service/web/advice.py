@@ -2,7 +2,10 @@
 
 The thresholds and their meaning follow Vehtari, Gelman, Simpson, Carpenter & Buerkner (2021),
 "Rank-normalization, folding, and localization", sec. 4-5 (R-hat below 1.01, ESS above about 400),
-and Betancourt (2016), arXiv:1604.00695 (E-BFMI); the remedies are common practice.
+and Betancourt (2016), arXiv:1604.00695 (E-BFMI); tree-depth saturation is Hoffman & Gelman
+(2014), section 3 (the trajectory doubles until it turns or reaches the depth limit); Vehtari,
+Simpson, Gelman, Yao & Gabry (2024), "Pareto smoothed importance sampling", for the Laplace check;
+the remedies are common practice.
 """
 
 from __future__ import annotations
@@ -65,6 +68,34 @@ ADVICE: dict[str, Advice] = {
         "so the chain moves slowly through the range of the posterior, especially its tails.",
         "Reparameterise, often the scale parameters of a hierarchical model; a longer warm-up "
         "seldom helps.",
+    ),
+    "pareto_k": Advice(
+        "The Gaussian approximation does not fit well (Pareto k-hat too high)",
+        "Importance weights of the true posterior against the Laplace approximation's Gaussian "
+        "have a heavy tail: the posterior is skewed, bounded near its mass, or has several "
+        "modes, so the Gaussian's draws misstate it.",
+        "Below the job's k threshold, weight the draws by exp(log_weight) from the sampler "
+        "statistics (or resample them by it); above it, run chains (NUTS) instead.",
+    ),
+    "mode_agreement": Advice(
+        "The optimiser found more than one mode",
+        "Starts of the mode search ended at different points, so the posterior may have several "
+        "modes and a Gaussian at one of them misses the others' mass.",
+        "Run chains, several of them from spread-out starts, and look at their trace plots.",
+    ),
+    "max_depth_saturation": Advice(
+        "Trajectories cut short at the maximum tree depth",
+        "In many iterations the sampler was still travelling when its trajectory reached the "
+        "largest number of doublings allowed (the sampler setting maximum_tree_depth), so it "
+        "stopped early. The draws are still valid, but each one moves less far than it should, "
+        "successive draws are strongly correlated, and every iteration costs the most gradient "
+        "evaluations allowed. This usually means the posterior's scales differ by orders of "
+        "magnitude or its quantities are strongly correlated, for example regression "
+        "coefficients of raw, collinear covariates.",
+        "Put the quantities on comparable scales: centre and scale covariates (or decorrelate "
+        "them), give unknowns units of similar size, or reparameterise. For strong correlations "
+        'try the preconditioning "full". Raising maximum_tree_depth lets trajectories run longer '
+        "but makes every iteration slower and seldom removes the cause.",
     ),
 }
 

@@ -5,8 +5,9 @@ from __future__ import annotations
 
 from flask import Blueprint, Response, render_template, request
 
-from service.problem_details import ApiProblem, problem_response
-from service.web.access import check_access
+from service.access.tenancy import current_identity
+from service.problem_details import ApiProblem, note_problem, problem_response
+from service.web.access import check_access, form_token, set_form_cookie
 
 web = Blueprint(
     "web",
@@ -16,6 +17,14 @@ web = Blueprint(
     static_url_path="/assets",
 )
 web.before_request(check_access)
+web.after_request(set_form_cookie)
+
+
+@web.app_context_processor
+def page_globals() -> dict:
+    # form_token: the hidden "csrf" field of every form that changes state; identity: whom the
+    # page speaks for (None in open mode), shown beside the sign-out button.
+    return {"form_token": form_token, "identity": current_identity()}
 
 PLOT_ENDPOINT = "web.plot"
 # The pages load only their own stylesheet, scripts and images, and may not be framed; a plot
@@ -39,5 +48,6 @@ def security_headers(response: Response) -> Response:
 def problem_page(problem: ApiProblem):
     if request.endpoint == PLOT_ENDPOINT:
         return problem_response(problem, request.path)
+    note_problem(problem.slug)
     page = render_template("error.html", problem=problem)
     return page, problem.status, problem.headers

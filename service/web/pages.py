@@ -12,7 +12,8 @@ from service.job_queries import JobFilter, cancel_job, get_job, list_jobs
 from service.job_resources import job_resource
 from service.partial_results import partial_record
 from service.plots.job_arrays import quantity_names
-from service.problem_details import ApiProblem
+from service.predictive import comparison
+from service.problem_details import ApiProblem, note_problem
 from service.results import request_document
 from service.store.models import JOB_STATES, TERMINAL_STATES, Chain, Job
 from service.submissions import submit, validate
@@ -132,6 +133,28 @@ def partial_downloads(job: Job) -> list[tuple[str, str, str | None]]:
     return [i for i in DOWNLOADS if summarised or i[1] not in ("summary", "diagnostics")]
 
 
+@web.get("/compare")
+def compare_page() -> tuple[str, int]:
+    """The jobs ticked on the jobs page, ordered by PSIS-LOO, or why they cannot be compared."""
+    chosen = request.args.getlist("jobs")
+    problems: list[dict[str, str]] = []
+    result = None
+    status = 200
+    if len(chosen) < 2:
+        problems.append({"pointer": "/jobs", "message": "tick two or more succeeded jobs on the "
+                                                        "same data on the jobs page"})
+        status = 422
+    else:
+        try:
+            result = comparison(runtime(), {"jobs": chosen})
+        except ApiProblem as problem:
+            if problem.status != 422:
+                raise
+            problems, status = problem.errors, 422
+    return render_template("compare.html", result=result, chosen=chosen,
+                           problems=problems), status
+
+
 @web.post("/jobs/<job_id>/cancel")
 def cancel_page(job_id: str) -> Response:
     cancel_job(runtime(), job_id)
@@ -169,6 +192,7 @@ def submit_form() -> tuple[str, int] | Response:
     state = read_form(request.form, request.files)
     body = build_body(state)
     if body is None:
+        note_problem("invalid-submission")
         return _form_page(state, 422)
     if state.problems:
         # The labels could not be read; check the rest too, so every problem shows at once.
@@ -176,12 +200,14 @@ def submit_form() -> tuple[str, int] | Response:
             validate(body, runtime().settings)
         except ApiProblem as problem:
             place_problems(state, body, problem.errors)
+        note_problem("invalid-submission")
         return _form_page(state, 422)
     try:
         # The form's token is the idempotency key: submitting the same form twice (a double
         # click, a reload) makes one job.
         accepted = submit(runtime(), body, state.token)
     except ApiProblem as problem:
+        note_problem(problem.slug)
         if problem.status == 422:
             place_problems(state, body, problem.errors)
         else:

@@ -15,6 +15,8 @@ from typing import Any
 from werkzeug.datastructures import FileStorage
 
 from service.client.data_files import DataFileError, csv_columns
+from service.json_body import parse_json_body
+from service.problem_details import ApiProblem
 from service.web.json_lines import layout, line_of
 
 # The sampler settings the form has fields for, and how to read each one; other settings take
@@ -27,7 +29,7 @@ SAMPLER_FIELDS: dict[str, type] = {
     "seed": int,
     "target_acceptance": float,
 }
-METHODS = ("nuts", "hmc", "metropolis")
+METHODS = ("nuts", "hmc", "metropolis", "laplace", "grid")
 GENERAL = "general"
 # Lines of context shown around a flagged line in the spec or data excerpt.
 CONTEXT_LINES = 2
@@ -125,11 +127,20 @@ def _parse_json(state: FormState, name: str, text: str, what: str) -> Any:
         state.add(name, FieldProblem(f"/{name}", f"Paste or upload the {what} (a JSON object)."))
         return None
     try:
-        return json.loads(text)
+        json.loads(text)
     except json.JSONDecodeError as error:
         state.add(name, FieldProblem(
             f"/{name}", f"This is not valid JSON: {error.msg} at line {error.lineno}, column "
             f"{error.colno}.", error.lineno))
+        return None
+    except RecursionError:
+        pass  # reported below, as the API reports it
+    try:
+        # The API's own reading: repeated keys, too deep a nesting, numbers beyond range.
+        return parse_json_body(text)
+    except ApiProblem as problem:
+        for error in problem.errors:
+            state.add(name, FieldProblem(f"/{name}{error['pointer']}", error["message"]))
         return None
 
 

@@ -16,7 +16,9 @@ from typing import Any
 from tests.service.bodies import normal_mean
 
 # The limits the table's app is built with (the oversized cases go just past them).
-LIMITS = {"max_chains": 8, "max_draws": 5_000, "max_body_bytes": 20_000, "max_unknowns": 100}
+LIMITS = {"max_chains": 8, "max_draws": 5_000, "max_body_bytes": 20_000, "max_unknowns": 100,
+          "callback_allow": "http://127.0.0.1:9/hooks/", "callback_secret": "table-secret"}
+HOOKS = "http://127.0.0.1:9/hooks/"
 
 
 @dataclass(frozen=True)
@@ -95,6 +97,51 @@ def by_name(ref: Any) -> Callable[[dict], None]:
         body["model_ref"] = ref
 
     return edit
+
+
+def renamed(path: tuple, old: str, new: str) -> Callable[[dict], None]:
+    """Rename member ``old`` of the object at ``path`` (the name-ending-in-newline cases)."""
+
+    def edit(body: dict) -> None:
+        target = body
+        for step in path:
+            target = target[step]
+        target[new] = target.pop(old)
+
+    return edit
+
+
+def repeated_seed() -> bytes:
+    """Two "seed" members in one object: JSON text a dict cannot hold (issue 13 item 8)."""
+    text = json.dumps(base())
+    return text.replace('"seed": 5', '"seed": 2026, "seed": 7', 1).encode()
+
+
+def huge_integer() -> bytes:
+    """y[0] as the integer 10^400, beyond double precision (issue 13 item 6)."""
+    text = json.dumps(base())
+    return text.replace('"y": [1.0,', '"y": [1' + "0" * 400 + ",", 1).encode()
+
+
+def deep_data(depth: int) -> bytes:
+    """An undeclared data member nested ``depth`` arrays deep."""
+    text = json.dumps(base())
+    return text.replace('"data": {', '"data": {"deep": ' + "[" * depth + "]" * depth + ", ", 1
+                        ).encode()
+
+
+def outer_product(body: dict) -> None:
+    """A 2,000 x 2,000 matrix product and two more values that size: past the element budget."""
+    size = 2_000
+    body["model"]["inputs"].update({"column": {"type": "real", "shape": [size, 1]},
+                                    "row": {"type": "real", "shape": [1, size]}})
+    body["data"].update({"column": [[1]] * size, "row": [[1] * size]})
+    body["model"]["derived"] = {"outer": "column @ row", "shifted": "outer + mu",
+                                "scaled": "outer * mu"}
+
+
+def newline_term(body: dict) -> None:
+    body["model"]["likelihood"][0]["name"] = "obs\n"
 
 
 # An id of the right shape that no job has (the table's store is empty).
@@ -247,4 +294,34 @@ CASES = [
          changed(set_in(("warm_start",), {"job": NO_SUCH_JOB})), says=("no job",)),
     Case("warm_start_unsupported_method", 422, "/warm_start/job", changed(lambda b: (
         b["sampler"].update({"method": "gibbs"}), b.update({"warm_start": {"job": NO_SUCH_JOB}})))),
+    # Issue 13: input that used to get through or end in a 500.
+    Case("repeated_key", 400, "/sampler/seed", repeated_seed(), says=("seed",)),
+    Case("integer_beyond_double", 422, "/data/y/0", huge_integer()),
+    Case("nested_past_the_parser", 400, "", deep_data(9_000)),
+    Case("nested_past_the_depth_limit", 400, "/data/deep", deep_data(70)),
+    Case("unknown_name_newline", 422, "/model/unknowns", changed(renamed(("model", "unknowns"),
+                                                                          "mu", "mu\n"))),
+    Case("input_name_newline", 422, "/model/inputs", changed(renamed(("model", "inputs"),
+                                                                      "y", "y\n"))),
+    Case("derived_name_newline", 422, "/model/derived",
+         changed(set_in(("model", "derived"), {"shift\n": "mu + 1"}))),
+    Case("formula_name_newline", 422, "/model/per_draw",
+         changed(set_in(("model", "per_draw"), {"formulas": {"twice\n": "2 * mu"}}))),
+    Case("term_name_newline", 422, LIK, changed(newline_term)),
+    Case("element_budget", 422, "/model/derived/scaled", changed(outer_product),
+         says=("work budget",)),
+    # Callback URLs (issue 13 items 4 and 5): normalised before the prefix check, dot segments,
+    # encoded dots and user information refused outright, unparsable URLs a 422 at the pointer.
+    Case("callback_dot_segments", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": HOOKS + "../../admin"})), says=("segments",)),
+    Case("callback_encoded_dots", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": HOOKS + "%2e%2e/%2E%2E/admin"})), says=("dots",)),
+    Case("callback_user_information", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": "http://127.0.0.1:9@evil.invalid/hooks/x"}))),
+    Case("callback_unparsable", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": "http://["})), says=("parsed",)),
+    Case("callback_port_out_of_range", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": "http://127.0.0.1:99999/hooks/x"}))),
+    Case("callback_other_path", 422, "/notify/url",
+         changed(set_in(("notify",), {"url": "http://127.0.0.1:9/admin"})), says=("prefix",)),
 ]

@@ -5,13 +5,19 @@ one go on one machine keeps the figures comparable. `python -m tests.bench servi
 benchmarks whose file name contains "service".
 """
 
-import importlib
 import os
-import platform
-import sys
-import time
-import traceback
-from pathlib import Path
+
+# One BLAS thread, as the workers run (one chain per process, one process per core); set before
+# numpy loads OpenBLAS. An explicit setting in the environment wins.
+for _variable in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_variable, "1")
+
+import importlib  # noqa: E402
+import platform  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+import traceback  # noqa: E402
+from pathlib import Path  # noqa: E402
 
 HERE = Path(__file__).resolve().parent
 REPO_ROOT = HERE.parent.parent
@@ -31,7 +37,8 @@ def machine_line() -> str:
         pass
     return (
         f"{model}; {os.cpu_count()} logical CPUs; Python {platform.python_version()}; "
-        f"numpy {numpy.__version__}; scipy {scipy.__version__}; {platform.platform()}"
+        f"numpy {numpy.__version__}; scipy {scipy.__version__}; {platform.platform()}; "
+        f"OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS')}"
     )
 
 

@@ -20,7 +20,7 @@ import pytest
 import requests
 
 from service.app import create_app
-from service.callbacks import url_allowed
+from service.callbacks import UnusableUrl, url_allowed
 from tests.callbacks.receiver import Receiver
 from tests.service.bodies import normal_mean
 
@@ -64,7 +64,32 @@ def test_prefix_boundaries_of_the_allow_list() -> None:
     assert not url_allowed("https://hooks.example.org.evil.net/x", prefixes)
     assert not url_allowed("https://hooks.example.org:444/x", prefixes)
     assert not url_allowed("http://127.0.0.1:8080/other", prefixes)
-    assert not url_allowed("ftp://hooks.example.org/x", ["ftp://hooks.example.org"])
+    with pytest.raises(UnusableUrl):
+        url_allowed("ftp://hooks.example.org/x", ["ftp://hooks.example.org"])
+
+
+def test_urls_are_compared_in_normal_form_and_path_tricks_are_refused() -> None:
+    """RFC 3986 section 6.2.2: case, percent-encoding and default-port normalisation before the
+    comparison; dot segments (section 5.2.4 would resolve them to another path), encoded dots
+    and user information are refused outright rather than resolved."""
+    prefixes = ["http://127.0.0.1:8080/hooks/", "https://hooks.example.org/drawyard"]
+    assert url_allowed("HTTPS://Hooks.Example.ORG:443/drawyard/x", prefixes)
+    assert url_allowed("http://127.0.0.1:8080/hooks/%64one", prefixes)
+    assert url_allowed("https://hooks.example.org/drawyard", prefixes)
+    assert not url_allowed("https://hooks.example.org/drawyardx", prefixes)
+    assert not url_allowed("http://127.0.0.1:8080/%68ooksx/", prefixes)
+    for refused in [
+        "http://127.0.0.1:8080/hooks/../../admin",
+        "http://127.0.0.1:8080/hooks/./x",
+        "http://127.0.0.1:8080/hooks/%2e%2e/admin",
+        "http://127.0.0.1:8080/hooks/%2E%2e/admin",
+        "https://hooks.example.org@evil.invalid/drawyard/x",
+        "http://127.0.0.1:8080/hooks/a\\..\\b",
+        "http://[",
+        "http://127.0.0.1:99999/hooks/",
+    ]:
+        with pytest.raises(UnusableUrl):
+            url_allowed(refused, prefixes)
 
 
 def test_a_url_outside_the_allow_list_is_refused_at_submission(tmp_path, redis_url) -> None:

@@ -169,6 +169,8 @@ def test_constant_quantities_are_skipped_and_non_finite_ones_fail() -> None:
         ({"max_rhat": 0.9}, "/checks/max_rhat"),
         ({"max_divergences": 1.5}, "/checks/max_divergences"),
         ({"a/b": 1}, "/checks/a~1b"),
+        ({"max_depth_saturation": 1.5}, "/checks/max_depth_saturation"),
+        ({"max_depth_saturation": -0.1}, "/checks/max_depth_saturation"),
     ],
 )
 def test_bad_thresholds_raise_with_pointers(checks: dict, where: str) -> None:
@@ -238,3 +240,43 @@ def test_the_rhat_message_shows_a_value_beside_its_threshold_that_differs_from_i
     judged = verdict([record], _good_report())
     (failure,) = judged["failed_checks"]
     assert "R-hat of mu is 1.010004, above 1.01" in failure["message"]
+def _depth_report(depths_per_chain: list[list[int]], maximum: int = 10) -> dict:
+    stats_per_chain = [
+        {
+            "divergent": np.zeros(len(d), dtype=bool),
+            "doublings": np.array(d),
+            "accept_probability": np.full(len(d), 0.8),
+            "energy": np.random.default_rng(c).standard_normal(len(d)),
+        }
+        for c, d in enumerate(depths_per_chain)
+    ]
+    return sampler_checks(stats_per_chain, maximum_tree_depth=maximum)
+
+
+def test_tree_depth_saturation_fails_above_its_share_and_names_the_chains() -> None:
+    """A share of iterations at the depth cap above max_depth_saturation (default 0.05, our own
+    choice; warning when many iterations hit the cap is common practice) is one failed check with
+    the pooled share as its value; at or below the share, or switched off, nothing fails."""
+    assert DEFAULT_THRESHOLDS["max_depth_saturation"] == 0.05
+    # chain 1: 12 of 100 at the cap, chain 2: none -> 6 % of 200
+    report = _depth_report([[10] * 12 + [4] * 88, [3] * 100])
+    failed = [
+        f for f in verdict([], report)["failed_checks"] if f["check"] == "max_depth_saturation"
+    ]
+    assert len(failed) == 1
+    assert failed[0]["value"] == pytest.approx(0.06) and failed[0]["threshold"] == 0.05
+    assert (
+        "6% of sampling iterations (12 of 200; chain 1: 12%, chain 2: 0%)" in failed[0]["message"]
+    )
+    assert "maximum tree depth of 10" in failed[0]["message"]
+    checks = {"max_depth_saturation": 0.06}
+    assert not verdict([], report, checks)["failed_checks"]
+    assert not verdict([], report, {"max_depth_saturation": None})["failed_checks"]
+    exactly = _depth_report([[10] * 5 + [4] * 95])
+    assert not verdict([], exactly)["failed_checks"]  # 5 % is not above 5 %
+    assert verdict([], report)["thresholds"]["max_depth_saturation"] == 0.05
+
+
+def test_methods_without_trees_are_not_checked_for_depth() -> None:
+    report = sampler_checks([{"accept_probability": np.full(50, 0.3)}], maximum_tree_depth=None)
+    assert not verdict([], report, {"min_ebfmi": None})["failed_checks"]

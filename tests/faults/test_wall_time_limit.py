@@ -138,7 +138,7 @@ def test_a_job_stopped_in_sampling_keeps_the_first_draws_of_the_full_run(
     page = requests.get(f"{service.base_url}/jobs/{job_id}", timeout=60)
     assert page.status_code == 200 and "Stopped at the wall-time limit" in page.text
     metrics = requests.get(service.base_url + "/metrics", timeout=60).text
-    assert 'drawyard_jobs{state="timed_out"} 1' in metrics
+    assert 'drawyard_jobs{state="timed_out"} 1.0' in metrics.splitlines()
 
     store = StoreView(sqlite_store)
     try:

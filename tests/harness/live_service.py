@@ -12,8 +12,10 @@ from service.local_stack import (
     ChildProcess,
     api_ready,
     free_port,
+    metrics_env,
     service_env,
     start_api,
+    start_closing_worker,
     start_sweeper,
     start_worker,
     wait_until,
@@ -33,6 +35,8 @@ class LiveService:
     broker_url: str
     # The sweeper process (service/sweeper.py); None only while starting.
     sweeper: ChildProcess | None = None
+    # The worker of the closing queue (finishing steps, callbacks); None only while starting.
+    closing_worker: ChildProcess | None = None
     _next_index: int = field(default=0, repr=False)
 
     def add_workers(self, count: int = 1, timeout: float = 60.0) -> list[ChildProcess]:
@@ -65,7 +69,8 @@ class LiveService:
         """Every process's log tail, for assertion messages."""
         return "\n".join(
             f"--- {child.name} ({child.log_path}):\n{child.log_tail(60)}"
-            for child in [self.api, *self.workers, *([self.sweeper] if self.sweeper else [])]
+            for child in [self.api, *self.workers,
+                          *[c for c in (self.closing_worker, self.sweeper) if c is not None]]
         )
 
     def stop(self) -> None:
@@ -73,6 +78,8 @@ class LiveService:
             worker.signal_leader(worker.stop_signal)
         for worker in self.workers:
             worker.stop()
+        if self.closing_worker is not None:
+            self.closing_worker.stop()
         if self.sweeper is not None:
             self.sweeper.stop()
         self.api.stop()
@@ -97,7 +104,9 @@ def start_live_service(
 ) -> LiveService:
     """Start gunicorn and the workers, and wait until the API is ready and each worker consumes."""
     log_dir = log_dir or Path(tempfile.mkdtemp(prefix="drawyard-live-"))
-    full_env = service_env(database_url, broker_url, env)
+    full_env = service_env(
+        database_url, broker_url, {**metrics_env(log_dir / "metrics"), **(env or {})}
+    )
     port = free_port()
     api = start_api(port, full_env, log_dir / "api.log")
     service = LiveService(
@@ -106,10 +115,11 @@ def start_live_service(
     try:
         # Everything boots side by side; then the API must answer and every worker consume.
         launched = service._launch_workers(workers)
+        service.closing_worker = start_closing_worker(full_env, log_dir / "closing.log")
         service.sweeper = start_sweeper(full_env, log_dir / "sweeper.log")
         what = f"{service.base_url}{READY_PATH}"
         wait_until(api_ready(service.base_url), [api, *launched], timeout, what)
-        service._wait_consuming(launched, timeout)
+        service._wait_consuming([*launched, service.closing_worker], timeout)
     except BaseException:
         service.stop()
         raise

@@ -1,4 +1,4 @@
-"""The load run: many concurrent readers while jobs run, then a burst of tiny jobs.
+"""The load run: many concurrent readers and 50 slow clients while jobs run, then a burst of jobs.
 
 Everything on loopback: a private Redis, the real API under gunicorn, real Celery workers, the
 sweeper, a SQLite store. ``make soak`` runs the full size (200 clients for 60 s, 500 jobs); the
@@ -26,6 +26,7 @@ from service.local_stack import RedisServer
 from service.store import migrate
 from service.store.models import TERMINAL_STATES, Chain, ChainArray, Job
 from tests.harness.live_service import LiveService, start_live_service
+from tests.load.slow_clients import HealthFigures, hold_and_probe
 
 # Limits meant for tenants on a shared service, lifted so the load itself is what is measured.
 LOAD_ENV = {
@@ -175,7 +176,8 @@ def run(
     workers: int = 2,
     burst_timeout: float = 900.0,
     folder: Path | None = None,
-) -> tuple[ReadFigures, BurstFigures]:
+    slow_clients: int = 50,
+) -> tuple[ReadFigures, BurstFigures, tuple[HealthFigures, HealthFigures]]:
     """Start a private stack, run both phases, stop everything; returns the figures."""
     folder = folder or Path(tempfile.mkdtemp(prefix="drawyard-soak-"))
     redis = RedisServer(folder / "redis").start()
@@ -188,7 +190,14 @@ def run(
         done = [_submit(base, tiny_job(10_000 + i)) for i in range(4)]
         _wait_all(base, done, 300)
         running = [_submit(base, tiny_job(20_000 + i, draws=90_000)) for i in range(4)]
+        port = int(base.rsplit(":", 1)[1])
+        # The slow clients alone first, then beside the readers.
+        alone = hold_and_probe("127.0.0.1", port, base, slow_clients, min(seconds, 15.0))
+        probe = ThreadPoolExecutor(1).submit(
+            hold_and_probe, "127.0.0.1", port, base, slow_clients, seconds
+        )
         reads = read_load(base, running, done, clients, seconds)
+        health = probe.result()
         for job_id in running:
             requests.post(f"{base}/v1/jobs/{job_id}/cancel", timeout=30)
         _wait_all(base, running, 120)
@@ -196,7 +205,7 @@ def run(
     finally:
         service.stop()
         redis.stop()
-    return reads, figures
+    return reads, figures, (alone, health)
 
 
 def _submit(base: str, body: dict) -> str:
@@ -222,15 +231,21 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--seconds", type=float, default=60.0)
     parser.add_argument("--jobs", type=int, default=500)
     parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--slow-clients", type=int, default=50)
     args = parser.parse_args(argv)
-    reads, figures = run(args.clients, args.seconds, args.jobs, args.workers)
+    reads, figures, (alone, health) = run(args.clients, args.seconds, args.jobs, args.workers,
+                                          slow_clients=args.slow_clients)
+    print("alone:", alone.line(), flush=True)
     print(reads.line(), flush=True)
     for error in reads.errors[:5]:
         print("  read error:", error)
+    print("beside the readers:", health.line(), flush=True)
+    for error in [*alone.errors, *health.errors][:5]:
+        print("  health error:", error)
     print(figures.line(), flush=True)
     for refusal in figures.refusals:
         print("  refused:", refusal)
-    ok = not reads.errors and figures.exact
+    ok = not reads.errors and not alone.errors and not health.errors and figures.exact
     print("load run:", "PASS" if ok else "FAIL")
     return 0 if ok else 1
 

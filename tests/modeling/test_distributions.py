@@ -86,6 +86,13 @@ def x_binomial(data, shape, args):
     return np.floor(t * (args["trials"] + 0.999)).astype(np.int64)
 
 
+def x_gumbel(data, shape, args):
+    # standardised values in [-2.5, 6]: further left exp(-z) makes the sum so large that finite
+    # differences lose the small components to rounding
+    full = np.broadcast_shapes(shape, np.shape(args["location"]), np.shape(args["scale"]))
+    return args["location"] + args["scale"] * floats(data, -2.5, 6.0, full)
+
+
 def draw_uniform_args(data, batch):
     lower = floats(data, -3.0, 3.0, sub_shape(data, batch))
     width = floats(data, 0.2, 4.0, sub_shape(data, batch))
@@ -247,6 +254,19 @@ CASES = [
     Case("negative_binomial", {"log_mean": "real", "dispersion": "positive"}, x_ints(0, 15),
          lambda x, a: st.nbinom.logpmf(
              x, a["dispersion"], a["dispersion"] / (np.exp(a["log_mean"]) + a["dispersion"]))),
+    Case("gumbel", {"location": "real", "scale": "positive"}, x_gumbel,
+         lambda x, a: st.gumbel_r.logpdf(x, a["location"], a["scale"])),
+    Case("skew_normal", {"location": "real", "scale": "positive", "shape": "real"},
+         x_floats(-5, 5),
+         lambda x, a: st.skewnorm.logpdf(x, a["shape"], a["location"], a["scale"])),
+    Case("beta_binomial", {"a": "positive", "b": "positive"}, x_binomial,
+         lambda x, a: st.betabinom.logpmf(x, a["trials"], a["a"], a["b"]),
+         no_gradient=frozenset({"trials"})),
+    # a zero with probability pi, else Poisson (Lambert 1992), from scipy.stats.poisson
+    Case("zero_inflated_poisson", {"zero_probability": "unit", "rate": "positive"},
+         x_ints(0, 6),
+         lambda x, a: np.log(np.where(x == 0, a["zero_probability"], 0.0)
+                             + (1 - a["zero_probability"]) * st.poisson.pmf(x, a["rate"]))),
     Case("categorical", {}, None, ref_categorical, draw=draw_categorical),
     Case("cumulative_logit", {}, None, ref_cumulative_logit, draw=draw_cumulative_logit),
     Case("dirichlet", {}, None,
@@ -271,7 +291,7 @@ def draw_point(data, case: Case):
             n: floats(data, *RANGES[kind], sub_shape(data, batch)) for n, kind in case.args.items()
         }
         x = None
-    if case.name == "binomial":
+    if case.name in ("binomial", "beta_binomial"):
         args["trials"] = integers(data, 0, 20, sub_shape(data, batch))
     if x is None:
         x = case.variate(data, sub_shape(data, batch), args)

@@ -60,7 +60,34 @@ SCALAR_CASES = [
     ("poisson", {"log_rate": 0.2}, st.poisson(np.exp(0.2))),
     ("negative_binomial", {"mean": 4.0, "dispersion": 1.5}, st.nbinom(1.5, 1.5 / 5.5)),
     ("negative_binomial", {"log_mean": np.log(4.0), "dispersion": 1.5}, st.nbinom(1.5, 1.5 / 5.5)),
+    ("gumbel", {"location": 0.5, "scale": 1.5}, st.gumbel_r(0.5, 1.5)),
+    ("skew_normal", {"location": 0.5, "scale": 1.5, "shape": 4.0}, st.skewnorm(4.0, 0.5, 1.5)),
+    ("skew_normal", {"location": 0.5, "scale": 1.5, "shape": -2.0}, st.skewnorm(-2.0, 0.5, 1.5)),
+    ("beta_binomial", {"trials": 12, "a": 0.8, "b": 2.5}, st.betabinom(12, 0.8, 2.5)),
 ]
+
+
+class ZeroInflated:
+    """pi at zero plus (1 - pi) Poisson(rate) (Lambert 1992), built from scipy.stats.poisson."""
+
+    def __init__(self, pi: float, rate: float) -> None:
+        self.pi, self.poisson = pi, st.poisson(rate)
+
+    def stats(self, moments):
+        mean = (1 - self.pi) * self.poisson.mean()
+        second = (1 - self.pi) * (self.poisson.var() + self.poisson.mean() ** 2)
+        return mean, second - mean**2
+
+    def cdf(self, q):
+        return self.pi + (1 - self.pi) * self.poisson.cdf(q)
+
+    def ppf(self, p):
+        # scipy's ppf(0) is -1 (below the support); the smallest value is 0
+        return np.maximum(self.poisson.ppf(np.clip((p - self.pi) / (1 - self.pi), 0.0, 1.0)), 0.0)
+
+
+SCALAR_CASES.append(("zero_inflated_poisson", {"zero_probability": 0.3, "rate": 3.5},
+                     ZeroInflated(0.3, 3.5)))
 
 
 @pytest.mark.parametrize(

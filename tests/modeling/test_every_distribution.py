@@ -73,6 +73,18 @@ CASES = {
                                                - special.logsumexp([p1, p2, 0.0]))[y - 1]),
     "cumulative_logit": ({"predictor": "p1", "cutpoints": "[-q1, q2]"}, [1, 2, 3], "integer",
                          None),
+    "gumbel": ({"location": "p1", "scale": "q1"}, [0.3, -1.2, 2.0], "real",
+               lambda y, p1, p2, q1, q2: stats.gumbel_r.logpdf(y, p1, q1)),
+    # an unknown skew, both signs reached by p2
+    "skew_normal": ({"location": "p1", "scale": "q1", "shape": "3 * p2"}, [0.3, -1.2, 2.0],
+                    "real", lambda y, p1, p2, q1, q2: stats.skewnorm.logpdf(y, 3 * p2, p1, q1)),
+    "beta_binomial": ({"trials": 6, "a": "q1", "b": "q2 + 0.5"}, [0, 3, 6], "integer",
+                      lambda y, p1, p2, q1, q2: stats.betabinom.logpmf(y, 6, q1, q2 + 0.5)),
+    # pi at zero plus (1 - pi) Poisson (Lambert 1992), from scipy.stats.poisson
+    "zero_inflated_poisson": ({"zero_probability": "logistic(p1)", "rate": "q1"}, [0, 3, 0],
+                              "integer", lambda y, p1, p2, q1, q2: np.log(
+                                  np.where(y == 0, special.expit(p1), 0.0)
+                                  + (1 - special.expit(p1)) * stats.poisson.pmf(y, q1))),
 }
 
 

@@ -26,7 +26,9 @@ def spec_for(shape, expression):
         "priors": [
             {"on": "a", "distribution": "exponential", "arguments": {"rate": 1}},
             {"on": "b", "distribution": "normal", "arguments": {"location": 0, "scale": 1}},
-            {"on": "d", "distribution": "normal", "arguments": {"location": 0.5, "scale": 3}},
+            # a penalty on d that exercises every operation's gradient, meant without a Jacobian
+            {"on": "d", "distribution": "normal", "arguments": {"location": 0.5, "scale": 3},
+             "jacobian_omitted_on_purpose": True},
         ],
     }
 
@@ -85,3 +87,101 @@ def test_matrix_pipeline(m, n, seed):
     u = rng.normal(0.0, 0.6, model.dimension)
     value, gradient = model.log_density_and_gradient(u)
     assert_gradient_close(gradient, central_gradient(model.log_density, u), scale=abs(value))
+
+
+FUSIBLE = ["c + a * b", "a * b + c", "c - a * b", "a * b - c", "a * b + a * b"]
+
+
+@settings(max_examples=30, deadline=None, derandomize=True)
+@given(rows=st.integers(1, 6), columns=st.integers(1, 4), expression=st.sampled_from(
+    ["c + X @ w", "X @ w + c", "c - X @ w", "X @ w - c"]), scalar_c=st.booleans(),
+    seed=st.integers(0, 2**32 - 1))
+def test_fused_matrix_product_and_sum(rows, columns, expression, scalar_c, seed):
+    """A linear predictor c + X @ w is one step whose sum overwrites the product's array: the
+    value has numpy's bits, the gradient agrees with central differences, and the data matrix
+    is left as it was."""
+    from worker.modeling.operations import ProductCombined
+
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=(rows, columns))
+    spec = {
+        "inputs": {"n": {"type": "integer"}, "k": {"type": "integer"},
+                   "X": {"type": "real", "shape": ["n", "k"]}},
+        "unknowns": {"w": {"shape": ["k"]}, "c": {"shape": [] if scalar_c else ["n"]}},
+        "derived": {"d": expression},
+        "priors": [
+            {"on": "w", "distribution": "normal", "arguments": {"location": 0, "scale": 1}},
+            {"on": "c", "distribution": "normal", "arguments": {"location": 0, "scale": 1}},
+            {"on": "d", "distribution": "normal", "arguments": {"location": 0.5, "scale": 3}},
+        ],
+    }
+    data = {"n": rows, "k": columns, "X": x.tolist()}
+    # the raw coordinates: u holds w itself, so the value can be compared with numpy's X @ w
+    model = compile_model(spec, data, reparametrise=False)
+    assert any(isinstance(step[1], ProductCombined) for step in model._density.steps)
+    u = rng.normal(0.0, 0.6, model.dimension)
+    w, c = u[:columns], (u[columns] if scalar_c else u[columns:])
+    for _ in range(2):  # twice: a second call must not see the first one's arrays
+        value, gradient = model.log_density_and_gradient(u)
+        numeric = central_gradient(model.log_density, u)
+        assert_gradient_close(gradient, numeric, scale=abs(value))
+    expected = {"c + X @ w": c + x @ w, "X @ w + c": x @ w + c, "c - X @ w": c - x @ w,
+                "X @ w - c": x @ w - c}[expression]
+    assert np.array_equal(model._report.values_at(u)[model._assembly.derived["d"]], expected)
+    assert np.array_equal(model._assembly.graph.nodes[model._assembly.graph.names["X"]].value, x)
+
+
+@settings(max_examples=40, deadline=None, derandomize=True)
+@given(shape=SHAPES, expression=st.sampled_from(FUSIBLE), scalar_c=st.booleans(),
+       seed=st.integers(0, 2**32 - 1))
+def test_fused_product_and_sum(shape, expression, scalar_c, seed):
+    """A product feeding one addition or subtraction becomes one plan step; its value equals the
+    same arithmetic done in numpy to the last bit, and its gradient the central differences."""
+    from worker.modeling.operations import ProductCombined
+
+    spec = {
+        "unknowns": {"a": {"shape": shape}, "b": {}, "c": {"shape": [] if scalar_c else shape}},
+        "derived": {"d": expression},
+        "priors": [
+            {"on": "a", "distribution": "normal", "arguments": {"location": 0, "scale": 1}},
+            {"on": "b", "distribution": "normal", "arguments": {"location": 0, "scale": 1}},
+            {"on": "c", "distribution": "normal", "arguments": {"location": 0, "scale": 1}},
+            {"on": "d", "distribution": "normal", "arguments": {"location": 0.5, "scale": 3},
+             "jacobian_omitted_on_purpose": True},
+        ],
+    }
+    model = compile_model(spec, {})
+    operations = [step[1] for step in model._density.steps]
+    assert any(isinstance(op, ProductCombined) for op in operations)
+    check(spec, seed)
+    u = np.random.default_rng(seed).normal(0.0, 0.6, model.dimension)
+    size = int(np.prod(shape, dtype=int))
+    a = u[:size].reshape(shape)
+    b = u[size]
+    c = u[size + 1:].reshape([] if scalar_c else shape)
+    expected = {"c + a * b": c + a * b, "a * b + c": a * b + c, "c - a * b": c - a * b,
+                "a * b - c": a * b - c, "a * b + a * b": a * b + a * b}[expression]
+    values = model._report.values_at(u)
+    assert np.array_equal(values[model._assembly.derived["d"]], expected)
+
+
+def test_a_product_read_twice_is_not_fused():
+    from worker.modeling.operations import Multiply, ProductCombined
+
+    spec = {
+        "unknowns": {"a": {"shape": [3]}, "b": {}},
+        "derived": {"p": "a * b", "d": "p + a"},
+        "priors": [
+            {"on": "a", "distribution": "normal", "arguments": {"location": 0, "scale": 1}},
+            {"on": "b", "distribution": "normal", "arguments": {"location": 0, "scale": 1}},
+            {"on": "p", "distribution": "normal", "arguments": {"location": 0, "scale": 2},
+             "jacobian_omitted_on_purpose": True},
+            {"on": "d", "distribution": "normal", "arguments": {"location": 0, "scale": 3},
+             "jacobian_omitted_on_purpose": True},
+        ],
+    }
+    model = compile_model(spec, {})
+    operations = [step[1] for step in model._density.steps]
+    assert not any(isinstance(op, ProductCombined) for op in operations)
+    assert any(isinstance(op, Multiply) for op in operations)
+    check(spec, 3)

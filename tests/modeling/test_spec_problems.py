@@ -241,6 +241,31 @@ def test_problem_reported(label, change, where, fragment):
         compile_model(spec, data)
 
 
+@pytest.mark.parametrize("path", [["priors", 0], ["likelihood", 0]])
+def test_unknown_distribution_is_said_before_its_empty_arguments(path):
+    """Issue 11 item 6: an unknown distribution with empty arguments is reported at the
+    distribution, listing the valid names, and nothing is said about the arguments (which
+    arguments are right depends on the distribution)."""
+    spec, data = copy.deepcopy(BASE), copy.deepcopy(DATA)
+    term = spec[path[0]][path[1]]
+    term["distribution"], term["arguments"] = "normall", {}
+    problems = check_model(spec, data)
+    at = "/model/" + "/".join(map(str, path))
+    assert problems[0].pointer == at + "/distribution"
+    assert "unknown distribution 'normall'" in problems[0].message
+    assert "half_normal" in problems[0].message and "poisson" in problems[0].message
+    assert not [p for p in problems if p.pointer.startswith(at + "/arguments")]
+
+
+def test_unknown_distribution_of_a_prediction_is_said_first():
+    spec, data = copy.deepcopy(BASE), copy.deepcopy(DATA)
+    spec["per_draw"]["predictions"] = [{"name": "new", "distribution": "Normal",
+                                         "arguments": {}}]
+    problems = check_model(spec, data)
+    assert [p.pointer for p in problems] == ["/model/per_draw/predictions/0/distribution"]
+    assert "unknown distribution 'Normal'" in problems[0].message
+
+
 def test_table_is_large_enough():
     assert len(CASES) >= 30
 
@@ -292,3 +317,10 @@ def test_every_pointer_resolves(label, change, where, fragment):
     change(spec, data)
     for problem in check_model(spec, data):
         assert _resolves({"model": spec, "data": data}, problem.pointer), problem
+
+
+def test_unknown_distribution_with_malformed_arguments_is_still_a_clean_problem():
+    spec, data = copy.deepcopy(BASE), copy.deepcopy(DATA)
+    spec["priors"][0]["distribution"], spec["priors"][0]["arguments"] = "normall", "location"
+    problems = check_model(spec, data)
+    assert [p.pointer for p in problems] == ["/model/priors/0/distribution"]

@@ -61,7 +61,9 @@ def test_keys_scopes_tenants_audit_and_logs(store, redis_url, live_service, tmp_
         assert refused.status_code == 401, (headers, refused.text)
         assert refused.headers["Content-Type"].startswith(PROBLEM)
         assert refused.headers["WWW-Authenticate"].startswith("Bearer")
-    assert requests.get(f"{api}/jobs", timeout=30).status_code == 401  # web pages too
+    # The web pages too: a browser without a session is sent to the sign-in page.
+    page = requests.get(f"{api}/jobs", timeout=30, allow_redirects=False)
+    assert page.status_code == 303 and page.headers["Location"].startswith("/sign-in?")
     assert requests.get(f"{api}/v1/health/live", timeout=30).status_code == 200  # stays open
 
     made = requests.post(f"{api}/v1/jobs", json=normal_mean(), headers=alpha.headers, timeout=30)

@@ -117,3 +117,19 @@ def test_tenants_isolated_on_both_backends(apps):
         assert client.get(path, headers=bearer(alpha.secret)).status_code == 200
         assert client.get(path, headers=bearer(beta.secret)).status_code == 404
     assert client.get("/v1/jobs", headers=bearer(beta.secret)).get_json()["jobs"] == []
+
+
+def test_metrics_need_the_metrics_scope_and_that_scope_reads_nothing_else(apps):
+    """Issue 13 item 12 / issue 14: /metrics is behind a scope once keys exist."""
+    sessions = apps[0].extensions["drawyard"].sessions
+    reader = create_key(sessions, "alpha", ["submit", "read"])
+    scraper = create_key(sessions, "monitoring", ["metrics"])
+    client = apps[0].test_client()
+    refused = client.get("/metrics")
+    assert refused.status_code == 401 and refused.mimetype == PROBLEM
+    assert refused.headers["WWW-Authenticate"].startswith("Bearer")
+    missing = client.get("/metrics", headers=bearer(reader.secret))
+    assert missing.status_code == 403 and "'metrics' scope" in missing.get_json()["detail"]
+    scraped = client.get("/metrics", headers=bearer(scraper.secret))
+    assert scraped.status_code == 200 and "drawyard_jobs" in scraped.get_data(as_text=True)
+    assert client.get("/v1/jobs", headers=bearer(scraper.secret)).status_code == 403

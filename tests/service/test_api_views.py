@@ -113,6 +113,37 @@ def test_every_problem_is_reported_at_once(app, queue) -> None:
     assert queue.length() == 0
 
 
+def test_unknown_distribution_with_empty_arguments_is_named_first(app, queue) -> None:
+    """Issue 11 item 6: the problem document names the unknown distribution, listing the valid
+    ones, and says nothing about the empty arguments beside it."""
+    body = normal_mean()
+    body["model"]["priors"][0].update(distribution="nromal", arguments={})
+    response, problem = post(app.test_client(), body)
+    assert response.status_code == 422
+    errors = problem["errors"]
+    assert [e["pointer"] for e in errors] == ["/model/priors/0/distribution"]
+    assert "unknown distribution 'nromal'" in errors[0]["message"]
+    assert "normal" in errors[0]["message"].split("known distributions:")[1]
+    assert row_counts(app) == {"jobs": 0, "chains": 0, "events": 0} and queue.length() == 0
+
+
+def test_prior_on_a_nonlinear_derived_quantity_is_refused_unless_flagged(app, queue) -> None:
+    """Issue 11 item 5: a prior on exp(mu) leaves out the Jacobian: 422 at the prior's `on`;
+    with jacobian_omitted_on_purpose the same job is accepted."""
+    body = normal_mean()
+    body["model"]["derived"] = {"level": "exp(mu)"}
+    body["model"]["priors"].append({"on": "level", "distribution": "lognormal",
+                                    "arguments": {"log_location": 0, "log_scale": 2}})
+    response, problem = post(app.test_client(), body)
+    assert response.status_code == 422
+    assert [e["pointer"] for e in problem["errors"]] == ["/model/priors/1/on"]
+    assert "jacobian_omitted_on_purpose" in problem["errors"][0]["message"]
+    assert queue.length() == 0
+    body["model"]["priors"][1]["jacobian_omitted_on_purpose"] = True
+    response, _ = post(app.test_client(), body)
+    assert response.status_code == 202
+
+
 def test_wrong_content_type_bad_json_and_oversized_bodies(app, queue) -> None:
     client = app.test_client()
     cases = [
@@ -256,11 +287,64 @@ def test_openapi_document_is_served_and_self_consistent(app) -> None:
     routes = {
         (method.lower(), re.sub(r"<(?:\w+:)?(\w+)>", r"{\1}", rule.rule))
         for rule in app.url_map.iter_rules()
-        if rule.rule.startswith("/v1/") and rule.rule != "/v1/openapi.json"
+        if rule.rule.startswith(("/v1/", "/metrics"))
         for method in rule.methods - {"HEAD", "OPTIONS"}
     }
     documented = {(m, p) for p, ops in document["paths"].items() for m in ops}
     assert routes == documented
+
+
+def test_openapi_document_validates_and_declares_access_and_headers(app) -> None:
+    """openapi-spec-validator (the OpenAPI Initiative's schema for 3.1, from PyPI) accepts the
+    document; the security, headers and parameters it declares are the ones the service uses."""
+    from openapi_spec_validator import validate
+
+    from service.access.authentication import needed_scope
+
+    client = app.test_client()
+    document = client.get("/v1/openapi.json").get_json()
+    validate(document)
+    operations = [(path, method, op) for path, ops in document["paths"].items()
+                  for method, op in ops.items()]
+    ids = [op["operationId"] for _, _, op in operations]
+    assert len(ids) == len(set(ids)) == len(operations)
+    assert document["servers"] == [{"url": "/"}]
+    schemes = document["components"]["securitySchemes"]
+    assert schemes["bearerKey"] == {**schemes["bearerKey"], "type": "http", "scheme": "bearer"}
+    assert schemes["browserSession"]["in"] == "cookie"
+    for path, method, op in operations:
+        guarded = path.startswith(("/v1/jobs", "/v1/models", "/metrics"))
+        if not guarded:
+            assert op["security"] == [], path
+            continue
+        # The scope each operation declares is the one the access check asks for.
+        with app.test_request_context(path, method=method.upper()):
+            from flask import request
+
+            assert {"bearerKey": [needed_scope(request)]} in op["security"], (method, path)
+        assert op["responses"]["401"]["headers"]["WWW-Authenticate"]["required"]
+        assert op["responses"]["429"]["headers"]["Retry-After"]["required"]
+        for answer in op["responses"].values():
+            assert "X-Request-Id" in answer["headers"]
+    submit = document["paths"]["/v1/jobs"]["post"]["responses"]
+    assert submit["202"]["headers"]["Location"]["required"]
+    assert "Retry-After" in submit["202"]["headers"]
+    draws = document["paths"]["/v1/jobs/{job_id}/draws"]["get"]
+    assert draws["responses"]["200"]["headers"]["ETag"]["required"]
+    assert "If-None-Match" in {p["name"] for p in draws["parameters"]}
+    parameters = {p["name"]: p["schema"] for p in draws["parameters"]}
+    assert parameters["thin"]["type"] == "integer"
+    listing = document["paths"]["/v1/jobs"]["get"]["parameters"]
+    assert {p["name"]: p["schema"] for p in listing}["limit"]["type"] == "integer"
+    assert "text/plain" in document["paths"]["/metrics"]["get"]["responses"]["200"]["content"]
+    # And the answers carry what the document says they always carry.
+    made = client.post("/v1/jobs", json=normal_mean())
+    assert made.headers["Location"].endswith(made.get_json()["id"])
+    assert made.headers["X-Request-Id"]
+    given = client.get("/v1/health/live", headers={"X-Request-Id": "caller-chosen.id:1"})
+    assert given.headers["X-Request-Id"] == "caller-chosen.id:1"
+    odd = client.get("/v1/health/live", headers={"X-Request-Id": "no spaces allowed"})
+    assert re.fullmatch(r"[0-9a-f]{32}", odd.headers["X-Request-Id"])
 
 
 def test_readiness_reflects_the_broker(app, sqlite_store) -> None:
@@ -333,7 +417,10 @@ def test_an_unreachable_broker_refuses_the_job_with_503(sqlite_store) -> None:
     # The job was stored before the broker refused it; it is marked failed, never left queued.
     _, page = get(app.test_client(), "/v1/jobs")
     assert [job["state"] for job in page["jobs"]] == ["failed"]
-    assert "broker" in page["jobs"][0]["error"]
+    assert "queue was unreachable" in page["jobs"][0]["error"]
+    # The broker's own message names its host and port; neither reaches the user.
+    for text in (json.dumps(problem), json.dumps(page)):
+        assert "127.0.0.1" not in text and "redis" not in text.lower()
 
 
 def test_draws_in_a_format_the_service_cannot_write_get_406(app, queue) -> None:

@@ -1,4 +1,4 @@
-"""Migration 0007: jobs stored before keep digests that verify under their recorded scheme;
+"""Migration 0008: jobs stored before keep digests that verify under their recorded scheme;
 chains get a warm-up divergence count of their own; the registry's digests move to RFC 8785.
 Checked on SQLite and PostgreSQL (the unmigrated_url fixture)."""
 
@@ -20,7 +20,7 @@ SPEC = {"title": "scale 1e-7", "unknowns": {"mu": {}}, "priors": [{"scale": 1e-7
 
 
 def test_older_jobs_keep_verifiable_digests_under_their_scheme(unmigrated_url: str) -> None:
-    job_id = store_at_revision_with_a_job(unmigrated_url, "0006")
+    job_id = store_at_revision_with_a_job(unmigrated_url, "0007")
     old_digest = hashlib.sha256(canonical_json(SPEC, SORTED_KEYS)).hexdigest()
     engine = make_engine(unmigrated_url)
     with engine.begin() as connection:

@@ -15,6 +15,7 @@ import threading
 
 import requests
 from alembic import command
+from alembic.script import ScriptDirectory
 from sqlalchemy import create_engine, func, inspect, select, text
 
 from service.app import create_app
@@ -24,7 +25,7 @@ from service.store import migrate
 from service.store.migrate import alembic_config
 from service.store.models import Chain, ChainArray, ModelVersion
 from tests.service.bodies import normal_mean
-from tests.service.store_probe import newest_revision, store_at_revision_with_a_job
+from tests.service.store_probe import store_at_revision_with_a_job
 
 SPEC = normal_mean()["model"]
 
@@ -37,9 +38,9 @@ def test_upgrade_from_0003_keeps_existing_jobs_and_adds_the_registry(unmigrated_
     engine = create_engine(unmigrated_url)
     try:
         with engine.connect() as connection:
-            assert connection.execute(
-                text("SELECT version_num FROM alembic_version")
-            ).scalar() == newest_revision(unmigrated_url)
+            assert connection.execute(text("SELECT version_num FROM alembic_version")).scalar() == (
+                ScriptDirectory.from_config(config).get_current_head()
+            )
             columns = {c["name"] for c in inspect(connection).get_columns("jobs")}
             assert {"model_name", "model_version", "run_sha256", "reused_from",
                     "warm_start_from"} <= columns  # fmt: skip

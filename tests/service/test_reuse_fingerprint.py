@@ -50,7 +50,7 @@ def test_a_job_that_gave_its_checks_is_reused_by_one_that_leaves_them_out(app: F
 def test_a_changed_or_disabled_threshold_is_not_reused(app: Flask, queue):
     body, first = _earlier(app, seed=33)
     client = app.test_client()
-    for checks in ({"min_bulk_ess": 401}, {"min_ebfmi": None}):
+    for checks in ({"min_bulk_ess": 401}, {"min_ebfmi": None}, {"max_depth_saturation": 0.5}):
         response, job = call(client, "POST", "/v1/jobs", {**body, "checks": checks})
         assert response.status_code == 202
         assert job["reused_from"] is None and job["state"] == "queued", checks

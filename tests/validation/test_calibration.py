@@ -9,6 +9,11 @@ section 4.1). We test uniformity of the ranks of mu, tau and theta[1] with a chi
 three together). Sizes are modest for time: 100 replications, one chain of 200 warm-up
 iterations and 297 draws thinned by 3 to 99.
 
+Power: this test catches gross miscalibration through the runner path (a posterior half as wide
+as it should be, test_uniformity_check_rejects_a_miscalibrated_sampler); with 100 replications it
+has little power against a 2 % error in a posterior sd, which needs thousands of rank samples.
+tests/samplers/test_calibration_power.py has that power (300 replicates of 200 coordinates).
+
 Model, a small hierarchical normal one (non-centred): mu ~ N(0, 1), tau ~ half-normal(1),
 eta_j ~ N(0, 1), theta_j = mu + tau eta_j, y_j ~ N(theta_j, 1), j = 1..4. NUTS only.
 """

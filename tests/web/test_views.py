@@ -16,6 +16,7 @@ import re
 import tempfile
 from collections.abc import Iterator
 from pathlib import Path
+from urllib.parse import parse_qs, urlsplit
 
 import pytest
 from flask import Flask
@@ -63,6 +64,16 @@ def demo_form(**changes: str) -> dict[str, str]:
     return form
 
 
+def post_form(client: FlaskClient, path: str, data: dict | None = None, **options):
+    """POST a page's form as the browser would: with the "csrf" field the page rendered."""
+    page = client.get("/submit").get_data(as_text=True)
+    match = re.search(r'name="csrf" value="([^"]+)"', page)
+    fields = dict(data or {})
+    if match is not None:
+        fields["csrf"] = match.group(1)
+    return client.post(path, data=fields, **options)
+
+
 def problems_of(page: str, field: str) -> list[dict[str, str]]:
     """The problems the page lists beside one field: pointer, line and message."""
     block = re.search(rf'<ul class="problems" id="problems-{field}".*?</ul>', page, re.S)
@@ -100,7 +111,7 @@ def test_pages_render_and_the_demo_button_fills_in_the_demo(client: FlaskClient)
 
 
 def test_submitting_the_form_queues_a_job_shown_in_the_list(client: FlaskClient) -> None:
-    answer = client.post("/submit", data=demo_form())
+    answer = post_form(client, "/submit", data=demo_form())
     assert answer.status_code == 303
     job_id = answer.headers["Location"].rsplit("/", 1)[1]
     job = client.get(f"/v1/jobs/{job_id}").get_json()
@@ -121,7 +132,7 @@ def test_submitting_the_form_queues_a_job_shown_in_the_list(client: FlaskClient)
         as_text=True)
 
     # The same form sent twice (a double click) is one job: its token is the idempotency key.
-    again = client.post("/submit", data=demo_form())
+    again = post_form(client, "/submit", data=demo_form())
     assert again.headers["Location"] == answer.headers["Location"]
 
 
@@ -131,7 +142,7 @@ def test_uploaded_files_take_the_place_of_the_text(client: FlaskClient) -> None:
     form["model_text"] = "this text is ignored when a file is chosen"
     form["model_file"] = (io.BytesIO(spec), "spec.json")
     form["data_file"] = (io.BytesIO(data), "data.json")
-    answer = client.post("/submit", data=form, content_type="multipart/form-data")
+    answer = post_form(client, "/submit", data=form, content_type="multipart/form-data")
     assert answer.status_code == 303
     job_id = answer.headers["Location"].rsplit("/", 1)[1]
     assert client.get(f"/v1/jobs/{job_id}").get_json()["state"] == "queued"
@@ -145,7 +156,7 @@ def test_a_bad_label_filter_is_shown_beside_the_filter(client: FlaskClient) -> N
 
 def test_invalid_json_is_shown_at_its_line(client: FlaskClient) -> None:
     broken = '{\n  "title": "x",\n  "inputs": {,\n}'
-    page = client.post("/submit", data=demo_form(model_text=broken))
+    page = post_form(client, "/submit", data=demo_form(model_text=broken))
     assert page.status_code == 422
     text = page.get_data(as_text=True)
     # The standard library's parser puts the stray comma on line 3.
@@ -160,7 +171,7 @@ def test_service_problems_are_placed_beside_their_fields_and_lines(client: Flask
     body = demo_submission(2, 100, 100)
     body["model"]["priors"][1]["distribution"] = "half_norml"
     body["data"]["orders"][3] = -5
-    page = client.post("/submit", data=demo_form(
+    page = post_form(client, "/submit", data=demo_form(
         model_text=json.dumps(body["model"]), data_text=json.dumps(body["data"]), chains="two",
         labels_text="scenario bakery"))
     assert page.status_code == 422
@@ -188,14 +199,14 @@ def spec_line_starts(text: str, line: int, start: str) -> bool:
 def test_refused_submission_stores_nothing(client: FlaskClient) -> None:
     body = demo_submission(2, 100, 100)
     body["model"]["priors"][1]["distribution"] = "half_norml"
-    page = client.post("/submit", data=demo_form(model_text=json.dumps(body["model"])))
+    page = post_form(client, "/submit", data=demo_form(model_text=json.dumps(body["model"])))
     assert page.status_code == 422
     assert client.get("/v1/jobs").get_json()["jobs"] == []
 
 
 def test_cancel_button_cancels_a_queued_job(client: FlaskClient) -> None:
-    job_id = client.post("/submit", data=demo_form()).headers["Location"].rsplit("/", 1)[1]
-    answer = client.post(f"/jobs/{job_id}/cancel")
+    job_id = post_form(client, "/submit", data=demo_form()).headers["Location"].rsplit("/", 1)[1]
+    answer = post_form(client, f"/jobs/{job_id}/cancel")
     assert answer.status_code == 303
     assert client.get(f"/v1/jobs/{job_id}").get_json()["state"] == "cancelled"
     assert "has no results" in client.get(f"/jobs/{job_id}").get_data(as_text=True)
@@ -204,7 +215,7 @@ def test_cancel_button_cancels_a_queued_job(client: FlaskClient) -> None:
 def test_unknown_job_and_unfinished_plots(client: FlaskClient) -> None:
     missing = client.get("/jobs/" + "f" * 32)
     assert missing.status_code == 404 and missing.mimetype == "text/html"
-    job_id = client.post("/submit", data=demo_form()).headers["Location"].rsplit("/", 1)[1]
+    job_id = post_form(client, "/submit", data=demo_form()).headers["Location"].rsplit("/", 1)[1]
     plot = client.get(f"/jobs/{job_id}/plots/trace.svg?quantity=branch_spread")
     assert plot.status_code == 409 and plot.mimetype == "application/problem+json"
 
@@ -218,8 +229,12 @@ def test_the_access_check_guards_every_page(tmp_path: Path, redis_url: str) -> N
     app.extensions[ACCESS_CHECK] = refuse
     client = app.test_client()
     for path in ("/jobs", "/submit", "/jobs/" + "0" * 32):
-        assert client.get(path).status_code == 401
-    assert client.post("/submit", data=demo_form()).status_code == 401
+        answer = client.get(path)
+        # A browser that may not read a page is sent to sign in, and comes back there after.
+        assert answer.status_code == 303
+        location = urlsplit(answer.headers["Location"])
+        assert location.path == "/sign-in" and parse_qs(location.query)["next"] == [path]
+    assert post_form(client, "/submit", data=demo_form()).status_code == 401
 
 
 @pytest.fixture(scope="module")
@@ -337,7 +352,7 @@ def test_the_list_pages_through_older_jobs(client: FlaskClient) -> None:
     from service.web.pages import PAGE_SIZE
 
     for number in range(PAGE_SIZE + 1):
-        assert client.post("/submit", data=demo_form(token=f"t{number}")).status_code == 303
+        assert post_form(client, "/submit", data=demo_form(token=f"t{number}")).status_code == 303
     first = client.get("/jobs").get_data(as_text=True)
     assert first.count('<a href="/jobs/') == PAGE_SIZE
     older = re.search(r'<a href="(/jobs\?cursor=[^"]+)">Older jobs</a>', first)

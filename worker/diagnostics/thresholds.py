@@ -4,6 +4,14 @@ Defaults follow Vehtari et al. (2021) for R-hat (1.01) and ESS (400, i.e. 100 pe
 chains), Betancourt (2016) and common practice for E-BFMI (0.3), and zero divergences (a single
 divergence means part of the posterior was not explored faithfully; common practice). A threshold
 set to None switches its check off.
+
+``max_depth_saturation`` is our own choice: the share of sampling iterations (all chains) whose
+NUTS tree reached ``maximum_tree_depth`` may be at most 0.05. A capped trajectory is still a
+valid transition, it just stops before the no-U-turn criterion would, so a few capped iterations
+(a long trajectory now and then in a tail) cost little and the ESS checks see their effect; a
+share above one in twenty is systematic (scales that differ by orders of magnitude, strong
+correlations) and worth naming as the cause. Warning when many iterations hit the cap is
+common practice.
 """
 
 from __future__ import annotations
@@ -19,6 +27,7 @@ DEFAULT_THRESHOLDS: dict[str, float | int] = {
     "min_tail_ess": 400,
     "max_divergences": 0,
     "min_ebfmi": 0.3,
+    "max_depth_saturation": 0.05,
 }
 
 # the smallest value each threshold may take: R-hat cannot be below 1, the others below 0
@@ -28,7 +37,10 @@ LOWEST_ALLOWED: dict[str, float] = {
     "min_tail_ess": 0.0,
     "max_divergences": 0.0,
     "min_ebfmi": 0.0,
+    "max_depth_saturation": 0.0,
 }
+# thresholds that are shares of iterations, so at most 1
+FRACTIONS = frozenset({"max_depth_saturation"})
 
 
 def check_thresholds(checks: Any, root: str = "/checks") -> list[Problem]:
@@ -62,6 +74,10 @@ def check_thresholds(checks: Any, root: str = "/checks") -> list[Problem]:
         elif value < LOWEST_ALLOWED[name]:
             problems.append(
                 Problem(where, f"The threshold '{name}' must be at least {LOWEST_ALLOWED[name]:g}.")
+            )
+        elif name in FRACTIONS and value > 1:
+            problems.append(
+                Problem(where, f"The threshold '{name}' is a share of iterations: at most 1.")
             )
         elif name == "max_divergences" and value != int(value):
             problems.append(

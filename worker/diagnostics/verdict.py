@@ -87,8 +87,8 @@ def _quantity_failures(record: dict, limits: dict) -> list[dict]:
                     name,
                     value,
                     limit,
-                    f"The {what} of {name} is {shown_against(value, limit, 4)}, below {limit:g}: too few effectively "
-                    "independent draws for reliable estimates.",
+                    f"The {what} of {name} is {shown_against(value, limit, 4)}, below "
+                    f"{limit:g}: too few effectively independent draws for reliable estimates.",
                 )
             )
     return failures
@@ -121,12 +121,43 @@ def _sampler_failures(report: dict, limits: dict) -> list[dict]:
                         None,
                         value,
                         min_ebfmi,
-                        f"E-BFMI of chain {i + 1} is {shown_against(value, min_ebfmi, 3)}, below {min_ebfmi:g}: momentum "
-                        "refreshes move the energy too little, so the tails are explored slowly.",
+                        f"E-BFMI of chain {i + 1} is {shown_against(value, min_ebfmi, 3)}, "
+                        f"below {min_ebfmi:g}: momentum refreshes move the energy too little, "
+                        "so the tails are explored slowly.",
                         chain=i + 1,
                     )
                 )
+    failures.extend(_depth_failures(report, limits))
     return failures
+
+
+def _depth_failures(report: dict, limits: dict) -> list[dict]:
+    """The share of sampling iterations whose tree reached the maximum depth, against its limit."""
+    limit = limits["max_depth_saturation"]
+    hits = report.get("tree_depth_hits_per_chain")
+    draws = report.get("draws_per_chain") or []
+    total = sum(draws)
+    if limit is None or hits is None or total == 0:
+        return []
+    share = sum(hits) / total
+    if share <= limit:
+        return []
+    depth = report.get("maximum_tree_depth")
+    spread = ", ".join(
+        f"chain {i + 1}: {h / n:.0%}" for i, (h, n) in enumerate(zip(hits, draws, strict=True)) if n
+    )
+    return [
+        _failure(
+            "max_depth_saturation",
+            None,
+            share,
+            limit,
+            f"{share:.0%} of sampling iterations ({sum(hits)} of {total}; {spread}) reached the "
+            f"maximum tree depth of {depth}, more than {limit:.0%}: their trajectories were cut "
+            "short, so the chains move slowly and every draw costs the most gradient "
+            "evaluations allowed.",
+        )
+    ]
 
 
 def verdict(summary: list[dict], sampler_report: dict, thresholds: dict | None = None) -> dict:

@@ -7,13 +7,15 @@ declaration is broken its name is marked, and expressions that use it are not re
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 
 from ..problems import Problem, pointer
 from . import expressions as ex
+from . import operations as ops
+from . import reparametrisation
 from .data_checks import DimensionTable, InputValue, check_inputs, element_pointer, flat_label
 from .distributions import (
     SUPPORT_PHRASES,
@@ -24,14 +26,20 @@ from .distributions import (
     support_holds,
 )
 from .graph import Graph, IndexRangeError
+from .linearity import NONLINEAR, classify
+from .reparametrisation import QrReparametrisation
 from .shapes import ValueType, batch_shape, describe
 from .tape import Term, UnknownSlot
 from .transforms import make_transform
+from .work_budget import BudgetExceeded, WorkBudget
 
 SECTIONS = ("inputs", "unknowns", "derived")
 # Variate kinds a prior may put on a continuous unknown, and what the declaration must guarantee.
 POSITIVE_KINDS = {"positive", "nonnegative"}
-DISCRETE_KINDS = {"binary", "nonnegative_integer", "count_up_to_trials", "category"}
+# A prior's flag saying that a prior on a nonlinear derived quantity is meant without its Jacobian.
+JACOBIAN_FLAG = "jacobian_omitted_on_purpose"
+DISCRETE_KINDS = {"binary", "nonnegative_integer", "count_up_to_trials", "category",
+                  "counts_summing_to_trials"}
 
 
 @dataclass
@@ -63,6 +71,10 @@ class Assembly:
     predictions: list[DistributionTerm] = field(default_factory=list)
     replicates: list[str] = field(default_factory=list)
     pointwise: list[str] = field(default_factory=list)
+    reparametrised: list[QrReparametrisation] = field(default_factory=list)
+    # the other unknowns the reparametrisation considered, each with the reason it was not used
+    not_reparametrised: list[dict[str, str]] = field(default_factory=list)
+    reparametrise: bool = True
 
     def terms(self) -> list[Term]:
         return [
@@ -73,15 +85,18 @@ class Assembly:
 
 
 class _Assembler:
-    def __init__(self, spec: dict, data: Any):
+    def __init__(self, spec: dict, data: Any, reparametrise: bool = True):
         self.spec = spec
+        self.reparametrise = reparametrise
         self.problems: list[Problem] = []
         self.broken: set[str] = set()
         self.out = Assembly()
         self.declared_inputs: dict[str, dict] = spec.get("inputs", {})
         self.declared_unknowns: dict[str, dict] = spec["unknowns"]
         self.declared_derived: dict[str, str] = spec.get("derived", {})
+        self.derived_trees: dict[str, ex.Node] = {}
         self.data = data
+        self.budget: WorkBudget = self.out.graph.budget
 
     def problem(self, at: str, message: str) -> None:
         self.problems.append(Problem(at, message))
@@ -100,6 +115,7 @@ class _Assembler:
             else:
                 self.broken.add(name)
         self.unknowns(dims)
+        self.reparametrised_unknowns()
         self.derived()
         covered = self.priors()
         self.likelihood()
@@ -139,13 +155,24 @@ class _Assembler:
                 seen[name] = section_words[section]
 
     # ---- expressions and arguments
-    def expression(self, text: str, at: str, context: str) -> int | None:
+    def parse(self, text: str, at: str, context: str) -> ex.Node | None:
+        """The syntax tree, charged to the work budget; None (with a problem) when it is bad."""
         try:
             tree = ex.parse(text)
         except ex.ExpressionError as error:
             self.problem(at, f"{context}: {error.message} (at character {error.position + 1})")
             return None
-        if ex.names_in(tree) & self.broken:
+        try:
+            self.budget.charge_expression(tree)
+        except BudgetExceeded as error:
+            self.problem(at, f"{context}: {error}")
+            raise
+        return tree
+
+    def expression(self, text: str, at: str, context: str,
+                   tree: ex.Node | None = None) -> int | None:
+        tree = tree or self.parse(text, at, context)
+        if tree is None or ex.names_in(tree) & self.broken:
             return None
         try:
             return self.out.graph.add_expression(tree)
@@ -158,6 +185,9 @@ class _Assembler:
                 self.problem(at, f"{context}: {error.message} (at character {error.position + 1})")
         except ex.ExpressionError as error:
             self.problem(at, f"{context}: {error.message} (at character {error.position + 1})")
+        except BudgetExceeded as error:
+            self.problem(at, f"{context}: {error}")
+            raise
         return None
 
     def argument(self, raw: Any, at: str, context: str) -> int | None:
@@ -260,19 +290,49 @@ class _Assembler:
             offset += size
         self.out.dimension = offset
 
+    def reparametrised_unknowns(self) -> None:
+        """beta = R*^-1 (centre + spread u) for each unknown the QR plan takes; u is sampled."""
+        graph = self.out.graph
+        live = {name: value for name, value in self.out.inputs.items()
+                if name not in self.broken}
+        applied, skipped = reparametrisation.plan(self.spec, live, self.reparametrise)
+        self.out.reparametrise = self.reparametrise
+        self.out.not_reparametrised = skipped
+        positions = {slot.name: k for k, slot in enumerate(self.out.slots)}
+        for qr in applied:
+            if qr.unknown not in positions:
+                continue  # broken declaration, reported already
+            k = positions[qr.unknown]
+            slot = self.out.slots[k]
+            if slot.shape != qr.r_inverse.shape[:1]:
+                continue  # X @ beta does not fit: reported where the product is written
+            vector = ValueType("real", slot.shape)
+            fitted_type = ValueType("real", (qr.q_scaled.shape[0],))
+            u = graph.leaf(vector)
+            beta = graph.operation(ops.BINARY["@"], (
+                graph.constant(qr.spread * qr.r_inverse, "real"), u), vector)
+            beta = graph.operation(ops.BINARY["+"], (
+                beta, graph.constant(qr.r_inverse @ qr.centre, "real")), vector)
+            fitted = graph.operation(ops.BINARY["@"], (
+                graph.constant(qr.spread * qr.q_scaled, "real"), u), fitted_type)
+            fitted = graph.operation(ops.BINARY["+"], (
+                fitted, graph.constant(qr.q_scaled @ qr.centre, "real")), fitted_type)
+            graph.products[(graph.names[qr.matrix], beta)] = fitted
+            graph.names[qr.unknown] = beta
+            self.out.slots[k] = replace(slot, node=u)
+            self.out.reparametrised.append(qr)
+
     # ---- derived quantities
     def derived(self) -> None:
-        trees: dict[str, ex.Node] = {}
+        trees = self.derived_trees
         for name, text in self.declared_derived.items():
             if name in self.broken:
                 continue
-            try:
-                trees[name] = ex.parse(text)
-            except ex.ExpressionError as error:
-                self.problem(pointer("model", "derived", name),
-                             f"derived quantity '{name}': {error.message} "
-                             f"(at character {error.position + 1})")
+            tree = self.parse(text, pointer("model", "derived", name), f"derived quantity '{name}'")
+            if tree is None:
                 self.broken.add(name)
+            else:
+                trees[name] = tree
         depends = {name: sorted(ex.names_in(tree) & set(self.declared_derived))
                    for name, tree in trees.items()}
         order = self.topological_order(depends)
@@ -281,7 +341,7 @@ class _Assembler:
                 self.broken.add(name)
                 continue
             node = self.expression(self.declared_derived[name], pointer("model", "derived", name),
-                                   f"derived quantity '{name}'")
+                                   f"derived quantity '{name}'", trees[name])
             if node is None:
                 self.broken.add(name)
                 continue
@@ -353,6 +413,16 @@ class _Assembler:
             if not self.elementwise_shapes(context, at, distribution, *args, shape,
                                            f"'{target}'"):
                 continue
+            if (target in derived_names and not item.get(JACOBIAN_FLAG, False)
+                    and classify(graph, variate) == NONLINEAR):
+                self.problem(pointer(*at, "on"),
+                             f"{context}: '{target}' is a nonlinear function of the unknowns, and "
+                             "a prior on it leaves out the Jacobian of that function, so "
+                             f"'{target}' would not have the stated distribution; put the prior "
+                             "on an unknown (declare the unknown on the scale the prior is meant "
+                             f"for), or add {JACOBIAN_FLAG}: true to this prior if the density "
+                             "is meant as written")
+                continue
             if target in self.declared_unknowns and distribution.variate_kind == "interval":
                 self.interval_support(target, dict(zip(*args, strict=True)),
                                       pointer(*at, "distribution"), context)
@@ -372,10 +442,10 @@ class _Assembler:
             if name in seen or name not in self.declared_derived:
                 continue
             seen.add(name)
-            try:
-                names = ex.names_in(ex.parse(self.declared_derived[name]))
-            except ex.ExpressionError:
+            tree = self.derived_trees.get(name)
+            if tree is None:
                 continue
+            names = ex.names_in(tree)
             found.update(names & set(self.declared_unknowns))
             stack.extend(names & set(self.declared_derived))
         return found
@@ -464,6 +534,7 @@ class _Assembler:
         constants = {n: graph.nodes[k].value for n, k in zip(*args, strict=True)
                      if graph.nodes[k].constant}
         needs = {"interval": ("lower", "upper"), "count_up_to_trials": ("trials",),
+                 "counts_summing_to_trials": ("trials",),
                  "category": distribution.arguments}.get(distribution.variate_kind, ())
         if any(n not in constants for n in needs):
             return True  # the bound depends on unknowns; the density itself will say -inf
@@ -533,8 +604,17 @@ class _Assembler:
                                                          name=item["name"], at=pointer(*at)))
 
 
-def assemble(spec: dict, data: Any) -> tuple[list[Problem], Assembly]:
-    """Build the graph and terms of a schema-valid spec; problems empty means it is usable."""
-    assembler = _Assembler(spec, data)
-    assembly = assembler.run()
+def assemble(spec: dict, data: Any, reparametrise: bool = True,
+             ) -> tuple[list[Problem], Assembly]:
+    """Build the graph and terms of a schema-valid spec; problems empty means it is usable.
+
+    `reparametrise` allows the QR reparametrisation of linear predictors (reparametrisation.py).
+    """
+    assembler = _Assembler(spec, data, reparametrise)
+    try:
+        assembly = assembler.run()
+    except BudgetExceeded:
+        # The crossing expression's problem is recorded; checking the rest would be the very work
+        # the budget refuses, and its findings would only follow from the parts left unbuilt.
+        return assembler.problems, assembler.out
     return assembler.problems, assembly

@@ -369,3 +369,51 @@ def names_in(node: Node) -> set[str]:
             for row in n.rows:
                 stack.extend(row)
     return found
+
+
+def matrix_product_partners(node: Node, name: str) -> list[str | None]:
+    """For every occurrence of `name`: the name M when it occurs as `M @ name` with M a plain
+    name, else None (any other use)."""
+    partners: list[str | None] = []
+    stack: list[Node] = [node]
+    while stack:
+        n = stack.pop()
+        if isinstance(n, Binary) and n.operator == "@" and isinstance(n.right, Name) \
+                and n.right.name == name and isinstance(n.left, Name):
+            partners.append(n.left.name)
+            continue
+        if isinstance(n, Name):
+            if n.name == name:
+                partners.append(None)
+        elif isinstance(n, Unary):
+            stack.append(n.operand)
+        elif isinstance(n, Binary):
+            stack.extend((n.left, n.right))
+        elif isinstance(n, Call):
+            stack.extend(n.arguments)
+        elif isinstance(n, Index):
+            stack.append(n.target)
+            stack.extend(n.indices)
+        elif isinstance(n, VectorLiteral):
+            stack.extend(n.items)
+        elif isinstance(n, MatrixLiteral):
+            for row in n.rows:
+                stack.extend(row)
+    return partners
+
+
+def children(node: Node) -> list[Node]:
+    """The direct sub-expressions of a node, in source order."""
+    if isinstance(node, Unary):
+        return [node.operand]
+    if isinstance(node, Binary):
+        return [node.left, node.right]
+    if isinstance(node, Call):
+        return list(node.arguments)
+    if isinstance(node, Index):
+        return [node.target, *node.indices]
+    if isinstance(node, VectorLiteral):
+        return list(node.items)
+    if isinstance(node, MatrixLiteral):
+        return [item for row in node.rows for item in row]
+    return []

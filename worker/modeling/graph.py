@@ -21,6 +21,7 @@ from .shapes import (
     describe,
     matrix_product_shape,
 )
+from .work_budget import WorkBudget
 
 
 @dataclass
@@ -45,10 +46,14 @@ class IndexRangeError(ex.ExpressionError):
 
 
 class Graph:
-    def __init__(self) -> None:
+    def __init__(self, budget: WorkBudget | None = None) -> None:
+        self.budget = budget or WorkBudget()
         self.nodes: list[GraphNode] = []
         self.names: dict[str, int] = {}
         self.input_names: set[str] = set()
+        # (data matrix node, coefficient node) -> the node that computes their product another
+        # way: X @ beta as Q* @ u + Q* centre where beta is reparametrised (reparametrisation.py)
+        self.products: dict[tuple[int, int], int] = {}
 
     # ---- building blocks
     def constant(self, value: np.ndarray, kind: str) -> int:
@@ -61,6 +66,8 @@ class Graph:
         return len(self.nodes) - 1
 
     def operation(self, operation: ops.Operation, inputs: tuple[int, ...], type_: ValueType) -> int:
+        # Before anything is computed: folding constants could otherwise build any size of array.
+        self.budget.charge_elements(type_.size)
         nodes = [self.nodes[i] for i in inputs]
         value = None
         if all(n.constant for n in nodes):
@@ -80,7 +87,7 @@ class Graph:
         stack: list[tuple[ex.Node, bool]] = [(tree, False)]
         while stack:
             node, children_done = stack.pop()
-            children = _children(node)
+            children = ex.children(node)
             if not children_done and children:
                 stack.append((node, True))
                 stack.extend((c, False) for c in reversed(children))
@@ -126,6 +133,8 @@ class Graph:
         kind = arithmetic_kind(a.kind, b.kind, operator)
         if operator == "@":
             shape = matrix_product_shape(a.shape, b.shape)
+            if (args[0], args[1]) in self.products:
+                return self.products[(args[0], args[1])]
             return self.operation(ops.BINARY["@"], tuple(args), ValueType("real", shape))
         shape = broadcast(a.shape, b.shape, f"operator '{operator}'")
         return self.operation(ops.BINARY[operator], tuple(args), ValueType(kind, shape))
@@ -238,18 +247,3 @@ class Graph:
         kind = "integer" if all(t.kind == "integer" for t in types) else "real"
         return self.operation(ops.Stack(shape), tuple(args), ValueType(kind, shape))
 
-
-def _children(node: ex.Node) -> list[ex.Node]:
-    if isinstance(node, ex.Unary):
-        return [node.operand]
-    if isinstance(node, ex.Binary):
-        return [node.left, node.right]
-    if isinstance(node, ex.Call):
-        return list(node.arguments)
-    if isinstance(node, ex.Index):
-        return [node.target, *node.indices]
-    if isinstance(node, ex.VectorLiteral):
-        return list(node.items)
-    if isinstance(node, ex.MatrixLiteral):
-        return [item for row in node.rows for item in row]
-    return []

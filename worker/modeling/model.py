@@ -49,9 +49,13 @@ class CompiledModel:
         graph = assembly.graph
         self.dimension = assembly.dimension
         self._slots = assembly.slots
-        self._density = Plan(graph, assembly.slots, assembly.terms(), assembly.dimension)
+        self._density = Plan(graph, assembly.slots, assembly.terms(), assembly.dimension,
+                             constant=sum(q.log_jacobian_of_u for q in assembly.reparametrised))
+        # an unknown's reported value: its slot's node, or beta = R*^-1 theta where reparametrised
+        self._value_nodes = [graph.names[s.name] for s in assembly.slots]
+        self._reparametrised = {q.unknown: q for q in assembly.reparametrised}
         report_nodes = (
-            [s.node for s in assembly.slots]
+            list(self._value_nodes)
             + list(assembly.derived.values())
             + list(assembly.formulas.values())
             # every term's arguments: the trial below evaluates priors and likelihood terms too
@@ -88,6 +92,15 @@ class CompiledModel:
             batch = term.shape[:len(term.shape) - term.distribution.event_ndim]
             names += flat_names(f"pointwise.{name}", batch)
         self.quantity_names = names
+
+    @property
+    def reparametrisation(self) -> dict[str, Any]:
+        """For the sampler report: whether the QR reparametrisation was allowed, where it was
+        applied and, for the other candidates, why not (JSON-able)."""
+        a = self._assembly
+        return {"enabled": a.reparametrise,
+                "applied": [q.record() for q in a.reparametrised],
+                "not_applied": [dict(s) for s in a.not_reparametrised]}
 
     def _trial(self) -> list[tuple[int, ...]]:
         """Evaluate every term once at u = 0 so that misfitting arguments surface as problems."""
@@ -129,6 +142,18 @@ class CompiledModel:
         return {n: values[k] for n, k in zip(term.argument_names, term.argument_nodes,
                                              strict=True)}
 
+    def memory_bytes(self) -> int:
+        """Bytes of the arrays the compiled model holds (data, constants, kernels' buffers)."""
+        seen: dict[int, int] = {}
+        for plan in (self._density, self._report):
+            for array in plan.arrays():
+                base = array if array.base is None else array.base
+                if isinstance(base, np.ndarray):
+                    seen[id(base)] = base.nbytes
+                else:
+                    seen[id(array)] = array.nbytes
+        return sum(seen.values())
+
     # ---- the sampler's interface
     def log_density(self, u: np.ndarray) -> float:
         try:
@@ -167,6 +192,9 @@ class CompiledModel:
                 continue
             with np.errstate(all="ignore"):
                 piece = x.ravel() if slot.transform is None else slot.transform.unconstrain(x)
+                if slot.name in self._reparametrised:
+                    qr = self._reparametrised[slot.name]
+                    piece = (qr.r_scaled @ piece - qr.centre) / qr.spread  # u from beta
             if not np.all(np.isfinite(piece)):
                 problems.append(Problem(at, f"the initial value of '{slot.name}' lies outside "
                                             "the unknown's declared support"))
@@ -176,11 +204,35 @@ class CompiledModel:
             raise InvalidSubmission(problems)
         return u
 
+    def unconstrain_draws(self, rows: np.ndarray) -> np.ndarray:
+        """Stored draws of the unknowns' columns (S, len(unknown_names)), constrained as report()
+        gives them, back to the unconstrained scale (S, dimension); NaN where a value lies
+        outside its support."""
+        rows = np.asarray(rows, dtype=float)
+        out = np.empty((rows.shape[0], self.dimension))
+        column = 0
+        with np.errstate(all="ignore"):
+            for slot in self._slots:
+                size = int(np.prod(slot.shape, dtype=int))
+                block = rows[:, column:column + size]
+                column += size
+                if slot.name in self._reparametrised:
+                    qr = self._reparametrised[slot.name]  # u = (R* beta - centre) / spread
+                    out[:, slot.start:slot.stop] = (block @ qr.r_scaled.T - qr.centre) / qr.spread
+                    continue
+                if slot.transform is None:
+                    out[:, slot.start:slot.stop] = block
+                    continue
+                for s in range(rows.shape[0]):
+                    out[s, slot.start:slot.stop] = slot.transform.unconstrain(
+                        block[s].reshape(slot.shape))
+        return out
+
     def report(self, u: np.ndarray, rng: np.random.Generator) -> np.ndarray:
         """One row of quantity_names at u; draws come from rng in a fixed order."""
         a = self._assembly
         values = self._report.values_at(u)
-        pieces: list[np.ndarray] = [np.ravel(values[s.node]) for s in a.slots]
+        pieces: list[np.ndarray] = [np.ravel(values[n]) for n in self._value_nodes]
         pieces += [np.ravel(values[n]) for n in a.derived.values()]
         pieces += [np.ravel(values[n]) for n in a.formulas.values()]
         with np.errstate(all="ignore"):

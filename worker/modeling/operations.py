@@ -25,15 +25,19 @@ _BLAS_DOT_LIMIT = 1024
 def sum_of_products(a: Array, b: Array) -> float:
     """sum(a * b) over equal shapes, in one pass."""
     if a.size <= _BLAS_DOT_LIMIT:
-        return float(np.vdot(a, b))
+        # the method call is a third of np.vdot's cost on the short vectors of small models
+        return float(a.dot(b)) if a.ndim == 1 else float(a.ravel().dot(b.ravel()))
     return float(np.einsum("i,i->", a.reshape(-1), b.reshape(-1)))
+
+
+_sum = np.add.reduce  # the ufunc's own reduction: no Python wrapper as in ndarray.sum
 
 
 def _reduce_to(grad: Array, shape: tuple[int, ...]) -> Array:
     """Undo scalar broadcasting: the only broadcasting the language allows."""
     if grad.shape == shape:
         return grad
-    return grad.sum()
+    return _sum(grad, None)
 
 
 class Operation:
@@ -94,6 +98,52 @@ def _product_gradient(g: Array, other: Array, shape: tuple[int, ...]) -> Array:
     if other.shape == g.shape:
         return np.float64(sum_of_products(g, other))
     return (g * other).sum()
+
+
+class ProductCombined(Operation):
+    """a + p, p + a, a - p or p - a with p = b * c or b @ c, as one step (inputs a, b, c), fused
+    at plan time.
+
+    Each call does the same floating-point operations as the addition (or subtraction) and the
+    product it replaces, forward and backward, so values and gradients keep their bits; only the
+    order in which several gradient contributions to one node are added up may change. When the
+    product has the result's shape, the sum is written over the product's fresh array: one array
+    and one pass fewer (a linear predictor ``intercept + X @ beta`` over 50,000 rows).
+    """
+
+    __slots__ = ("subtract", "product_first", "product_shape", "product", "in_place", "name")
+
+    def __init__(self, subtract: bool, product_first: bool, product_shape: tuple[int, ...],
+                 product: Operation, result_shape: tuple[int, ...]):
+        self.subtract = subtract
+        self.product_first = product_first
+        self.product_shape = product_shape
+        self.product = product
+        self.in_place = bool(product_shape) and product_shape == result_shape
+        symbol = product.name
+        self.name = (f"(b {symbol} c) - a" if product_first else f"a - (b {symbol} c)") \
+            if subtract else f"a + (b {symbol} c)"
+
+    def forward(self, a, b, c):
+        p = self.product.forward(b, c)
+        if self.in_place and p.dtype == np.float64:  # (a product of two booleans stays boolean)
+            if not self.subtract:
+                return np.add(p, a, out=p)  # IEEE addition is commutative: the bits of a + p
+            return np.subtract(p, a, out=p) if self.product_first else np.subtract(a, p, out=p)
+        if not self.subtract:
+            return a + p
+        return p - a if self.product_first else a - p
+
+    def backward(self, g, inputs, out, needs):
+        a, b, c = inputs
+        ga = gb = gc = None
+        if needs[0]:
+            ga = _reduce_to(-g if self.subtract and self.product_first else g, a.shape)
+        if needs[1] or needs[2]:
+            gp = _reduce_to(-g if self.subtract and not self.product_first else g,
+                            self.product_shape)
+            gb, gc = self.product.backward(gp, [b, c], None, (needs[1], needs[2]))
+        return [ga, gb, gc]
 
 
 class Divide(Operation):

@@ -9,8 +9,11 @@ from typing import Any
 
 from jsonschema import Draft202012Validator, ValidationError
 
+from schemas.validation import SchemaValidator
+
 from ..problems import InvalidSubmission, Problem, pointer
 from .assembly import assemble
+from .distributions import distribution_names
 from .model import CompiledModel
 
 _TYPE_WORDS = {"object": "an object", "array": "an array", "string": "a string",
@@ -32,7 +35,7 @@ def model_schema() -> dict:
 
 @cache
 def _validator() -> Draft202012Validator:
-    return Draft202012Validator(model_schema())
+    return SchemaValidator(model_schema())
 
 
 def _json_type(value: Any) -> str:
@@ -93,13 +96,47 @@ def _sentence(error: ValidationError) -> tuple[str, str]:
     return at, message
 
 
+# Where distribution terms live in a spec: priors, likelihood terms, per-draw predictions.
+_TERM_LISTS = (("priors",), ("likelihood",), ("per_draw", "predictions"))
+
+
+def _unknown_distributions(spec: dict) -> list[Problem]:
+    """A term naming a distribution that does not exist, at its `distribution` member.
+
+    Said before anything about the term's arguments: which arguments are right depends on the
+    distribution, so a complaint about them alone (an empty object, say) would send the user to
+    the wrong field.
+    """
+    known = distribution_names()
+    problems: list[Problem] = []
+    for path in _TERM_LISTS:
+        items: Any = spec
+        for key in path:
+            items = items.get(key) if isinstance(items, dict) else None
+        if not isinstance(items, list):
+            continue
+        for i, item in enumerate(items):
+            name = item.get("distribution") if isinstance(item, dict) else None
+            if isinstance(name, str) and name not in known:
+                shown = name if len(name) <= 64 else name[:61] + "..."
+                problems.append(Problem(pointer("model", *path, i, "distribution"),
+                                        f"unknown distribution '{shown}'; known distributions: "
+                                        f"{', '.join(known)}"))
+    return problems
+
+
 def schema_problems(spec: Any) -> list[Problem]:
-    """Every place the spec breaks schemas/model_spec.json (JSON Schema 2020-12)."""
+    """Every place the spec breaks schemas/model_spec.json (JSON Schema 2020-12), and first of
+    all every term whose distribution does not exist."""
     if not isinstance(spec, dict):
         return [Problem("/model", "the model must be a JSON object")]
+    problems = _unknown_distributions(spec)
+    # the term's other members are judged against a distribution it does not have: leave them
+    silenced = tuple(p.pointer.removesuffix("/distribution") + "/" for p in problems)
     errors = sorted(_validator().iter_errors(spec), key=lambda e: list(map(str, e.absolute_path)))
-    problems: list[Problem] = []
     for error in errors:
+        if silenced and pointer("model", *error.absolute_path).startswith(silenced):
+            continue
         # a oneOf failure carries one sub-error per alternative; the summary sentence is enough
         at, message = _sentence(error)
         problem = Problem(at, message)
@@ -108,11 +145,30 @@ def schema_problems(spec: Any) -> list[Problem]:
     return problems
 
 
-def _build(spec: Any, data: Any) -> tuple[list[Problem], CompiledModel | None]:
+def _only_unknown_names(spec: Any, problems: list[Problem]) -> bool:
+    """Whether the schema's only objections are unknown distribution names, with at most an empty
+    arguments object beside them: what the semantic checks can take as it is."""
+    if not isinstance(spec, dict) or problems != _unknown_distributions(spec):
+        return False
+    flagged = {p.pointer.removesuffix("/distribution") for p in problems}
+    for error in _validator().iter_errors(spec):
+        at = pointer("model", *error.absolute_path)
+        item, _, member = at.rpartition("/")
+        if item not in flagged or (member, error.validator) not in (
+                ("distribution", "pattern"), ("distribution", "maxLength"),
+                ("arguments", "minProperties")):
+            return False
+    return True
+
+
+def _build(spec: Any, data: Any, reparametrise: bool = True,
+           ) -> tuple[list[Problem], CompiledModel | None]:
     problems = schema_problems(spec)
-    if problems:
+    if problems and not _only_unknown_names(spec, problems):
         return problems, None
-    problems, assembly = assemble(spec, {} if data is None else data)
+    # Unknown distributions alone leave the spec's shape intact: the semantic checks still run,
+    # so every other problem is reported too; they say the same about those terms, in context.
+    problems, assembly = assemble(spec, {} if data is None else data, reparametrise)
     if problems:
         return problems, None
     try:
@@ -126,9 +182,12 @@ def check_model(spec: dict, data: dict) -> list[Problem]:
     return _build(spec, data)[0]
 
 
-def compile_model(spec: dict, data: dict) -> CompiledModel:
-    """The compiled model, or InvalidSubmission carrying every problem found."""
-    problems, model = _build(spec, data)
+def compile_model(spec: dict, data: dict, reparametrise: bool = True) -> CompiledModel:
+    """The compiled model, or InvalidSubmission carrying every problem found.
+
+    `reparametrise` allows the automatic QR reparametrisation of linear predictors.
+    """
+    problems, model = _build(spec, data, reparametrise)
     if model is None:
         raise InvalidSubmission(problems)
     return model

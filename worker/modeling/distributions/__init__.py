@@ -38,6 +38,8 @@ _CLASSES: list[type[Distribution]] = [
     continuous.HalfNormal,
     continuous.HalfCauchy,
     continuous.HalfStudentT,
+    continuous.Gumbel,
+    continuous.SkewNormal,
     multivariate.Dirichlet,
     multivariate.MultivariateNormal,
     multivariate.LkjCorrelationFactor,
@@ -51,6 +53,10 @@ _CLASSES: list[type[Distribution]] = [
     discrete.NegativeBinomialLogMean,
     discrete.Categorical,
     discrete.CumulativeLogit,
+    discrete.MultinomialProbability,
+    discrete.MultinomialLogWeights,
+    discrete.BetaBinomial,
+    discrete.ZeroInflatedPoisson,
 ]
 
 # one shared instance per (name, argument set): instances hold no state

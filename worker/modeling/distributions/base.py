@@ -19,6 +19,7 @@ SUPPORT_PHRASES: dict[str, str] = {
     "nonnegative_integer": "a non-negative integer",
     "ordered": "a strictly increasing vector",
     "cholesky_factor": "a lower-triangular matrix with a positive diagonal",
+    "simplex": "a non-negative vector summing to 1",
 }
 
 # Kinds of variate; observed data for a term must lie in the support the kind names.
@@ -33,6 +34,7 @@ VARIATE_PHRASES: dict[str, str] = {
     "count_up_to_trials": "integers from 0 to the argument 'trials'",
     "category": "integers from 1 to the number of categories",
     "simplex": "non-negative vectors summing to 1",
+    "counts_summing_to_trials": "vectors of non-negative integers summing to the argument 'trials'",
     "correlation_factor": "Cholesky factors of correlation matrices",
 }
 
@@ -57,6 +59,9 @@ def support_holds(support: str, value: Array) -> bool:
             return finite and bool(np.all((v >= 0) & (v == np.floor(v))))
         if support == "ordered":
             return finite and v.ndim >= 1 and bool(np.all(np.diff(v, axis=-1) > 0))
+        if support == "simplex":
+            return finite and v.ndim >= 1 and bool(np.all(v >= 0)) and bool(np.all(
+                np.abs(np.sum(v, axis=-1) - 1.0) <= STRUCTURE_TOLERANCE * v.shape[-1]))
         if support == "cholesky_factor":
             if v.ndim < 2 or v.shape[-1] != v.shape[-2] or not finite:
                 return False
@@ -185,6 +190,8 @@ class Distribution:
                 ok = np.all(v >= 0, axis=-1) & (
                     np.abs(np.sum(v, axis=-1) - 1.0) <= STRUCTURE_TOLERANCE * v.shape[-1]
                 )
+            elif kind == "counts_summing_to_trials":
+                ok = np.all(integral & (v >= 0), axis=-1) & (np.sum(v, axis=-1) == args["trials"])
             elif kind == "correlation_factor":
                 ok = correlation_factor_valid(v)
             else:

@@ -7,7 +7,7 @@ Distributions); gradients are their analytic derivatives, computed in the same p
 from __future__ import annotations
 
 import numpy as np
-from scipy.special import betaln, digamma, gammaln, xlog1py, xlogy
+from scipy.special import betaln, digamma, gammaln, log_ndtr, xlog1py, xlogy
 
 from ..special import LOG_2, LOG_2PI, LOG_PI
 from .base import Array, Distribution, mask_or_none, nonnegative, positive
@@ -408,3 +408,65 @@ class Uniform(Distribution):
 
     def _sample(self, rng, shape, lower, upper):
         return lower + (upper - lower) * rng.random(shape)
+
+
+class Gumbel(Distribution):
+    """Largest-extreme-value distribution: log p = -log s - z - exp(-z), z = (x - m) / s."""
+
+    name = "gumbel"
+    arguments = ("location", "scale")
+    argument_support = {"location": "real", "scale": "positive"}
+
+    def _log_density_and_pointwise(self, x, location, scale, wrt) -> Pointwise:
+        z = (x - location) / scale
+        tail = np.exp(-z)
+        val = -np.log(scale) - z - tail
+        grads: dict[str, Array] = {}
+        if wrt:
+            dz = (tail - 1.0) / scale              # d value / dx
+            if "x" in wrt:
+                grads["x"] = dz
+            if "location" in wrt:
+                grads["location"] = -dz
+            if "scale" in wrt:
+                grads["scale"] = (z * (1.0 - tail) - 1.0) / scale
+        return val, grads, None if positive(scale) else mask_or_none(~(scale > 0))
+
+    def _sample(self, rng, shape, location, scale):
+        return rng.gumbel(np.broadcast_to(location, shape), scale)
+
+
+class SkewNormal(Distribution):
+    """Azzalini (1985): p(x) = (2 / s) phi(z) Phi(alpha z), z = (x - m) / s; alpha = 0 is the
+    normal, the sign of alpha the direction of the skew."""
+
+    name = "skew_normal"
+    arguments = ("location", "scale", "shape")
+    argument_support = {"location": "real", "scale": "positive", "shape": "real"}
+
+    def _log_density_and_pointwise(self, x, location, scale, shape, wrt) -> Pointwise:
+        z = (x - location) / scale
+        w = shape * z
+        log_cdf = log_ndtr(w)
+        val = LOG_2 - np.log(scale) - 0.5 * (z * z) - 0.5 * LOG_2PI + log_cdf
+        grads: dict[str, Array] = {}
+        if wrt:
+            # phi(w) / Phi(w) in log space, finite far into the lower tail
+            mills = np.exp(-0.5 * (w * w) - 0.5 * LOG_2PI - log_cdf)
+            dz = -z + shape * mills                # d value / dz
+            if "x" in wrt:
+                grads["x"] = dz / scale
+            if "location" in wrt:
+                grads["location"] = -dz / scale
+            if "scale" in wrt:
+                grads["scale"] = (-1.0 - z * dz) / scale
+            if "shape" in wrt:
+                grads["shape"] = z * mills
+        return val, grads, None if positive(scale) else mask_or_none(~(scale > 0))
+
+    def _sample(self, rng, shape_out, location, scale, shape):
+        # |U| delta + sqrt(1 - delta^2) V, delta = alpha / sqrt(1 + alpha^2) (Azzalini 1985)
+        delta = shape / np.sqrt(1.0 + shape * shape)
+        u = np.abs(rng.standard_normal(shape_out))
+        v = rng.standard_normal(shape_out)
+        return location + scale * (delta * u + np.sqrt(1.0 - delta * delta) * v)

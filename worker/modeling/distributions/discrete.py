@@ -7,10 +7,11 @@ function, so large linear predictors neither overflow nor lose precision.
 from __future__ import annotations
 
 import numpy as np
-from scipy.special import digamma, gammaln, xlog1py, xlogy
+from scipy.special import betaln, digamma, gammaln, xlog1py, xlogy
 
-from ..special import expit, max_last, softplus, sum_last
+from ..special import expit, max_last, softmax, softplus, sum_last
 from .base import (
+    STRUCTURE_TOLERANCE,
     Array,
     Distribution,
     Summed,
@@ -375,3 +376,147 @@ class CumulativeLogit(Distribution):
 
     def _default_shape(self, values):
         return np.broadcast_shapes(values[0].shape, values[1].shape[:-1])
+
+
+def _multinomial_bad(x: Array, trials: Array) -> Array:
+    """Per event: some count is not a non-negative integer, or the counts do not add to trials."""
+    return np.any(_not_count(x), axis=-1) | ~(np.sum(x, axis=-1) == trials) | _not_count(trials)
+
+
+class _Multinomial(Distribution):
+    """Counts of K outcomes in `trials` independent draws, one event per last axis:
+    log p = lgamma(n + 1) - sum_k lgamma(x_k + 1) + sum_k x_k log p_k (Johnson, Kotz &
+    Balakrishnan 1997, Discrete Multivariate Distributions, ch. 35)."""
+
+    name = "multinomial"
+    variate_kind = "counts_summing_to_trials"
+    event_ndim = 1
+    discrete = True
+
+    def _coefficient(self, x: Array, trials: Array) -> Array:
+        return gammaln(trials + 1.0) - sum_last(gammaln(x + 1.0))
+
+    def _default_shape(self, values):
+        trials, weights = values
+        return np.broadcast_shapes(trials.shape, weights.shape[:-1]) + (weights.shape[-1],)
+
+    def _draw(self, rng, shape, trials, probability):
+        n = np.broadcast_to(trials, shape[:-1]).astype(np.int64)
+        return rng.multinomial(n, probability, size=shape[:-1]).astype(np.int64)
+
+
+class MultinomialProbability(_Multinomial):
+    arguments = ("trials", "probability")
+    argument_support = {"trials": "nonnegative_integer", "probability": "simplex"}
+    argument_event_ndim = {"probability": 1}
+
+    def _log_density_and_pointwise(self, x, trials, probability, wrt) -> Pointwise:
+        p = probability
+        val = self._coefficient(x, trials) + sum_last(xlogy(x, p))
+        grads: dict[str, Array] = {}
+        if "probability" in wrt:
+            # x / p, with a zero count contributing nothing even where p is 0
+            grads["probability"] = np.where(x == 0, 0.0, x / p)
+        if "trials" in wrt:
+            grads["trials"] = np.zeros(np.shape(trials))
+        off_simplex = np.any(~(p >= 0), axis=-1) | ~(
+            np.abs(np.sum(p, axis=-1) - 1.0) <= STRUCTURE_TOLERANCE * p.shape[-1])
+        bad = np.broadcast_to(_multinomial_bad(x, trials) | off_simplex, np.shape(val))
+        return val, grads, mask_or_none(bad)
+
+    def _sample(self, rng, shape, trials, probability):
+        return self._draw(rng, shape, trials, probability)
+
+
+class MultinomialLogWeights(_Multinomial):
+    """Probabilities softmax(log_weights) over the last axis."""
+
+    arguments = ("trials", "log_weights")
+    argument_support = {"trials": "nonnegative_integer", "log_weights": "real"}
+    argument_event_ndim = {"log_weights": 1}
+
+    def _log_density_and_pointwise(self, x, trials, log_weights, wrt) -> Pointwise:
+        w = log_weights
+        top = max_last(w)
+        top = np.where(np.isfinite(top), top, 0.0)
+        shifted = np.exp(w - top[..., None])
+        total = sum_last(shifted)
+        log_total = top + np.log(total)
+        n = np.sum(x, axis=-1)
+        val = self._coefficient(x, trials) + sum_last(x * w) - n * log_total
+        grads: dict[str, Array] = {}
+        if "log_weights" in wrt:
+            grads["log_weights"] = x - (n / total)[..., None] * shifted
+        if "trials" in wrt:
+            grads["trials"] = np.zeros(np.shape(trials))
+        bad = np.broadcast_to(_multinomial_bad(x, trials), np.shape(val))
+        return val, grads, mask_or_none(bad)
+
+    def _sample(self, rng, shape, trials, log_weights):
+        return self._draw(rng, shape, trials, softmax(log_weights))
+
+
+class BetaBinomial(Distribution):
+    """Binomial counts whose probability is Beta(a, b) distributed:
+    log p = log C(n, x) + log B(x + a, n - x + b) - log B(a, b)."""
+
+    name = "beta_binomial"
+    arguments = ("trials", "a", "b")
+    variate_kind = "count_up_to_trials"
+    argument_support = {"trials": "nonnegative_integer", "a": "positive", "b": "positive"}
+    discrete = True
+
+    def _log_density_and_pointwise(self, x, trials, a, b, wrt) -> Pointwise:
+        failures = trials - x
+        val = (_binomial_coefficient(x, trials) + betaln(x + a, failures + b) - betaln(a, b))
+        grads: dict[str, Array] = {}
+        if "a" in wrt or "b" in wrt:
+            common = digamma(a + b) - digamma(trials + a + b)
+            if "a" in wrt:
+                grads["a"] = digamma(x + a) - digamma(a) + common
+            if "b" in wrt:
+                grads["b"] = digamma(failures + b) - digamma(b) + common
+        if "trials" in wrt:
+            grads["trials"] = np.zeros(np.shape(trials))
+        bad = _not_count_up_to(x, trials) | ~(a > 0) | ~(b > 0)
+        return val, grads, mask_or_none(bad)
+
+    def _sample(self, rng, shape, trials, a, b):
+        p = rng.beta(np.broadcast_to(a, shape), np.broadcast_to(b, shape))
+        return rng.binomial(np.broadcast_to(trials, shape).astype(np.int64), p)
+
+
+class ZeroInflatedPoisson(Distribution):
+    """A zero with probability pi, else a Poisson(rate) count (Lambert 1992):
+    p(0) = pi + (1 - pi) exp(-rate), p(x > 0) = (1 - pi) rate^x exp(-rate) / x!."""
+
+    name = "zero_inflated_poisson"
+    arguments = ("zero_probability", "rate")
+    variate_kind = "nonnegative_integer"
+    argument_support = {"zero_probability": "unit", "rate": "nonnegative"}
+    discrete = True
+
+    def _log_density_and_pointwise(self, x, zero_probability, rate, wrt) -> Pointwise:
+        pi = zero_probability
+        zero = x == 0
+        keep = np.log1p(-pi)
+        poisson = xlogy(x, rate) - rate - gammaln(x + 1.0)
+        # log(pi + (1 - pi) exp(-rate)) without cancellation when pi is tiny or rate large
+        at_zero = np.logaddexp(np.log(pi), keep - rate)
+        val = np.where(zero, at_zero, keep + poisson)
+        grads: dict[str, Array] = {}
+        if wrt:
+            # share of a zero's probability that comes from the Poisson part
+            from_poisson = np.exp(keep - rate - at_zero)
+            if "zero_probability" in wrt:
+                grads["zero_probability"] = np.where(
+                    zero, (1.0 - np.exp(-rate)) * np.exp(-at_zero), -1.0 / (1.0 - pi))
+            if "rate" in wrt:
+                grads["rate"] = np.where(zero, -from_poisson, x / rate - 1.0)
+        if counts(x) and nonnegative(pi, 1.0 - pi, rate):
+            return val, grads, None
+        return val, grads, mask_or_none(_not_count(x) | ~((pi >= 0) & (pi <= 1)) | ~(rate >= 0))
+
+    def _sample(self, rng, shape, zero_probability, rate):
+        counts_ = rng.poisson(np.broadcast_to(rate, shape))
+        return np.where(rng.random(shape) < zero_probability, 0, counts_).astype(np.int64)

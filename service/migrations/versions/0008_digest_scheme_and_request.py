@@ -1,7 +1,7 @@
 """digest scheme and body as sent per job; warm-up divergences apart; draws column types
 
-Revision ID: 0007
-Revises: 0006
+Revision ID: 0008
+Revises: 0007
 Create Date: 2026-12-03 08:45:00
 
 - jobs.digest_scheme: the canonical JSON the job's digests were taken over. From this revision on
@@ -25,8 +25,8 @@ import json
 import sqlalchemy as sa
 from alembic import op
 
-revision = "0007"
-down_revision = "0006"
+revision = "0008"
+down_revision = "0007"
 branch_labels = None
 depends_on = None
 
