@@ -412,7 +412,7 @@ def test_csv_data_upload_is_read_as_the_cli_reads_it(client: FlaskClient) -> Non
     text = "\n".join(lines) + "\n"
     form = demo_form(token="csv-token", data_text=json.dumps(scalars))
     form["data_file"] = (io.BytesIO(text.encode()), "rows.csv")
-    answer = client.post("/submit", data=form, content_type="multipart/form-data")
+    answer = post_form(client, "/submit", data=form, content_type="multipart/form-data")
     assert answer.status_code == 303, answer.get_data(as_text=True)
     job_id = answer.headers["Location"].rsplit("/", 1)[1]
     stored = client.get(f"/v1/jobs/{job_id}/request").get_json()["data"]
@@ -424,7 +424,7 @@ def test_csv_data_upload_is_read_as_the_cli_reads_it(client: FlaskClient) -> Non
 
 
 def test_the_error_summary_links_name_their_field(client: FlaskClient) -> None:
-    answer = client.post("/submit", data=demo_form(model_text="{", token="bad-token"))
+    answer = post_form(client, "/submit", data=demo_form(model_text="{", token="bad-token"))
     page = answer.get_data(as_text=True)
     links = re.findall(r'<li><a href="#[^"]+">([^<]+)</a></li>', page)
     assert links and all(re.fullmatch(r"[A-Z][a-z ]+\w*: \d+ problems?", t) for t in links)
@@ -432,10 +432,11 @@ def test_the_error_summary_links_name_their_field(client: FlaskClient) -> None:
 
 
 def test_a_cancelled_job_is_shown_as_cancelled_in_the_list(client: FlaskClient) -> None:
-    made = client.post("/submit", data=demo_form(token="cancel-list"))
+    made = post_form(client, "/submit", data=demo_form(token="cancel-list"))
     job_id = made.headers["Location"].rsplit("/", 1)[1]
-    client.post(f"/jobs/{job_id}/cancel")
+    post_form(client, f"/jobs/{job_id}/cancel")
     listing = client.get("/jobs").get_data(as_text=True)
-    row = re.search(rf'<tr>\s*<td><a href="/jobs/{job_id}">.*?</tr>', listing, re.S).group(0)
+    found = re.search(rf'<tr>(?:(?!</tr>).)*?<a href="/jobs/{job_id}">.*?</tr>', listing, re.S)
+    row = found.group(0)
     assert "none yet" not in row and "not judged (cancelled)" in row
     assert f"0 of {SMALL['chains']}; {SMALL['chains']} cancelled" in row
