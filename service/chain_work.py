@@ -153,7 +153,10 @@ class ChainMonitor:
     lease: Lease
     phase: str | None = None
     iteration: int = 0
+    # Apart by phase, so neither count ever falls when a chain leaves warm-up; None until the
+    # engine reports warm-up here (a chain resumed in sampling keeps the stored warm-up count).
     divergences: int = 0
+    warmup_divergences: int | None = None
     stop_reason: str | None = None
     _checkpoint: tuple[bytes, int] | None = None
     _written_checkpoint_iteration: int = -1
@@ -167,7 +170,11 @@ class ChainMonitor:
 
     # --- the engine's callbacks: cheap, no I/O -----------------------------------------------
     def progress(self, phase: str, iteration: int, divergences: int) -> None:
-        self.phase, self.iteration, self.divergences = phase, int(iteration), int(divergences)
+        self.phase, self.iteration = phase, int(iteration)
+        if phase == "warmup":
+            self.warmup_divergences = int(divergences)
+        else:
+            self.divergences = int(divergences)
         crash_drill.maybe_kill(self.lease.chain_index, self.iteration)
         every = self.runtime.settings.checkpoint_seconds
         if (
@@ -177,6 +184,12 @@ class ChainMonitor:
         ):
             # Called between iterations, where a snapshot resumes exactly, like the engine's own.
             self.checkpoint(self.snapshot_source())
+
+    def divergence_counts(self) -> dict[str, int]:
+        counts = {"divergences": self.divergences}
+        if self.warmup_divergences is not None:
+            counts["warmup_divergences"] = self.warmup_divergences
+        return counts
 
     def should_stop(self) -> bool:
         return self._stop_flag.is_set()
@@ -215,7 +228,7 @@ class ChainMonitor:
         values: dict[str, Any] = {
             "phase": self.phase,
             "iteration": self.iteration,
-            "divergences": self.divergences,
+            **self.divergence_counts(),
             "updated_at": now,
             "lease_expires_at": now + timedelta(seconds=settings.lease_seconds),
         }
@@ -361,7 +374,7 @@ def end_chain(
         last = {
             "phase": monitor.phase,
             "iteration": monitor.iteration,
-            "divergences": monitor.divergences,
+            **monitor.divergence_counts(),
         }
     with transaction(runtime.sessions) as session:
         done = session.execute(
@@ -390,7 +403,8 @@ class TimeLimitStop:
     iteration: int  # iterations finished, warm-up included
     warmup_iterations: int  # warm-up iterations finished
     draws: int  # sampling-phase draws kept
-    divergences: int  # in the phase it stopped in, as progress reports count them
+    divergences: int  # in sampling
+    warmup_divergences: int
 
     @classmethod
     def of(cls, result: Any, limit_seconds: int) -> TimeLimitStop:
@@ -398,10 +412,11 @@ class TimeLimitStop:
         # lengths say exactly where it stopped (progress reports are only every 1% or so).
         warmup = max((len(v) for v in dict(result.warmup_stats).values()), default=0)
         draws = int(np.asarray(result.values).shape[0])
-        phase_stats = dict(result.stats) if draws else dict(result.warmup_stats)
-        divergent = phase_stats.get("divergent")
-        divergences = 0 if divergent is None else int(np.count_nonzero(divergent))
-        return cls(int(limit_seconds), warmup + draws, warmup, draws, divergences)
+        counts = [
+            int(np.count_nonzero(stats.get("divergent", ())))
+            for stats in (dict(result.stats), dict(result.warmup_stats))
+        ]
+        return cls(int(limit_seconds), warmup + draws, warmup, draws, *counts)
 
     @property
     def phase(self) -> str:
@@ -446,7 +461,7 @@ def store_result(
     ending: dict[str, Any] = {
         "iteration": Chain.iterations_total,
         "phase": monitor.phase,
-        "divergences": monitor.divergences,
+        **monitor.divergence_counts(),
     }
     detail: dict[str, Any] = {"draws_sha256": draws.sha256}
     if stopped is not None:
@@ -455,6 +470,7 @@ def store_result(
             "iteration": stopped.iteration,
             "phase": stopped.phase,
             "divergences": stopped.divergences,
+            "warmup_divergences": stopped.warmup_divergences,
             "error": stopped.reason(total),
         }
         detail.update(stopped.detail(total))
@@ -482,6 +498,8 @@ def store_result(
             return False
         started_at = session.scalar(select(Chain.started_at).where(Chain.id == lease.chain_id))
         session.execute(delete(ChainArray).where(ChainArray.chain_id == lease.chain_id))
+        integers = getattr(result, "integer_names", frozenset())
+        types = ["int64" if name in integers else "float64" for name in result.names]
         rows = [("draws", "draws", draws, list(result.names))]
         rows += [("stat", name, encoded, None) for name, encoded in stats.items()]
         session.add_all(
@@ -490,6 +508,7 @@ def store_result(
                 kind=kind,
                 name=name,
                 columns=columns,
+                column_types=types if kind == "draws" else None,
                 encoding=ENCODING,
                 dtype=encoded.dtype,
                 shape=encoded.shape,

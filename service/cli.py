@@ -16,8 +16,11 @@ from typing import NoReturn
 from service.access.commands import add_keys_command, serve_host
 from service.config import load_settings
 from service.local_stack import CELERY_APP, LocalStack, StartupError
+from service.versions import software_versions
 
 LOG_LEVELS = ("DEBUG", "INFO", "WARNING", "ERROR")
+# 128 + SIGPIPE: what a shell reports for a filter whose reader closed the pipe.
+EXIT_BROKEN_PIPE = 141
 
 BANNER_WIDTH = 78
 
@@ -100,10 +103,16 @@ def _add_worker(commands: argparse._SubParsersAction) -> None:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    from service.job_commands import add_connection_group
+
     parser = argparse.ArgumentParser(
         prog="drawyard",
-        description="Bayesian posterior sampling as queued jobs behind a REST API.",
+        description="Bayesian posterior sampling as queued jobs behind a REST API. The service "
+        "options may be given before the command as well as after it.",
     )
+    parser.add_argument("--version", action="version",
+                        version=f"drawyard {software_versions()['drawyard']}")
+    add_connection_group(parser)
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     _add_serve(commands)
     _add_migrate(commands)
@@ -240,7 +249,15 @@ def run_worker(args: argparse.Namespace) -> NoReturn:
 
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
-    return int(args.run(args))
+    try:
+        status = int(args.run(args))
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # The reader went away (`drawyard list | head`): stop quietly, as other filters do. Python
+        # would flush stdout again at exit and fail once more, so it is pointed at nothing.
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_BROKEN_PIPE
+    return status
 
 
 if __name__ == "__main__":

@@ -29,6 +29,8 @@ class Selection:
     columns: list[int]  # indices into the stored columns
     names: list[str]  # names of the chosen columns
     thin: int
+    # natural type of each chosen column (service/formats/column_types.py); empty: all float64
+    types: tuple[str, ...] = ()
 
 
 # Python's own %-formatting of a float with 17 significant digits; finite values never contain a
@@ -52,23 +54,54 @@ def _formatted(template: str, values: list, block: np.ndarray,
     return text
 
 
-def json_rows(values: np.ndarray) -> Iterator[str]:
+def _cell_formats(types: Sequence[str], columns: int) -> list[str]:
+    """Reals with 17 digits; whole numbers and yes/no as the text _typed_cells makes of them."""
+    kinds = list(types) or ["float64"] * columns
+    return [_CELL if kind == "float64" else "%s" for kind in kinds]
+
+
+def _typed_cells(
+    block: np.ndarray, types: Sequence[str], words: tuple[str, str, str]
+) -> np.ndarray:
+    """The block as the values its template formats: unchanged when every column is real (the
+    fast path), else an object array with whole numbers as Python ints (``missing`` where there is
+    no value) and yes/no as ``true``/``false``; ``words`` is (true, false, missing)."""
+    special = [i for i, kind in enumerate(types) if kind != "float64"]
+    if not special:
+        return block
+    cells = block.astype(object)
+    true, false, missing = words
+    for i in special:
+        column = block[:, i]
+        if types[i] == "bool":
+            cells[:, i] = np.where(column != 0, true, false)
+        else:
+            finite = np.isfinite(column)
+            whole = np.where(finite, column, 0).astype(np.int64).astype(object)
+            cells[:, i] = np.where(finite, whole, missing)
+    return cells
+
+
+def json_rows(values: np.ndarray, types: Sequence[str] = ()) -> Iterator[str]:
     """``[a,b,...]`` rows separated by commas, block by block."""
     values = np.asarray(values, dtype=np.float64)
-    line = "[" + ",".join([_CELL] * values.shape[1]) + "]"
+    line = "[" + ",".join(_cell_formats(types, values.shape[1])) + "]"
     step = _rows_per_block(values.shape[1])
     for start in range(0, values.shape[0], step):
         block = values[start : start + step]
         template = ",".join([line] * block.shape[0])
-        text = _formatted(template, block.ravel().tolist(), block, _NON_FINITE_JSON)
+        cells = _typed_cells(block, types, ("true", "false", "null")).ravel().tolist()
+        text = _formatted(template, cells, block, _NON_FINITE_JSON)
         yield ("," if start else "") + text
 
 
-def csv_rows(chain_number: int, first_draw: int, thin: int, values: np.ndarray) -> Iterator[str]:
+def csv_rows(
+    chain_number: int, first_draw: int, thin: int, values: np.ndarray, types: Sequence[str] = ()
+) -> Iterator[str]:
     """``chain,draw,values...`` lines; draw numbers are 1-based positions in the stored chain."""
     values = np.asarray(values, dtype=np.float64)
     columns = values.shape[1]
-    line = f"{chain_number},%d" + "".join(["," + _CELL] * columns) + "\n"
+    line = f"{chain_number},%d" + "".join("," + f for f in _cell_formats(types, columns)) + "\n"
     step = _rows_per_block(columns)
     for start in range(0, values.shape[0], step):
         block = values[start : start + step]
@@ -76,7 +109,9 @@ def csv_rows(chain_number: int, first_draw: int, thin: int, values: np.ndarray) 
         # each row's draw number (exact as a float64 below 2^53; %d prints it whole), then its
         # cells, in one flat list matching the template
         draw_numbers = first_draw + thin * np.arange(start, start + rows, dtype=np.float64)
-        cells = np.column_stack((draw_numbers, block)).ravel().tolist()
+        # an empty field is what CSV readers take for a missing value
+        typed = _typed_cells(block, types, ("true", "false", ""))
+        cells = np.column_stack((draw_numbers.astype(typed.dtype), typed)).ravel().tolist()
         yield _formatted(line * rows, cells, block, _NON_FINITE)
 
 
@@ -99,7 +134,7 @@ def stream_json(
     for position, chain_index in enumerate(selection.chains):
         values = load_chain(chain_index)[:: selection.thin, selection.columns]
         yield ("," if position else "") + f'{{"chain":{chain_index + 1},"draws":['
-        yield from json_rows(values)
+        yield from json_rows(values, selection.types)
         yield "]}"
     yield "]}\n"
 
@@ -110,4 +145,4 @@ def stream_csv(
     yield ",".join(csv_quote(h) for h in ["chain", "draw", *header]) + "\n"
     for chain_index in selection.chains:
         values = load_chain(chain_index)[:: selection.thin, selection.columns]
-        yield from csv_rows(chain_index + 1, 1, selection.thin, values)
+        yield from csv_rows(chain_index + 1, 1, selection.thin, values, selection.types)

@@ -52,6 +52,10 @@ The service URL comes from --url, else the DRAWYARD_URL environment variable, el
 
 FETCHABLE = ("summary", "draws", "sampler-stats", "diagnostics", "audit")
 STATES = ("queued", "running", "succeeded", "failed", "cancelled", "timed_out")
+VERDICTS = ("passed", "failed", "none")
+# Our choice: often enough that a log shows a long job alive, seldom enough that a night's job
+# writes about a hundred lines an hour.
+HEARTBEAT_SECONDS = 30.0
 
 
 class InputProblem(Exception):
@@ -224,12 +228,16 @@ def _report_final(job: Job, as_json: bool) -> int:
 
 
 def _client(args: argparse.Namespace) -> DrawyardClient:
+    # The connection options may stand before the subcommand or after it (add_connection_group
+    # leaves unset ones out of the namespace), so the defaults are applied here.
+    given = {**CONNECTION_DEFAULTS}
+    given.update((k, v) for k, v in vars(args).items() if k in CONNECTION_DEFAULTS)
     return DrawyardClient(
-        args.url or os.environ.get("DRAWYARD_URL") or DEFAULT_URL,
-        connect_timeout=args.connect_timeout,
-        read_timeout=args.read_timeout,
-        retry=RetryPolicy(retries=args.retries),
-        api_key=args.api_key or os.environ.get("DRAWYARD_API_KEY"),
+        given["url"] or os.environ.get("DRAWYARD_URL") or DEFAULT_URL,
+        connect_timeout=given["connect_timeout"],
+        read_timeout=given["read_timeout"],
+        retry=RetryPolicy(retries=given["retries"]),
+        api_key=given["api_key"] or os.environ.get("DRAWYARD_API_KEY"),
     )
 
 
@@ -264,7 +272,8 @@ def _guarded(command: str, action: Callable[[argparse.Namespace], int]) -> Calla
 def _wait(client: DrawyardClient, job_id: str, args: argparse.Namespace) -> Job:
     progress = False if args.no_progress else None
     return wait_for_job(
-        client, job_id, interval=args.interval, timeout=args.timeout, progress=progress
+        client, job_id, interval=args.interval, timeout=args.timeout, progress=progress,
+        heartbeat=args.heartbeat, heartbeat_stream=sys.stderr,
     )
 
 
@@ -389,20 +398,23 @@ def run_cancel(args: argparse.Namespace) -> int:
 
 def run_list(args: argparse.Namespace) -> int:
     states = [s for item in args.state for s in item.split(",") if s]
+    verdicts = [v for item in args.verdict for v in item.split(",") if v]
     with _client(args) as client:
         if args.all:
-            jobs = list(client.iter_jobs(states, args.label, args.limit))
+            jobs = list(client.iter_jobs(states, args.label, args.limit, verdicts))
             cursor = None
         else:
-            page = client.list_jobs(states, args.label, args.limit)
+            page = client.list_jobs(states, args.label, args.limit, verdicts=verdicts)
             jobs, cursor = page.jobs, page.next_cursor
     if args.json:
         print(json.dumps({"jobs": [j.raw for j in jobs], "next_cursor": cursor}, indent=2))
         return EXIT_PASSED
+    if not args.no_header:
+        print(f"{'JOB':<32}  {'STATE':<9}  {'CREATED':<24}  {'VERDICT':<7}  LABELS")
     for job in jobs:
         verdict = "-" if job.verdict is None else ("passed" if job.verdict.passed else "failed")
         labels = ",".join(f"{k}:{v}" for k, v in sorted(job.labels.items())) or "-"
-        print(f"{job.id}  {job.state:<9}  {job.created_at or '-'}  checks {verdict:<6}  {labels}")
+        print(f"{job.id}  {job.state:<9}  {job.created_at or '-':<24}  {verdict:<7}  {labels}")
     if cursor:
         _say("more jobs match; --all lists every page")
     return EXIT_PASSED
@@ -447,22 +459,35 @@ def run_check(args: argparse.Namespace) -> int:
 # ---- the parser -------------------------------------------------------------------------------
 
 
-def _connection_options() -> argparse.ArgumentParser:
-    common = argparse.ArgumentParser(add_help=False)
-    group = common.add_argument_group("service")
-    group.add_argument("--url", default=None,
+CONNECTION_DEFAULTS: dict[str, Any] = {
+    "url": None, "api_key": None, "connect_timeout": 5.0, "read_timeout": 30.0, "retries": 5,
+}
+
+
+def add_connection_group(parser: argparse.ArgumentParser) -> None:
+    """The service options, on the top-level parser and on each subcommand's. Unset ones stay out
+    of the namespace (argparse.SUPPRESS), so a subcommand's parser, which fills in its defaults
+    after the top-level one has parsed, never hides a value given before the subcommand."""
+    group = parser.add_argument_group("service")
+    hidden = argparse.SUPPRESS
+    group.add_argument("--url", default=hidden,
                        help=f"service base URL (default: $DRAWYARD_URL, else {DEFAULT_URL})")
-    group.add_argument("--api-key", default=None, metavar="KEY",
+    group.add_argument("--api-key", default=hidden, metavar="KEY",
                        help="API key, sent as 'Authorization: Bearer KEY' (default: "
                             "$DRAWYARD_API_KEY; prefer the variable, since arguments are visible "
                             "to other users of the machine)")
-    group.add_argument("--connect-timeout", type=float, default=5.0, metavar="SECONDS",
+    group.add_argument("--connect-timeout", type=float, default=hidden, metavar="SECONDS",
                        help="give up connecting after this long (default: 5)")
-    group.add_argument("--read-timeout", type=float, default=30.0, metavar="SECONDS",
+    group.add_argument("--read-timeout", type=float, default=hidden, metavar="SECONDS",
                        help="give up waiting for an answer after this long (default: 30)")
-    group.add_argument("--retries", type=int, default=5, metavar="N",
+    group.add_argument("--retries", type=int, default=hidden, metavar="N",
                        help="repeats after 429/503 answers or failed connections, waiting as "
                             "Retry-After says or with jittered exponential backoff (default: 5)")
+
+
+def _connection_options() -> argparse.ArgumentParser:
+    common = argparse.ArgumentParser(add_help=False)
+    add_connection_group(common)
     return common
 
 
@@ -477,6 +502,10 @@ def _waiting_options() -> argparse.ArgumentParser:
     group.add_argument("--no-progress", action="store_true",
                        help="no progress bar even on a terminal (none is drawn when stdout is "
                             "not a terminal)")
+    group.add_argument("--heartbeat", type=float, default=HEARTBEAT_SECONDS, metavar="SECONDS",
+                       help="when stdout is not a terminal, a time-stamped progress line on "
+                            f"stderr every this many seconds, and one at the end (default: "
+                            f"{HEARTBEAT_SECONDS:g}; 0 for none)")
     group.add_argument("--json", action="store_true",
                        help="print the finished job's JSON resource on stdout")
     return common
@@ -610,12 +639,18 @@ def add_job_commands(commands: argparse._SubParsersAction) -> None:
 
     listing = add(
         "list", "list jobs, newest first",
-        "One line per job: id, state, creation time, verdict and labels.",
+        "A header row, then one line per job: id, state, creation time, verdict and labels.",
         [connection], run_list, "list",
     )
     listing.add_argument("--state", action="append", default=[], metavar="STATE",
                          help=f"only jobs in these states ({', '.join(STATES)}; comma-separated "
                               "or repeated)")
+    listing.add_argument("--verdict", action="append", default=[], metavar="VERDICT",
+                         help=f"only jobs with this quality verdict ({', '.join(VERDICTS)}; "
+                              "'none': not judged, as for a failed or cancelled job; "
+                              "comma-separated or repeated)")
+    listing.add_argument("--no-header", action="store_true",
+                         help="leave out the header row (for scripts that read the lines)")
     listing.add_argument("--label", action="append", default=[], metavar="KEY:VALUE",
                          help="only jobs with this label (repeatable; all must match)")
     listing.add_argument("--limit", type=int, default=None, metavar="N",

@@ -8,7 +8,7 @@ from collections import defaultdict
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from sqlalchemy import select, update
+from sqlalchemy import or_, select, update
 from sqlalchemy.orm import Session
 
 from service import events
@@ -20,6 +20,16 @@ from service.store.engine import transaction
 from service.store.models import JOB_STATES, TERMINAL_STATES, Chain, Job, JobLabel, utc_now
 
 CURSOR_PREFIX = "jobs-before:"
+
+# The quality verdict a job carries: "passed" or "failed" once judged, "none" before (or when it
+# ended without one: failed, cancelled).
+VERDICTS = ("passed", "failed", "none")
+VERDICT_CONDITIONS = {
+    "passed": lambda: Job.verdict["passed"].as_boolean().is_(True),
+    "failed": lambda: Job.verdict["passed"].as_boolean().is_(False),
+    # SQL NULL and JSON null alike give no member
+    "none": lambda: Job.verdict["passed"].as_boolean().is_(None),
+}
 
 
 def not_found(job_id: str) -> ApiProblem:
@@ -70,9 +80,12 @@ def bad_parameter(name: str, message: str) -> ApiProblem:
 class JobFilter:
     states: tuple[str, ...] = ()
     labels: tuple[tuple[str, str], ...] = ()
+    verdicts: tuple[str, ...] = ()
 
     @classmethod
-    def parse(cls, states: Sequence[str], labels: Sequence[str]) -> JobFilter:
+    def parse(
+        cls, states: Sequence[str], labels: Sequence[str], verdicts: Sequence[str] = ()
+    ) -> JobFilter:
         wanted = tuple(s for raw in states for s in raw.split(",") if s)
         unknown = [s for s in wanted if s not in JOB_STATES]
         if unknown:
@@ -88,7 +101,14 @@ class JobFilter:
                 # No stored label holds one, and PostgreSQL refuses NUL in a text parameter.
                 raise bad_parameter("label", "A label filter cannot hold a NUL character.")
             pairs.append((key, value))
-        return cls(wanted, tuple(pairs))
+        judged = tuple(v for raw in verdicts for v in raw.split(",") if v)
+        unknown = [v for v in judged if v not in VERDICTS]
+        if unknown:
+            raise bad_parameter(
+                "verdict",
+                f"Unknown verdict {unknown[0]!r}; the verdicts are {', '.join(VERDICTS)}.",
+            )
+        return cls(wanted, tuple(pairs), judged)
 
 
 def list_jobs(
@@ -100,6 +120,8 @@ def list_jobs(
         statement = statement.where(Job.seq < decode_cursor(cursor))
     if where.states:
         statement = statement.where(Job.state.in_(where.states))
+    if where.verdicts:
+        statement = statement.where(or_(*(VERDICT_CONDITIONS[v]() for v in where.verdicts)))
     for key, value in where.labels:
         statement = statement.where(
             select(JobLabel.job_id)

@@ -17,7 +17,10 @@ def chain_resource(chain: Chain) -> dict[str, Any]:
         "phase": chain.phase,
         "iteration": chain.iteration,
         "iterations_total": chain.iterations_total,
+        # Sampling and warm-up apart: warm-up divergences are expected while the step size is
+        # being tuned and do not bias the kept draws.
         "divergences": chain.divergences,
+        "warmup_divergences": chain.warmup_divergences,
         "evaluations": evaluation_counts.as_document(chain),
         "attempts": chain.attempts,
         "started_at": rfc3339(chain.started_at),

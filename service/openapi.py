@@ -37,9 +37,11 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
         503: "problem",
     },
     ("get", "/v1/jobs"): {200: "job_list", 400: "problem"},
-    ("get", "/v1/jobs/{job_id}"): {200: "job", 404: "problem"},
+    ("get", "/v1/jobs/{job_id}"): {200: "job", 304: None, 404: "problem"},
     ("post", "/v1/jobs/{job_id}/cancel"): {200: "job", 404: "problem"},
-    ("get", "/v1/jobs/{job_id}/summary"): {200: "summary", 404: "problem", 409: "problem"},
+    ("get", "/v1/jobs/{job_id}/summary"): {
+        200: "summary", 304: None, 404: "problem", 409: "problem",
+    },
     ("get", "/v1/jobs/{job_id}/draws"): {
         200: "draws",
         304: None,
@@ -56,8 +58,16 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
         406: "problem",
         409: "problem",
     },
-    ("get", "/v1/jobs/{job_id}/diagnostics"): {200: "diagnostics", 404: "problem", 409: "problem"},
-    ("get", "/v1/jobs/{job_id}/audit"): {200: "audit", 404: "problem"},
+    ("get", "/v1/jobs/{job_id}/diagnostics"): {
+        200: "diagnostics", 304: None, 404: "problem", 409: "problem",
+    },
+    ("get", "/v1/jobs/{job_id}/audit"): {200: "audit", 304: None, 404: "problem"},
+    ("get", "/v1/jobs/{job_id}/columns"): {
+        200: "columns", 304: None, 400: "problem", 404: "problem", 409: "problem",
+    },
+    ("get", "/v1/jobs/{job_id}/request"): {
+        200: "submitted_request", 304: None, 400: "problem", 404: "problem",
+    },
     ("get", "/v1/jobs/{job_id}/predictive-accuracy"): {
         200: "predictive_accuracy",
         404: "problem",
@@ -99,7 +109,9 @@ RESPONSES: dict[tuple[str, str], dict[int, str | None]] = {
         400: "problem",
         404: "problem",
     },
-    ("get", "/v1/models/{name}/versions/{version}"): {200: "model_version", 404: "problem"},
+    ("get", "/v1/models/{name}/versions/{version}"): {
+        200: "model_version", 304: None, 404: "problem",
+    },
     ("get", "/metrics"): {200: EXPOSITION},
     ("get", "/v1/openapi.json"): {200: DOCUMENT},
 }
@@ -115,6 +127,12 @@ OPERATION_IDS = {
     ("get", "/v1/jobs/{job_id}/sampler-stats"): "getJobSamplerStats",
     ("get", "/v1/jobs/{job_id}/diagnostics"): "getJobDiagnostics",
     ("get", "/v1/jobs/{job_id}/audit"): "getJobAudit",
+    ("get", "/v1/jobs/{job_id}/columns"): "getJobColumns",
+    ("get", "/v1/jobs/{job_id}/request"): "getJobRequest",
+    ("get", "/v1/jobs/{job_id}/predictive-accuracy"): "getJobPredictiveAccuracy",
+    ("get", "/v1/jobs/{job_id}/evidence"): "getJobEvidence",
+    ("post", "/v1/bayes-factors"): "computeBayesFactor",
+    ("post", "/v1/comparisons"): "compareJobs",
     ("get", "/v1/health/live"): "getLiveness",
     ("get", "/v1/health/ready"): "getReadiness",
     ("get", "/v1/models"): "listModels",
@@ -184,6 +202,12 @@ SUMMARIES = {
     ("get", "/v1/jobs/{job_id}/sampler-stats"): "Per-draw sampler statistics, JSON or CSV",
     ("get", "/v1/jobs/{job_id}/diagnostics"): "R-hat, ESS, the sampler report and the verdict",
     ("get", "/v1/jobs/{job_id}/audit"): "Who, when, hashes, seeds, settings and software",
+    ("get", "/v1/jobs/{job_id}/columns"): (
+        "Each download column's display name, plain name and type"
+    ),
+    ("get", "/v1/jobs/{job_id}/request"): (
+        "The submitted spec, data and settings, whose canonical bytes the audit's hashes cover"
+    ),
     ("get", "/v1/jobs/{job_id}/predictive-accuracy"): (
         "PSIS-LOO from the stored pointwise log likelihood: elpd_loo, p_loo, Pareto k-hat"
     ),
@@ -209,6 +233,7 @@ SUMMARIES = {
 QUERY_PARAMETERS = {
     ("get", "/v1/jobs"): [
         ("state", "Comma-separated states to include."),
+        ("verdict", "Comma-separated verdicts to include: passed, failed, none (not judged)."),
         ("label", "key:value; repeat for several (all must match)."),
         ("limit", "Page size (at most DRAWYARD_MAX_PAGE_LIMIT)."),
         ("cursor", "next_cursor of the previous page."),
@@ -221,12 +246,16 @@ QUERY_PARAMETERS = {
         ("limit", "Page size (at most DRAWYARD_MAX_PAGE_LIMIT)."),
         ("cursor", "next_cursor of the previous page."),
     ],
+    ("get", "/v1/jobs/{job_id}/request"): [
+        ("part", "request, spec, data, settings or submission: that part's canonical bytes alone."),
+    ],
     ("get", "/v1/jobs/{job_id}/draws"): [
         ("quantities", "Comma-separated quantity names (default all)."),
         ("chains", "Comma-separated chain numbers from 1 (default all)."),
         ("thin", "Keep every k-th draw."),
         ("format", "json, csv, parquet or npz (or send Accept with their media types)."),
         ("layout", "wide (one row per chain and draw) or long (per chain, draw and quantity)."),
+        ("names", "display (default: theta[1]) or plain (theta_1, for SQL and dataframes)."),
     ],
     ("get", "/v1/jobs/{job_id}/sampler-stats"): [
         ("statistics", "Comma-separated statistic names (default all)."),
@@ -234,6 +263,7 @@ QUERY_PARAMETERS = {
         ("thin", "Keep every k-th draw."),
         ("format", "json, csv, parquet or npz (or send Accept with their media types)."),
         ("layout", "wide (one row per chain and draw) or long (per chain, draw and statistic)."),
+        ("names", "display (default) or plain (for SQL and dataframes)."),
     ],
 }
 

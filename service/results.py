@@ -10,6 +10,7 @@ import numpy as np
 from sqlalchemy import select
 
 from service import evaluation_counts
+from service.canonical import canonical_json
 from service.draw_export import Selection
 from service.job_queries import bad_parameter, load_job
 from service.job_resources import provenance
@@ -17,7 +18,7 @@ from service.partial_results import partial_record, stop_details
 from service.problem_details import ApiProblem
 from service.runtime import Runtime
 from service.store.arrays import decode_array
-from service.store.models import Chain, ChainArray, Event, Job
+from service.store.models import TERMINAL_STATES, Chain, ChainArray, Event, Job
 from service.timestamps import rfc3339
 
 DIAGNOSTIC_FIELDS = ("name", "rhat", "bulk_ess", "tail_ess", "note")
@@ -53,6 +54,49 @@ def finished_job(
             409, "results-not-available", "Results are not available", detail, headers=headers
         )
     return job, chains
+
+
+def is_final(job: Job) -> bool:
+    """True once the job has ended: its results and status can no longer change."""
+    return job.state in TERMINAL_STATES
+
+
+def request_document(runtime: Runtime, job_id: str) -> tuple[dict[str, Any], dict[str, bytes]]:
+    """What a job was asked to do, from the store alone, and the canonical bytes of each part
+    under the job's digest scheme: the audit record's ``hashes`` are their SHA-256s.
+
+    ``spec`` and ``data`` are what ran (a registered model's spec filled in); ``submission`` is
+    the stored body (with the seed the service drew); ``request`` is the body as sent, kept from
+    migration 0008 on (null before); ``settings`` are the sampler settings after defaults.
+    """
+    with runtime.sessions() as session:
+        job, _ = load_job(session, job_id)
+        stored, sent = session.execute(
+            select(Job.body, Job.request_body).where(Job.id == job_id)
+        ).one()
+    spec, data = stored.get("model"), stored.get("data") or {}
+    members = {"spec": spec, "data": data, "settings": job.settings, "submission": stored}
+    if sent is not None:
+        members["request"] = sent
+    parts = {name: canonical_json(value, job.digest_scheme) for name, value in members.items()}
+    document = {
+        "job": job.id,
+        "digest_scheme": job.digest_scheme,
+        "hashes": _hashes(job),
+        **members,
+        "request": sent,
+    }
+    return document, parts
+
+
+def _hashes(job: Job) -> dict[str, Any]:
+    return {
+        "scheme": job.digest_scheme,
+        "request": job.request_sha256,
+        "model": job.spec_sha256,
+        "data": job.data_sha256,
+        "run": job.run_sha256,
+    }
 
 
 def is_partial(job: Job) -> bool:
@@ -240,12 +284,8 @@ def audit_document(runtime: Runtime, job_id: str) -> dict[str, Any]:
             }
             for event in log
         ],
-        "hashes": {
-            "request": job.request_sha256,
-            "model": job.spec_sha256,
-            "data": job.data_sha256,
-            "run": job.run_sha256,
-        },
+        # SHA-256s of the canonical JSON (the scheme named) of the parts GET .../request serves.
+        "hashes": _hashes(job),
         **provenance(job),
         "seed": job.seed,
         "chain_seeds": _seed_records(job.seed, job.chain_count),

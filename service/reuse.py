@@ -15,11 +15,11 @@ from __future__ import annotations
 
 from typing import Any
 
-from sqlalchemy import insert, literal, select, update
+from sqlalchemy import insert, literal, or_, select, update
 from sqlalchemy.orm import Session, aliased
 
 from service import events
-from service.canonical import sha256_of_json
+from service.canonical import CURRENT_SCHEME, SCHEMES, sha256_of_json
 from service.store.models import Chain, ChainArray, Job, utc_now
 from service.versions import software_versions
 
@@ -31,9 +31,10 @@ def run_fingerprint(
     checks: Any,
     warm_start_from: str | None,
     summary_interval: float,
+    scheme: str = CURRENT_SCHEME,
 ) -> str:
     """SHA-256 of everything that fixes a job's draws, summary and verdict, engine version
-    included."""
+    included, under the digest scheme ``scheme`` (the spec and data digests under it too)."""
     return sha256_of_json(
         {
             "model": spec_sha256,
@@ -45,7 +46,8 @@ def run_fingerprint(
             # An upgrade of drawyard or of the numerical libraries may change the draws; a
             # result made by other code is not reused.
             "software": software_versions(),
-        }
+        },
+        scheme,
     )
 
 
@@ -69,12 +71,18 @@ def _same_tenant(tenant: str | None) -> Any:
     return Job.tenant.is_(None) if tenant is None else Job.tenant == tenant
 
 
-def find_source(session: Session, run_sha256: str, tenant: str | None) -> str | None:
-    """The newest job that ran (not itself a reuse) with this fingerprint and succeeded."""
+def find_source(
+    session: Session, fingerprints: dict[str, str], tenant: str | None
+) -> str | None:
+    """The newest job that ran (not itself a reuse) and succeeded with one of these fingerprints,
+    given by digest scheme: a job stored before RFC 8785 is matched under its own scheme."""
     return session.scalar(
         select(Job.id)
         .where(
-            Job.run_sha256 == run_sha256,
+            or_(*(
+                (Job.run_sha256 == digest) & (Job.digest_scheme == scheme)
+                for scheme, digest in fingerprints.items()
+            )),
             Job.state == "succeeded",
             Job.reused_from.is_(None),
             _same_tenant(tenant),
@@ -109,6 +117,7 @@ def copy_result(session: Session, source_id: str, job_id: str) -> None:
     # rates count only chains that ran.
     copied = (
         "chain_index", "state", "iteration", "iterations_total", "divergences", "phase",
+        "warmup_divergences",
         "adapted", "worker_host", "worker_pid", "worker_software",
         "warmup_gradient_evaluations", "sampling_gradient_evaluations",
         "warmup_log_density_evaluations", "sampling_log_density_evaluations",
@@ -125,7 +134,9 @@ def copy_result(session: Session, source_id: str, job_id: str) -> None:
         )  # fmt: skip
     )
     old, new = aliased(Chain), aliased(Chain)
-    array_columns = ("kind", "name", "columns", "encoding", "dtype", "shape", "sha256", "data")
+    array_columns = (
+        "kind", "name", "columns", "column_types", "encoding", "dtype", "shape", "sha256", "data",
+    )  # fmt: skip
     session.execute(
         insert(ChainArray).from_select(
             ["chain_id", *array_columns],
@@ -137,3 +148,21 @@ def copy_result(session: Session, source_id: str, job_id: str) -> None:
     )
     events.record(session, job_id, "result_reused", "succeeded", detail={"source": source_id})
     events.record(session, job_id, "job_state", "succeeded", detail={"reused_from": source_id})
+
+
+def fingerprints_by_scheme(
+    model: Any,
+    data: Any,
+    resolved: dict[str, Any],
+    checks: Any,
+    warm_start_from: str | None,
+    summary_interval: float,
+) -> dict[str, str]:
+    """The run fingerprint of a submission under every digest scheme, for find_source."""
+    return {
+        scheme: run_fingerprint(
+            sha256_of_json(model, scheme), sha256_of_json(data, scheme), resolved, checks,
+            warm_start_from, summary_interval, scheme,
+        )
+        for scheme in SCHEMES
+    }

@@ -17,13 +17,18 @@ from service import events
 from service.access.limits import check_active_jobs, unknown_count_problems
 from service.access.tenancy import current_key_id, current_tenant, scoped_idempotency_key
 from service.callbacks import notify_problems, queue_callback_safely
-from service.canonical import NOT_JSON_NUMBER, non_finite_pointers, sha256_of_json
+from service.canonical import (
+    CURRENT_SCHEME,
+    NOT_JSON_NUMBER,
+    non_finite_pointers,
+    sha256_of_json,
+)
 from service.config import Settings
 from service.dispatch import send_chain_tasks
 from service.metrics import JOBS_SUBMITTED
 from service.problem_details import ApiProblem
 from service.registry import ModelReference, reference_problems, resolve_reference
-from service.reuse import copy_result, find_source, run_fingerprint, wants_reuse
+from service.reuse import copy_result, find_source, fingerprints_by_scheme, wants_reuse
 from service.runtime import Runtime
 from service.schemas import schema_problems
 from service.store.engine import transaction
@@ -202,13 +207,14 @@ def _limit_problems(resolved: dict[str, Any], settings: Settings) -> list[Proble
     return problems
 
 
-def existing_for_key(runtime: Runtime, key: str, request_sha256: str) -> Job | None:
-    """The job an Idempotency-Key already made, or None; 409 when the body differs."""
+def existing_for_key(runtime: Runtime, key: str, body: Any) -> Job | None:
+    """The job an Idempotency-Key already made, or None; 409 when the body differs (compared
+    under the job's own digest scheme, so a retry across the upgrade to RFC 8785 still matches)."""
     with runtime.sessions() as session:
         job = session.scalars(select(Job).where(Job.idempotency_key == key)).one_or_none()
     if job is None:
         return None
-    if job.request_sha256 != request_sha256:
+    if job.request_sha256 != sha256_of_json(body, job.digest_scheme):
         raise ApiProblem(
             409,
             "idempotency-key-reused",
@@ -314,7 +320,7 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
         ) from error
     idempotency_key = scoped_idempotency_key(idempotency_key)
     if idempotency_key is not None:
-        job = existing_for_key(runtime, idempotency_key, request_sha256)
+        job = existing_for_key(runtime, idempotency_key, body)
         if job is not None:
             return Accepted(job, created=False)
     prepared = prepare(runtime, body)
@@ -324,14 +330,15 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
     data_sha256 = sha256_of_json(stored.get("data") or {})
     from worker.runner import summary_interval
 
-    run_sha256 = run_fingerprint(
-        spec_sha256, data_sha256, resolved, stored.get("checks"), prepared.warm_start_from,
-        summary_interval(stored),
+    fingerprints = fingerprints_by_scheme(
+        stored["model"], stored.get("data") or {}, resolved, stored.get("checks"),
+        prepared.warm_start_from, summary_interval(stored),
     )
+    run_sha256 = fingerprints[CURRENT_SCHEME]
     source = None
     if wants_reuse(body):
         with runtime.sessions() as session:
-            source = find_source(session, run_sha256, tenant)
+            source = find_source(session, fingerprints, tenant)
     if source is None:
         # A reused result occupies no worker, so only jobs that will run count against the cap.
         check_active_jobs(runtime, tenant)
@@ -348,9 +355,11 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
         body=stored,
         settings=resolved,
         labels=dict(body.get("labels") or {}),
+        request_body=body,
         request_sha256=request_sha256,
         spec_sha256=spec_sha256,
         data_sha256=data_sha256,
+        digest_scheme=CURRENT_SCHEME,
         idempotency_key=idempotency_key,
         submitted_by=current_key_id(),
         tenant=tenant,
@@ -380,6 +389,7 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
                         duplicate_deliveries=0,
                         iteration=0,
                         divergences=0,
+                        warmup_divergences=0,
                         iterations_total=iterations_total,
                         updated_at=now,
                     )
@@ -390,7 +400,7 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
         # Two requests with the same new key raced; the other one stored its job first.
         if idempotency_key is None:
             raise
-        existing = existing_for_key(runtime, idempotency_key, request_sha256)
+        existing = existing_for_key(runtime, idempotency_key, body)
         if existing is None:
             raise
         return Accepted(existing, created=False)

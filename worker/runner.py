@@ -401,6 +401,8 @@ class ChainResult:
     completed: bool
     warmup_stats: dict[str, np.ndarray] = field(default_factory=dict)
     evaluations: EvaluationCounts | None = None
+    # Of ``names``, those whose values are whole numbers (discrete draws, integer formulas).
+    integer_names: frozenset[str] = frozenset()
 
 
 class ChainRun:
@@ -433,6 +435,7 @@ class ChainRun:
             completed=output.completed,
             warmup_stats=output.warmup_stats,
             evaluations=output.evaluations,
+            integer_names=frozenset(self.model.integer_quantities),
         )
 
     def report(self, draws: np.ndarray) -> np.ndarray:

@@ -52,9 +52,13 @@ def run_create(args: argparse.Namespace) -> int:
     except ValueError as error:
         print(f"drawyard keys create: {error}", file=sys.stderr)
         return 2
-    print(f"key id:  {made.key_id}\ntenant:  {made.tenant}\nscopes:  {','.join(made.scopes)}")
-    print(f"secret:  {made.secret}")
-    print("The secret is shown only now; the store keeps its SHA-256 alone.", file=sys.stderr)
+    # The secret alone on stdout, so `KEY=$(drawyard keys create ...)` holds the key itself.
+    print(
+        f"key id:  {made.key_id}\ntenant:  {made.tenant}\nscopes:  {','.join(made.scopes)}\n"
+        "The secret (on stdout) is shown only now; the store keeps its SHA-256 alone.",
+        file=sys.stderr,
+    )
+    print(made.secret)
     return 0
 
 

@@ -115,12 +115,17 @@ class DrawyardClient:
         labels: Mapping[str, str] | Iterable[str] = (),
         limit: int | None = None,
         cursor: str | None = None,
+        verdicts: Iterable[str] = (),
     ) -> JobPage:
-        """GET /v1/jobs, newest first; `labels` as {key: value} or "key:value" strings."""
+        """GET /v1/jobs, newest first; `labels` as {key: value} or "key:value" strings;
+        `verdicts` among "passed", "failed" and "none" (not judged)."""
         params: list[tuple[str, str]] = []
         chosen = list(states)
         if chosen:
             params.append(("state", ",".join(chosen)))
+        judged = list(verdicts)
+        if judged:
+            params.append(("verdict", ",".join(judged)))
         pairs = (
             [f"{k}:{v}" for k, v in labels.items()] if isinstance(labels, Mapping) else labels
         )
@@ -136,12 +141,14 @@ class DrawyardClient:
         states: Iterable[str] = (),
         labels: Mapping[str, str] | Iterable[str] = (),
         page_size: int | None = None,
+        verdicts: Iterable[str] = (),
     ) -> Iterator[Job]:
         """Every matching job, following `next_cursor` page by page."""
         states, labels = list(states), labels if isinstance(labels, Mapping) else list(labels)
+        verdicts = list(verdicts)
         cursor = None
         while True:
-            page = self.list_jobs(states, labels, page_size, cursor)
+            page = self.list_jobs(states, labels, page_size, cursor, verdicts)
             yield from page.jobs
             if not page.next_cursor:
                 return

@@ -53,7 +53,8 @@ class ChainProgress:
     phase: str | None
     iteration: int
     iterations_total: int
-    divergences: int
+    divergences: int  # in sampling
+    warmup_divergences: int
     attempts: int
     error: str | None
 
@@ -66,6 +67,7 @@ class ChainProgress:
             iteration=int(doc.get("iteration") or 0),
             iterations_total=int(doc.get("iterations_total") or 0),
             divergences=int(doc.get("divergences") or 0),
+            warmup_divergences=int(doc.get("warmup_divergences") or 0),
             attempts=int(doc.get("attempts") or 0),
             error=doc.get("error"),
         )

@@ -13,6 +13,7 @@ from service.formats.etags import download_tag, none_match
 from service.formats.negotiation import FILE_SUFFIX, MEDIA_TYPES
 from service.formats.npz import stream_npz
 from service.formats.parquet import stream_parquet
+from service.http_caching import IMMUTABLE, REVALIDATE
 from service.runtime import Runtime
 from service.store.models import Chain, ChainArray
 
@@ -53,6 +54,7 @@ def download(
     format_name: str,
     layout: str,
     partial: bool = False,
+    final: bool = False,
 ) -> Response:
     """A 304 when the client's copy is current, else the streamed file with its strong ETag.
 
@@ -64,9 +66,11 @@ def download(
     hashes, lengths = _stored(runtime, chosen, kind)
     named = job_id if format_name in NAMES_THE_JOB else None
     tag = download_tag(resource, format_name, layout, selection, hashes, named)
+    caching = IMMUTABLE if final else REVALIDATE
     if none_match(request.headers.get("If-None-Match"), tag):
         response = Response(status=304)
         response.headers["ETag"] = tag
+        response.headers["Cache-Control"] = caching
         return response
     if format_name == "json":
         body = stream_json(job_id, column_key, selection, load, partial)
@@ -78,6 +82,7 @@ def download(
         body = stream_npz(selection, load, lengths, layout, value_label, column_key)
     response = Response(stream_with_context(body), mimetype=MEDIA_TYPES[format_name])
     response.headers["ETag"] = tag
+    response.headers["Cache-Control"] = caching
     # The same URL answers in several formats chosen by Accept: caches must key on it.
     response.headers["Vary"] = "Accept"
     if format_name != "json":

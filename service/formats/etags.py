@@ -14,8 +14,9 @@ from collections.abc import Sequence
 from service.draw_export import Selection
 
 # Bumped when the bytes written for the same arrays and query would change.
-# 2: JSON and Parquet say whether the draws are partial; 3: the job id is part of a JSON tag
-ENCODING_VERSION = "3"
+# 2: JSON and Parquet say whether the draws are partial; 3: the job id is part of a JSON tag;
+# 4: columns in their natural types (int64 chain, whole numbers, true/false)
+ENCODING_VERSION = "4"
 
 
 def download_tag(

@@ -35,7 +35,7 @@ def long_columns(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """chain, draw and quantity index per long row; the values are ``block.values.reshape(-1)``."""
     rows = block.draw.shape[0]
-    chain = np.full(rows * quantity_count, block.chain, dtype=np.int32)
+    chain = np.full(rows * quantity_count, block.chain, dtype=np.int64)
     draw = np.repeat(block.draw, quantity_count)
     quantity = np.tile(np.arange(quantity_count, dtype=np.int32), rows)
     return chain, draw, quantity

@@ -2,8 +2,10 @@
 
 Each column is one ``.npy`` entry (NumPy format version 1.0; NEP 1). The header of a column gives
 its full length, known up front from the stored shapes, and the data follows chain by chain, so the
-whole table never sits in memory. Entries: wide ``chain``, ``draw``, ``values`` (rows, quantities)
-and the names; long ``chain``, ``draw``, the name per row, ``value`` and the names. Arrays are
+whole table never sits in memory. Entries: wide ``chain``, ``draw`` (int64), ``values`` (rows,
+quantities; float64, which holds every whole number and yes/no exactly) and the names; long
+``chain``, ``draw``, the name per row, ``value`` and the names; both ``types``, each column's
+natural type (float64, int64 or bool) in the order of the names. Arrays are
 plain numeric or fixed-width unicode, so they load with ``allow_pickle=False``.
 """
 
@@ -59,7 +61,7 @@ def stream_npz(
 
     def chain_numbers() -> Iterator[np.ndarray]:
         for chain, count in zip(selection.chains, counts, strict=True):
-            yield np.full(count * per_row, chain + 1, np.int32)
+            yield np.full(count * per_row, chain + 1, np.int64)
 
     def draw_numbers() -> Iterator[np.ndarray]:
         for count in counts:
@@ -71,7 +73,7 @@ def stream_npz(
 
     spool = Spool()
     with zipfile.ZipFile(spool, mode="w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
-        yield from _entry(zf, spool, "chain", np.dtype("<i4"), (total * per_row,), chain_numbers())
+        yield from _entry(zf, spool, "chain", np.dtype("<i8"), (total * per_row,), chain_numbers())
         yield from _entry(zf, spool, "draw", np.dtype("<i8"), (total * per_row,), draw_numbers())
         if layout == "wide":
             yield from _entry(zf, spool, "values", np.dtype("<f8"), (total, width), chain_values())
@@ -83,4 +85,7 @@ def stream_npz(
             flat = (values.reshape(-1) for values in chain_values())
             yield from _entry(zf, spool, "value", np.dtype("<f8"), (total * width,), flat)
         yield from _entry(zf, spool, names_label, labels.dtype, (width,), [labels])
+        # One matrix has one type: each column's natural one is named here, to cast by.
+        kinds = np.asarray(list(selection.types) or ["float64"] * width, dtype="<U7")
+        yield from _entry(zf, spool, "types", kinds.dtype, (width,), [kinds])
     yield spool.take()

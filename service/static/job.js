@@ -7,6 +7,7 @@
   const url = section.dataset.statusUrl;
   const terminal = new Set(["succeeded", "failed", "cancelled", "timed_out"]);
   const stateBadge = document.getElementById("job-state");
+  const started = document.getElementById("job-started");
   let delay = 1000;
 
   function show(chain) {
@@ -29,6 +30,9 @@
       if (response.ok) {
         const job = await response.json();
         job.chains.forEach(show);
+        if (started && job.started_at) {
+          started.textContent = `${job.started_at.slice(0, 19).replace("T", " ")} UTC`;
+        }
         if (stateBadge.textContent !== job.state) {
           stateBadge.textContent = job.state;
           stateBadge.className = `state state-${job.state}`;

@@ -74,9 +74,14 @@ class Job(Base):
     body: Mapped[dict[str, Any]] = mapped_column(JSON, deferred=True)
     settings: Mapped[dict[str, Any]] = mapped_column(JSON)
     labels: Mapped[dict[str, str]] = mapped_column(JSON)
+    # The body exactly as sent (migration 0008; NULL before), which request_sha256 covers, so
+    # a reviewer can fetch it back (GET /v1/jobs/{id}/request). Deferred for the same reason.
+    request_body: Mapped[Any] = mapped_column(JSON, deferred=True)
     request_sha256: Mapped[str] = mapped_column(String(64))
     spec_sha256: Mapped[str] = mapped_column(String(64))
     data_sha256: Mapped[str] = mapped_column(String(64))
+    # The canonical JSON the digests above were taken over (service/canonical.py SCHEMES).
+    digest_scheme: Mapped[str] = mapped_column(String(32), default="rfc8785")
     idempotency_key: Mapped[str | None] = mapped_column(String(255), unique=True)
     submitted_by: Mapped[str | None] = mapped_column(String(64))
     # The tenant of the API key that submitted the job; None in open mode (no keys configured).
@@ -152,7 +157,9 @@ class Chain(Base):
     phase: Mapped[str | None] = mapped_column(String(32))
     iteration: Mapped[int] = mapped_column(Integer, default=0)
     iterations_total: Mapped[int] = mapped_column(Integer)
+    # In sampling; warm-up's apart (migration 0008), NULL for chains stored before it.
     divergences: Mapped[int] = mapped_column(Integer, default=0)
+    warmup_divergences: Mapped[int | None] = mapped_column(Integer)
     # Evaluations of the model the worker counted, by phase (migration 0005; service/
     # evaluation_counts.py): with gradient, and of the log density alone (random-walk Metropolis).
     # NULL for chains stored before 0005 and for reused chains, which no worker ran.
@@ -183,6 +190,9 @@ class ChainArray(Base):
     name: Mapped[str] = mapped_column(String(255))
     # Column names of a draws array (the quantities), in order.
     columns: Mapped[list[str] | None] = mapped_column(JSON)
+    # Each column's natural type in downloads ("float64", "int64"), beside ``columns``
+    # (migration 0008; NULL before: all float64).
+    column_types: Mapped[list[str] | None] = mapped_column(JSON)
     encoding: Mapped[str] = mapped_column(String(16))
     dtype: Mapped[str] = mapped_column(String(16))
     shape: Mapped[list[int]] = mapped_column(JSON)

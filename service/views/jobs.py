@@ -7,10 +7,12 @@ from typing import Any
 from flask import Blueprint, Response, jsonify, request
 from werkzeug.exceptions import RequestEntityTooLarge
 
+from service.http_caching import cached_json, next_link
 from service.job_queries import JobFilter, bad_parameter, cancel_job, get_job, list_jobs
 from service.job_resources import job_resource
 from service.json_body import parse_json_body
 from service.problem_details import ApiProblem
+from service.store.models import TERMINAL_STATES
 from service.submissions import submit
 from service.views.context import runtime
 from service.views.paging import requested_limit
@@ -61,15 +63,20 @@ def create() -> Response:
 @jobs.get("")
 def index() -> Response:
     limit = requested_limit()
-    where = JobFilter.parse(request.args.getlist("state"), request.args.getlist("label"))
+    where = JobFilter.parse(
+        request.args.getlist("state"), request.args.getlist("label"),
+        request.args.getlist("verdict"),
+    )
     page, cursor = list_jobs(runtime(), where, limit, request.args.get("cursor"))
-    return jsonify({"jobs": [job_resource(j, c) for j, c in page], "next_cursor": cursor})
+    response = jsonify({"jobs": [job_resource(j, c) for j, c in page], "next_cursor": cursor})
+    response.headers.update(next_link(request, cursor))
+    return response
 
 
 @jobs.get("/<job_id>")
 def show(job_id: str) -> Response:
     job, chains = get_job(runtime(), job_id)
-    response = jsonify(job_resource(job, chains))
+    response = cached_json(job_resource(job, chains), final=job.state in TERMINAL_STATES)
     if job.state in ("queued", "running"):
         response.headers["Retry-After"] = "2"
     return response

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from flask import Blueprint, Response, jsonify, request
 
+from service.http_caching import cached_json, next_link
 from service.registry import (
     get_version,
     list_models,
@@ -22,7 +23,9 @@ models = Blueprint("models", __name__, url_prefix="/v1/models")
 @models.get("")
 def index() -> Response:
     rows, cursor = list_models(runtime(), requested_limit(), request.args.get("cursor"))
-    return jsonify({"models": [model_resource(row) for row in rows], "next_cursor": cursor})
+    response = jsonify({"models": [model_resource(row) for row in rows], "next_cursor": cursor})
+    response.headers.update(next_link(request, cursor))
+    return response
 
 
 @models.post("/<name>/versions")
@@ -40,11 +43,16 @@ def create(name: str) -> Response:
 @models.get("/<name>/versions")
 def versions(name: str) -> Response:
     rows, cursor = list_versions(runtime(), name, requested_limit(), request.args.get("cursor"))
-    return jsonify(
+    response = jsonify(
         {"name": name, "versions": [version_resource(row) for row in rows], "next_cursor": cursor}
     )
+    response.headers.update(next_link(request, cursor))
+    return response
 
 
 @models.get("/<name>/versions/<int:version>")
 def show(name: str, version: int) -> Response:
-    return jsonify(version_resource(get_version(runtime(), name, version), with_spec=True))
+    # A registered version never changes.
+    return cached_json(
+        version_resource(get_version(runtime(), name, version), with_spec=True), final=True
+    )

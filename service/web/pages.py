@@ -14,6 +14,7 @@ from service.partial_results import partial_record
 from service.plots.job_arrays import quantity_names
 from service.predictive import comparison
 from service.problem_details import ApiProblem, note_problem
+from service.results import request_document
 from service.store.models import JOB_STATES, TERMINAL_STATES, Chain, Job
 from service.submissions import submit, validate
 from service.views.context import runtime
@@ -37,6 +38,7 @@ DEMO_SETTINGS = {"chains": 4, "warmup": 300, "draws": 300}
 DOWNLOADS = (
     ("Draws (CSV)", "draws", "csv"),
     ("Draws (JSON)", "draws", "json"),
+    ("Draws (Parquet)", "draws", "parquet"),
     ("Sampler statistics (CSV)", "sampler-stats", "csv"),
     ("Sampler statistics (JSON)", "sampler-stats", "json"),
     ("Summary (JSON)", "summary", None),
@@ -46,8 +48,15 @@ DOWNLOADS = (
 
 
 def _job_row(job: Job, chains: list[Chain]) -> dict[str, Any]:
+    """The list's row: chains done means succeeded; the others that stopped are counted by how
+    (a cancelled job's chains are not "4 of 4 done")."""
     row = job_resource(job, chains)
-    row["chains_done"] = sum(1 for c in chains if c.state in TERMINAL_STATES)
+    row["chains_done"] = sum(1 for c in chains if c.state == "succeeded")
+    stopped: dict[str, int] = {}
+    for chain in chains:
+        if chain.state in TERMINAL_STATES and chain.state != "succeeded":
+            stopped[chain.state] = stopped.get(chain.state, 0) + 1
+    row["chains_stopped"] = stopped
     return row
 
 
@@ -86,9 +95,11 @@ def _pick(names: list[str], wanted: str | None, fallback: str) -> str:
 @web.get("/jobs/<job_id>")
 def job_page(job_id: str) -> str:
     job, chains = get_job(runtime(), job_id)
+    document, _ = request_document(runtime(), job_id)
     context: dict[str, Any] = {
         "job": job_resource(job, chains),
         "terminal": job.state in TERMINAL_STATES,
+        "submitted": document,
     }
     if job.state == "succeeded":
         names = quantity_names(runtime(), chains)
@@ -167,6 +178,12 @@ def submit_page() -> tuple[str, int]:
             DEMO_SETTINGS["chains"], DEMO_SETTINGS["warmup"], DEMO_SETTINGS["draws"]
         )
         return _form_page(from_submission(body))
+    source = request.args.get("from")
+    if source:
+        # "Run again with changes": the earlier job's body as sent (else as stored), for the
+        # analyst to change; it makes a new job only when submitted.
+        document, _ = request_document(runtime(), source)
+        return _form_page(from_submission(document["request"] or document["submission"]))
     return _form_page(FormState())
 
 

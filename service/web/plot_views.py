@@ -11,7 +11,7 @@ from service.job_queries import bad_parameter
 from service.plots.cache import PlotCache
 from service.plots.figures import density_figure, rank_figure, scatter_figure, trace_figure
 from service.plots.job_arrays import divergent_draws, quantity_draws, quantity_names
-from service.plots.rendering import to_svg
+from service.plots.rendering import to_png, to_svg
 from service.problem_details import ApiProblem
 from service.results import finished_job
 from service.views.context import runtime
@@ -46,6 +46,19 @@ def _bins() -> int:
 
 @web.get("/jobs/<job_id>/plots/<kind>.svg")
 def plot(job_id: str, kind: str) -> Response:
+    return _plot(job_id, kind, "svg")
+
+
+@web.get("/jobs/<job_id>/plots/<kind>.png")
+def plot_png(job_id: str, kind: str) -> Response:
+    return _plot(job_id, kind, "png")
+
+
+IMAGE_TYPES = {"svg": ("image/svg+xml", to_svg), "png": ("image/png", to_png)}
+
+
+def _plot(job_id: str, kind: str, image_format: str) -> Response:
+    mimetype, write = IMAGE_TYPES[image_format]
     if kind not in KINDS:
         raise ApiProblem(404, "plot-not-found", "No such plot",
                          f"The plots are {', '.join(KINDS)}.")
@@ -72,9 +85,11 @@ def plot(job_id: str, kind: str) -> Response:
                 figure = rank_figure(x, name, int(parameters["bins"]))
             else:
                 figure = density_figure(x, name)
-        return to_svg(figure)
+        return write(figure)
 
-    content, key = plot_cache().get_or_render(job_id, kind, parameters, render)
+    # The SVG keeps its earlier cache key; other formats are told apart in theirs.
+    keyed = parameters if image_format == "svg" else {**parameters, "format": image_format}
+    content, key = plot_cache().get_or_render(job_id, kind, keyed, render)
     etag = f'"{key}"'
     headers = {
         "ETag": etag,
@@ -84,4 +99,8 @@ def plot(job_id: str, kind: str) -> Response:
     }
     if etag in request.headers.get("If-None-Match", ""):
         return Response(status=304, headers=headers)
-    return Response(content, mimetype="image/svg+xml", headers=headers)
+    if request.args.get("download"):
+        headers["Content-Disposition"] = (
+            f'attachment; filename="{job_id}-{kind}.{image_format}"'
+        )
+    return Response(content, mimetype=mimetype, headers=headers)

@@ -14,6 +14,7 @@ from typing import Any
 
 from werkzeug.datastructures import FileStorage
 
+from service.client.data_files import DataFileError, csv_columns
 from service.json_body import parse_json_body
 from service.problem_details import ApiProblem
 from service.web.json_lines import layout, line_of
@@ -65,14 +66,48 @@ def _uploaded_or_typed(files: Mapping[str, FileStorage], name: str, typed: str) 
     return typed
 
 
+def _is_csv(upload: FileStorage | None) -> bool:
+    return bool(upload and upload.filename and upload.filename.lower().endswith(".csv"))
+
+
+def _data_text(state: FormState, files: Mapping[str, FileStorage], typed: str) -> str:
+    """The data as JSON text. A CSV upload is read as the CLI reads one (its header names the
+    inputs, each column a vector, whole-number columns integers) and merged with a JSON object
+    typed in the box, such as the sizes, as the CLI merges several data files."""
+    upload = files.get("data_file")
+    if not _is_csv(upload):
+        return _uploaded_or_typed(files, "data", typed)
+    text = upload.read().decode("utf-8-sig", errors="replace")
+    try:
+        columns = csv_columns(text, f"CSV file {upload.filename}")
+    except DataFileError as error:
+        state.add("data", FieldProblem("/data", str(error)))
+        return typed
+    merged: dict[str, Any] = {}
+    if typed.strip():
+        try:
+            merged = json.loads(typed)
+        except ValueError:
+            merged = None
+        if not isinstance(merged, dict):
+            state.add("data", FieldProblem(
+                "/data", "Beside a CSV file, the box may hold only a JSON object (such as sizes)."))
+            return typed
+    for name in sorted(set(merged) & set(columns)):
+        state.add("data", FieldProblem(
+            f"/data/{name}", f"'{name}' is both a CSV column and in the box; keep one."))
+    return layout({**merged, **columns})[0]
+
+
 def read_form(form: Mapping[str, str], files: Mapping[str, FileStorage]) -> FormState:
-    return FormState(
+    state = FormState(
         model_text=_uploaded_or_typed(files, "model", form.get("model_text", "")),
-        data_text=_uploaded_or_typed(files, "data", form.get("data_text", "")),
         sampler={name: form.get(name, "").strip() for name in SAMPLER_FIELDS},
         labels_text=form.get("labels_text", ""),
         token=form.get("token") or secrets.token_hex(16),
     )
+    state.data_text = _data_text(state, files, form.get("data_text", ""))
+    return state
 
 
 def from_submission(body: Mapping[str, Any]) -> FormState:

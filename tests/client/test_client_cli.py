@@ -133,7 +133,8 @@ def test_submit_wait_passed_then_fetch_and_list(
     assert listed.returncode == EXIT_PASSED, listed.stderr
     assert job_id in [j["id"] for j in json.loads(listed.stdout)["jobs"]]
     table = drawyard("list", "--label", "suite:client-cli", "--all", url=url)
-    assert any(line.startswith(job_id) and "checks passed" in line
+    assert table.stdout.splitlines()[0].split() == ["JOB", "STATE", "CREATED", "VERDICT", "LABELS"]
+    assert any(line.startswith(job_id) and line.split()[3] == "passed"
                for line in table.stdout.splitlines())
 
 

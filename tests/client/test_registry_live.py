@@ -17,6 +17,7 @@ from pathlib import Path
 
 import requests
 
+from service.canonical import jcs_json
 from service.client import DrawyardClient, wait_for_job
 from service.job_commands import EXIT_BAD_INPUT, EXIT_PASSED
 from service.warm_start import DEFAULT_WARM_WARMUP
@@ -30,8 +31,9 @@ CHECKS = ["--check", "min_bulk_ess=100", "--check", "min_tail_ess=100", "--check
 
 
 def canonical_sha256(value) -> str:
-    text = json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    """RFC 8785 canonical JSON (service.canonical.jcs_json, checked on the RFC's own examples in
+    tests/canonical/test_rfc8785.py), then SHA-256."""
+    return hashlib.sha256(jcs_json(value)).hexdigest()
 
 
 def write_files(folder: Path) -> dict[str, Path]:

@@ -212,6 +212,34 @@ def test_sampler_checks_for_a_method_without_trees_or_energy() -> None:
     assert verdict([], report)["passed"]
 
 
+@pytest.mark.parametrize(
+    ("value", "limit", "digits", "expected"),
+    [
+        (1.0132, 1.01, 5, "1.0132"),
+        (1.01004, 1.01, 5, "1.01004"),
+        (1.0100000004, 1.01, 5, "1.0100000004"),
+        (399.6, 400.0, 4, "399.6"),
+        (399.99, 400.0, 4, "399.99"),
+        (0.2999, 0.3, 3, "0.2999"),
+    ],
+)
+def test_a_failed_value_is_printed_with_the_digits_that_show_the_comparison(
+    value: float, limit: float, digits: int, expected: str
+) -> None:
+    """The printed number must be on the same side of the threshold as the value itself, and not
+    equal to it (seen before: "R-hat ... is 1.01, above 1.01")."""
+    from worker.diagnostics.verdict import shown_against
+
+    shown = shown_against(value, limit, digits)
+    assert shown == expected
+    assert float(shown) != limit and (float(shown) > limit) == (value > limit)
+
+
+def test_the_rhat_message_shows_a_value_beside_its_threshold_that_differs_from_it() -> None:
+    record = {"name": "mu", "rhat": 1.010004, "bulk_ess": 5000.0, "tail_ess": 5000.0}
+    judged = verdict([record], _good_report())
+    (failure,) = judged["failed_checks"]
+    assert "R-hat of mu is 1.010004, above 1.01" in failure["message"]
 def _depth_report(depths_per_chain: list[list[int]], maximum: int = 10) -> dict:
     stats_per_chain = [
         {

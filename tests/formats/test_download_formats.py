@@ -83,7 +83,8 @@ def test_npz_wide_and_long_equal_the_json_draws_bit_for_bit(finished, query) -> 
     wide = client.get(f"/v1/jobs/{job_id}/draws?{query}{sep}format=npz")
     assert wide.status_code == 200 and wide.mimetype == "application/x-npz"
     with np.load(io.BytesIO(wide.get_data()), allow_pickle=False) as arrays:
-        assert sorted(arrays.files) == ["chain", "draw", "quantities", "values"]
+        assert sorted(arrays.files) == ["chain", "draw", "quantities", "types", "values"]
+        assert arrays["types"].tolist() == ["float64"] * len(names)
         assert arrays["quantities"].tolist() == names
         assert np.array_equal(arrays["chain"], chain) and np.array_equal(arrays["draw"], draw)
         assert same_bits(arrays["values"], values)

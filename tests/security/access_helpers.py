@@ -33,7 +33,8 @@ def drawyard(database_url: str, *args: str) -> subprocess.CompletedProcess:
 def create_key(database_url: str, tenant: str, scopes: str = "submit,read") -> CliKey:
     done = drawyard(database_url, "keys", "create", "--tenant", tenant, "--scopes", scopes)
     assert done.returncode == 0, done.stderr
-    fields = dict(
-        line.split(":", 1) for line in done.stdout.splitlines() if ":" in line
-    )
-    return CliKey(fields["key id"].strip(), fields["secret"].strip())
+    # The secret alone on stdout (so KEY=$(drawyard keys create ...) is the key), the rest on
+    # stderr.
+    assert len(done.stdout.splitlines()) == 1, done.stdout
+    fields = dict(line.split(":", 1) for line in done.stderr.splitlines() if ":" in line)
+    return CliKey(fields["key id"].strip(), done.stdout.strip())

@@ -25,7 +25,7 @@ PROBLEM = "application/problem+json"
 def job_paths(job_id: str) -> list[tuple[str, str]]:
     """Every endpoint that names one job: the API's and the web pages'."""
     base = f"/v1/jobs/{job_id}"
-    reads = ["", "/summary", "/diagnostics", "/draws", "/sampler-stats", "/audit"]
+    reads = ["", "/summary", "/diagnostics", "/draws", "/sampler-stats", "/audit", "/request"]
     paths = [("GET", base + tail) for tail in reads]
     paths += [("POST", base + "/cancel"), ("GET", f"/jobs/{job_id}"),
               ("GET", f"/jobs/{job_id}/plots/trace.svg")]

@@ -111,6 +111,11 @@ def test_tenants_isolated_on_both_backends(apps):
     ]
     assert client.get(f"/v1/jobs/{job_id}", headers=bearer(alpha.secret)).status_code == 200
     assert client.get(f"/v1/jobs/{job_id}", headers=bearer(beta.secret)).status_code == 404
+    # The submitted spec and data are the tenant's too.
+    for part in ("", "?part=data"):
+        path = f"/v1/jobs/{job_id}/request{part}"
+        assert client.get(path, headers=bearer(alpha.secret)).status_code == 200
+        assert client.get(path, headers=bearer(beta.secret)).status_code == 404
     assert client.get("/v1/jobs", headers=bearer(beta.secret)).get_json()["jobs"] == []
 
 

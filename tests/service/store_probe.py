@@ -40,6 +40,13 @@ def settings_of(app: Flask) -> Any:
     return app.extensions["drawyard"].settings
 
 
+def newest_revision(url: str) -> str:
+    """The head revision of service/migrations, which `migrate` upgrades to."""
+    from alembic.script import ScriptDirectory
+
+    return str(ScriptDirectory.from_config(alembic_config(url)).get_current_head())
+
+
 def store_at_revision_with_a_job(url: str, revision: str) -> str:
     """An empty store migrated only up to ``revision`` and holding one succeeded job, written as
     a service of that revision would have (raw SQL: today's models know newer columns); returns

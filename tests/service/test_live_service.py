@@ -25,6 +25,7 @@ import requests
 from sqlalchemy import create_engine, select
 from sqlalchemy.orm import Session
 
+from service.canonical import jcs_json
 from service.store.models import Chain, Event
 from tests.harness.in_process import in_process
 from tests.service.bodies import normal_mean, posterior_mean_sd
@@ -145,8 +146,8 @@ def test_draws_over_http_are_bitwise_the_in_process_draws(
     for c in range(2):
         digest = hashlib.sha256(np.ascontiguousarray(expected["draws"][c], "<f8").tobytes())
         assert audit["chains"][c]["draws_sha256"] == digest.hexdigest()
-    canonical = json.dumps(body["model"], sort_keys=True, separators=(",", ":")).encode()
-    assert audit["hashes"]["model"] == hashlib.sha256(canonical).hexdigest()
+    # RFC 8785 canonical JSON (tests/canonical/test_rfc8785.py checks it on the RFC's examples)
+    assert audit["hashes"]["model"] == hashlib.sha256(jcs_json(body["model"])).hexdigest()
     assert audit["seed"] == 77 and audit["settings"]["draws"] == 2500
     assert audit["software"]["finish"]["numpy"] == np.__version__
 

@@ -17,6 +17,7 @@ import json
 import pytest
 from sqlalchemy import func, select
 
+from service.canonical import jcs_json
 from service.chain_work import run_chain
 from service.finishing import finish
 from service.store.models import ChainArray, Job, ModelVersion
@@ -31,9 +32,9 @@ DATA = normal_mean()["data"]
 
 
 def canonical_sha256(value) -> str:
-    """Sorted keys, no spaces, UTF-8 (the service's documented canonical JSON), then SHA-256."""
-    text = json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    """RFC 8785 canonical JSON (service.canonical.jcs_json, checked on the RFC's own examples in
+    tests/canonical/test_rfc8785.py), then SHA-256."""
+    return hashlib.sha256(jcs_json(value)).hexdigest()
 
 
 def call(client, method, path, body=None):

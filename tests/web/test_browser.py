@@ -102,6 +102,13 @@ def test_demo_submitted_followed_and_read(
     except PlaywrightTimeoutError:
         status = requests.get(f"{base}/v1/jobs/{job_id}", timeout=30).json()
         pytest.fail(f"the table never moved while the job ran; status {status}\n{service.logs()}")
+    # "Started" fills in once a chain has started, by the same polling, with no reload (it used
+    # to stay blank until the page was reloaded).
+    page.wait_for_function(
+        "() => window.renderedCells !== undefined && /^\\d{4}-\\d\\d-\\d\\d \\d\\d:\\d\\d:"
+        "\\d\\d UTC$/.test(document.getElementById('job-started').textContent)",
+        timeout=5000,
+    )
     screenshot(page, "job-running")
 
     # The page polls the status and reloads itself when the job ends; then the verdict appears.

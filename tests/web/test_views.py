@@ -9,9 +9,11 @@ same job, and with outside references named beside each check.
 from __future__ import annotations
 
 import csv
+import html
 import io
 import json
 import re
+import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 from urllib.parse import parse_qs, urlsplit
@@ -286,11 +288,13 @@ def test_every_download_link_answers_in_its_format(finished) -> None:
     client, job_id, _ = finished
     page = client.get(f"/jobs/{job_id}").get_data(as_text=True)
     links = re.findall(r'<li><a href="(/v1/jobs/[^"]+)"', page)
-    assert len(links) == 7
+    assert len(links) == 8
+    media = {"format=csv": "text/csv", "format=parquet": "application/vnd.apache.parquet"}
     for link in links:
         answer = client.get(link)
         assert answer.status_code == 200, link
-        assert answer.mimetype == ("text/csv" if "format=csv" in link else "application/json")
+        expected = next((m for key, m in media.items() if key in link), "application/json")
+        assert answer.mimetype == expected
         answer.close()  # streamed answers hold their request context until closed
     draws = read(client, f"/v1/jobs/{job_id}/draws?format=csv").decode()
     header = next(csv.reader(io.StringIO(draws)))
@@ -356,3 +360,83 @@ def test_the_list_pages_through_older_jobs(client: FlaskClient) -> None:
     second = client.get(older.group(1).replace("&amp;", "&")).get_data(as_text=True)
     assert second.count('<a href="/jobs/') == 1
     assert "Older jobs" not in second
+
+
+def test_a_past_jobs_spec_data_and_settings_are_on_its_page_and_prefill_the_form(
+    finished,
+) -> None:
+    client, job_id, _ = finished
+    page = client.get(f"/jobs/{job_id}").get_data(as_text=True)
+    request = client.get(f"/v1/jobs/{job_id}/request").get_json()
+    for part in ("spec", "data", "settings"):
+        shown = re.search(rf'<details data-part="{part}">.*?<code>(.*?)</code>', page, re.S)
+        assert shown is not None, part
+        assert json.loads(html.unescape(shown.group(1))) == request[part]
+    link = re.search(r'<a href="([^"]+)" id="run-again">', page).group(1)
+    form = client.get(html.unescape(link)).get_data(as_text=True)
+    typed = re.search(r'<textarea id="model_text"[^>]*>(.*?)</textarea>', form, re.S).group(1)
+    assert json.loads(html.unescape(typed)) == request["spec"]
+    assert f'value="{SMALL["draws"]}"' in form
+
+
+def test_each_plot_downloads_as_svg_and_png(finished) -> None:
+    """PNG files start with the eight-byte signature of the PNG specification (W3C, 2003,
+    section 5.2); SVG is XML whose root is <svg>."""
+    client, job_id, _ = finished
+    page = client.get(f"/jobs/{job_id}").get_data(as_text=True)
+    svg = re.findall(r'<a href="([^"]+)" download data-image="svg">', page)
+    png = re.findall(r'<a href="([^"]+)" download data-image="png">', page)
+    assert len(svg) == len(png) == 4
+    for link in png:
+        answer = client.get(html.unescape(link))
+        assert answer.status_code == 200 and answer.mimetype == "image/png"
+        assert answer.get_data()[:8] == b"\x89PNG\r\n\x1a\n"
+        assert "attachment" in answer.headers["Content-Disposition"]
+    for link in svg:
+        answer = client.get(html.unescape(link))
+        assert answer.mimetype == "image/svg+xml" and b"<svg" in answer.get_data()[:400]
+
+
+def test_csv_data_upload_is_read_as_the_cli_reads_it(client: FlaskClient) -> None:
+    """A CSV whose header names the inputs, merged with a JSON object typed in the box, is the
+    same data as the CLI makes of the same files (service.client.data_files)."""
+    from service.client.data_files import read_data_files
+
+    body = demo_submission(SMALL["chains"], SMALL["warmup"], SMALL["draws"])
+    vectors = {k: v for k, v in body["data"].items() if isinstance(v, list)}
+    scalars = {k: v for k, v in body["data"].items() if not isinstance(v, list)}
+    rows = len(next(iter(vectors.values())))
+    lines = [",".join(vectors)] + [
+        ",".join(repr(vectors[k][i]) for k in vectors) for i in range(rows)
+    ]
+    text = "\n".join(lines) + "\n"
+    form = demo_form(token="csv-token", data_text=json.dumps(scalars))
+    form["data_file"] = (io.BytesIO(text.encode()), "rows.csv")
+    answer = post_form(client, "/submit", data=form, content_type="multipart/form-data")
+    assert answer.status_code == 303, answer.get_data(as_text=True)
+    job_id = answer.headers["Location"].rsplit("/", 1)[1]
+    stored = client.get(f"/v1/jobs/{job_id}/request").get_json()["data"]
+    folder = Path(tempfile.mkdtemp())
+    (folder / "rows.csv").write_text(text)
+    (folder / "sizes.json").write_text(json.dumps(scalars))
+    assert stored == read_data_files([folder / "rows.csv", folder / "sizes.json"])
+    assert stored == body["data"]
+
+
+def test_the_error_summary_links_name_their_field(client: FlaskClient) -> None:
+    answer = post_form(client, "/submit", data=demo_form(model_text="{", token="bad-token"))
+    page = answer.get_data(as_text=True)
+    links = re.findall(r'<li><a href="#[^"]+">([^<]+)</a></li>', page)
+    assert links and all(re.fullmatch(r"[A-Z][a-z ]+\w*: \d+ problems?", t) for t in links)
+    assert "Model spec: 1 problem" in links
+
+
+def test_a_cancelled_job_is_shown_as_cancelled_in_the_list(client: FlaskClient) -> None:
+    made = post_form(client, "/submit", data=demo_form(token="cancel-list"))
+    job_id = made.headers["Location"].rsplit("/", 1)[1]
+    post_form(client, f"/jobs/{job_id}/cancel")
+    listing = client.get("/jobs").get_data(as_text=True)
+    found = re.search(rf'<tr>(?:(?!</tr>).)*?<a href="/jobs/{job_id}">.*?</tr>', listing, re.S)
+    row = found.group(0)
+    assert "none yet" not in row and "not judged (cancelled)" in row
+    assert f"0 of {SMALL['chains']}; {SMALL['chains']} cancelled" in row

@@ -15,6 +15,16 @@ UNDEFINED_REASON = {
 }
 
 
+def shown_against(value: float, limit: float, digits: int = 5) -> str:
+    """``value`` with the fewest significant digits (at least ``digits``) that show it on the
+    right side of ``limit``: 1.01004 against 1.01 reads 1.01004, not 1.01."""
+    for places in range(digits, 18):
+        text = f"{value:.{places}g}"
+        if (float(text) > limit) == (value > limit) and float(text) != limit:
+            return text
+    return repr(value)
+
+
 def _failure(
     check: str, quantity: str | None, value, threshold, message: str, chain: int | None = None
 ) -> dict:
@@ -51,7 +61,7 @@ def _quantity_failures(record: dict, limits: dict) -> list[dict]:
         return failures
     rhat = record.get("rhat")
     if max_rhat is not None and (rhat is None or rhat > max_rhat):
-        shown = "infinite" if rhat is None else f"{rhat:.4g}"
+        shown = "infinite" if rhat is None else shown_against(rhat, max_rhat)
         failures.append(
             _failure(
                 "max_rhat",
@@ -77,8 +87,8 @@ def _quantity_failures(record: dict, limits: dict) -> list[dict]:
                     name,
                     value,
                     limit,
-                    f"The {what} of {name} is {value:.0f}, below {limit:g}: too few effectively "
-                    "independent draws for reliable estimates.",
+                    f"The {what} of {name} is {shown_against(value, limit, 4)}, below "
+                    f"{limit:g}: too few effectively independent draws for reliable estimates.",
                 )
             )
     return failures
@@ -111,8 +121,9 @@ def _sampler_failures(report: dict, limits: dict) -> list[dict]:
                         None,
                         value,
                         min_ebfmi,
-                        f"E-BFMI of chain {i + 1} is {value:.3g}, below {min_ebfmi:g}: momentum "
-                        "refreshes move the energy too little, so the tails are explored slowly.",
+                        f"E-BFMI of chain {i + 1} is {shown_against(value, min_ebfmi, 3)}, "
+                        f"below {min_ebfmi:g}: momentum refreshes move the energy too little, "
+                        "so the tails are explored slowly.",
                         chain=i + 1,
                     )
                 )

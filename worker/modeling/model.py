@@ -68,14 +68,25 @@ class CompiledModel:
         self.unknown_names = [n for s in assembly.slots for n in flat_names(s.name, s.shape)]
         self._prediction_shapes = self._trial()
         names = list(self.unknown_names)
-        for name, node in assembly.derived.items():
-            names += flat_names(name, graph.type_of(node).shape)
-        for name, node in assembly.formulas.items():
-            names += flat_names(name, graph.type_of(node).shape)
+        # Quantities whose every value is a whole number: integer derived quantities and
+        # formulas, and draws from discrete distributions; downloads give them an integer type.
+        integers: list[str] = []
+        for name, node in (*assembly.derived.items(), *assembly.formulas.items()):
+            flat = flat_names(name, graph.type_of(node).shape)
+            names += flat
+            if graph.type_of(node).kind == "integer":
+                integers += flat
         for term, shape in zip(assembly.predictions, self._prediction_shapes, strict=True):
-            names += flat_names(term.name, shape)
+            flat = flat_names(term.name, shape)
+            names += flat
+            if term.distribution.discrete:
+                integers += flat
         for name in assembly.replicates:
-            names += flat_names(f"replicate.{name}", self._likelihood[name].shape)
+            flat = flat_names(f"replicate.{name}", self._likelihood[name].shape)
+            names += flat
+            if self._likelihood[name].distribution.discrete:
+                integers += flat
+        self.integer_quantities = frozenset(integers)
         for name in assembly.pointwise:
             term = self._likelihood[name]
             batch = term.shape[:len(term.shape) - term.distribution.event_ndim]

@@ -240,7 +240,9 @@ class Chain:
                 break
             self.step()
             done = self.iteration
-            if progress is not None and (done % stride == 0 or done == self.total_iterations):
+            # Also at the last warm-up iteration, so warm-up's final divergence count is reported.
+            boundary = done in (self.settings.warmup_iterations, self.total_iterations)
+            if progress is not None and (done % stride == 0 or boundary):
                 phase = "warmup" if done <= self.settings.warmup_iterations else "sampling"
                 progress(phase, done, self.divergences[phase])
             if checkpoint is not None and done % checkpoint_every == 0:
