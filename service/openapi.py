@@ -139,10 +139,6 @@ OPERATION_IDS = {
     ("post", "/v1/models/{name}/versions"): "registerModelVersion",
     ("get", "/v1/models/{name}/versions"): "listModelVersions",
     ("get", "/v1/models/{name}/versions/{version}"): "getModelVersion",
-    ("get", "/v1/jobs/{job_id}/predictive-accuracy"): "getJobPredictiveAccuracy",
-    ("get", "/v1/jobs/{job_id}/evidence"): "getJobEvidence",
-    ("post", "/v1/comparisons"): "compareJobs",
-    ("post", "/v1/bayes-factors"): "getBayesFactor",
     ("get", "/metrics"): "scrapeMetrics",
     ("get", "/v1/openapi.json"): "getOpenApiDocument",
 }
