@@ -7,6 +7,7 @@ Reference: the normal mean with known variance (BDA3, Gelman et al. 2013, sectio
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 from flask import Flask
@@ -101,6 +102,8 @@ def test_the_submit_page_offers_the_approximations_and_runs_one(app: Flask, queu
     body = approximation("grid")
     form = {"model_text": json.dumps(body["model"]), "data_text": json.dumps(body["data"]),
             "method": "grid", "draws": "500", "seed": "4"}
+    # the form's CSRF field, as the page rendered it
+    form["csrf"] = re.search(r'name="csrf" value="([^"]+)"', page).group(1)
     waiting = queue.length()
     response = client.post("/submit", data=form)
     assert response.status_code == 303

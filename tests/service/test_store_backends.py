@@ -156,7 +156,8 @@ def test_an_expired_lease_passes_on_and_fences_out_the_old_holder(runtime: Runti
         )
     new = take_lease(runtime, job_id, 1)
     assert new is not None and new.token != old.token and new.attempt == 2
-    monitor = SimpleNamespace(phase="sampling", divergences=0)
+    monitor = SimpleNamespace(phase="sampling", divergences=0,
+                              divergence_counts=lambda: {"divergences": 0})
     draws = np.arange(20.0).reshape(10, 2)
     assert store_result(runtime, old, fake_result(draws), monitor) is False
     assert end_chain(runtime, old, "failed", "stale") is False
