@@ -354,20 +354,7 @@ def names_in(node: Node) -> set[str]:
         n = stack.pop()
         if isinstance(n, Name):
             found.add(n.name)
-        elif isinstance(n, Unary):
-            stack.append(n.operand)
-        elif isinstance(n, Binary):
-            stack.extend((n.left, n.right))
-        elif isinstance(n, Call):
-            stack.extend(n.arguments)
-        elif isinstance(n, Index):
-            stack.append(n.target)
-            stack.extend(n.indices)
-        elif isinstance(n, VectorLiteral):
-            stack.extend(n.items)
-        elif isinstance(n, MatrixLiteral):
-            for row in n.rows:
-                stack.extend(row)
+        stack.extend(children(n))
     return found
 
 
@@ -382,23 +369,9 @@ def matrix_product_partners(node: Node, name: str) -> list[str | None]:
                 and n.right.name == name and isinstance(n.left, Name):
             partners.append(n.left.name)
             continue
-        if isinstance(n, Name):
-            if n.name == name:
-                partners.append(None)
-        elif isinstance(n, Unary):
-            stack.append(n.operand)
-        elif isinstance(n, Binary):
-            stack.extend((n.left, n.right))
-        elif isinstance(n, Call):
-            stack.extend(n.arguments)
-        elif isinstance(n, Index):
-            stack.append(n.target)
-            stack.extend(n.indices)
-        elif isinstance(n, VectorLiteral):
-            stack.extend(n.items)
-        elif isinstance(n, MatrixLiteral):
-            for row in n.rows:
-                stack.extend(row)
+        if isinstance(n, Name) and n.name == name:
+            partners.append(None)
+        stack.extend(children(n))
     return partners
 
 
