@@ -12,7 +12,13 @@ from worker.samplers import snapshot as snapshot_format
 from worker.samplers.dual_averaging import DualAveraging, initial_step_size
 from worker.samplers.hamiltonian import Metric, State
 from worker.samplers.initialisation import initial_state
-from worker.samplers.metric_adaptation import RunningCovariance, warmup_schedule
+from worker.samplers.metric_adaptation import (
+    FIXED_CORRELATIONS_AFTER,
+    NUTS_CORRELATIONS_AFTER,
+    DiscountedCovariance,
+    shrunk,
+    warmup_schedule,
+)
 from worker.samplers.metropolis import (
     MetropolisTransition,
     RandomWalkProposal,
@@ -23,12 +29,7 @@ from worker.samplers.nuts import NutsTransition
 from worker.samplers.settings import SamplerSettings
 from worker.samplers.static_hmc import StaticHmcTransition
 from worker.samplers.target import CountedTarget, Target
-from worker.samplers.warm_schedule import (
-    WarmStart,
-    converted,
-    refreshed,
-    warm_schedule,
-)
+from worker.samplers.warm_schedule import WarmStart, converted, refreshed, warm_schedule
 
 STAT_TYPES: dict[str, dict[str, type]] = {
     "nuts": {
@@ -118,7 +119,7 @@ class Chain:
         self.rng = np.random.default_rng(sampling_sequence(seed, 0))
         self.iteration = 0
         self.divergences = {"warmup": 0, "sampling": 0}
-        self.estimator = RunningCovariance(self.dimension, settings.preconditioning == "full")
+        self.estimator = DiscountedCovariance(self.dimension, settings.preconditioning == "full")
         target = self.target  # the counting wrapper from _setup: initialisation is counted too
         with np.errstate(all="ignore"):
             self.state = initial_state(
@@ -179,10 +180,13 @@ class Chain:
         self.goal = settings.acceptance_goal(self.dimension)
         self.schedule = warmup_schedule(settings.warmup_iterations)
         self._metropolis = settings.method == "metropolis"
+        self._correlations_after = (
+            NUTS_CORRELATIONS_AFTER if settings.method == "nuts" else FIXED_CORRELATIONS_AFTER
+        )
         self._types = STAT_TYPES[settings.method]
         # No preconditioning has nothing to estimate, so its warm-up is step size (or scale) only.
         adapting = settings.preconditioning != "none"
-        self._windows = self.schedule.window_ends if adapting else frozenset()
+        self._refits = frozenset(self.schedule.refits) if adapting else frozenset()
         self.warm_covariance: np.ndarray | None = None
 
     def _check_warm_start(self, warm: WarmStart) -> None:
@@ -206,7 +210,7 @@ class Chain:
         self.warm_covariance = np.array(covariance, dtype=np.float64)
         self.schedule = warm_schedule(self.settings.warmup_iterations)
         adapting = self.settings.preconditioning != "none"
-        self._windows = self.schedule.window_ends if adapting else frozenset()
+        self._refits = frozenset(self.schedule.refits) if adapting else frozenset()
 
     def _allocate(self) -> None:
         s = self.settings
@@ -304,50 +308,56 @@ class Chain:
 
     def _adapt_hamiltonian(self, i: int, acceptance: float) -> None:
         self.step_size = self.dual.update(acceptance)
-        if self._windows and self.schedule.in_window(i):
+        if self._refits and self.schedule.collects(i):
             self.estimator.add(self.state.position)
-        if i + 1 in self._windows and self.warm_covariance is not None:
-            estimate = refreshed(self.warm_covariance, self.estimator)
-            self.estimator.reset()
+        if i + 1 in self._refits:
+            estimate = self._refitted(self.metric.inverse)
             if estimate is not None:
                 self.metric = Metric(self.settings.preconditioning, estimate)
-            # The refreshed metric is close to the one the step size was adapted to, so the
-            # averaged step size so far is a better start than a fresh one-step search.
-            self.step_size = self.dual.final_step_size()
-            self.dual = DualAveraging.start(self.step_size, self.goal)
-        elif i + 1 in self._windows:
-            estimate = self.estimator.regularised()
-            self.estimator.reset()
-            if estimate is not None:
-                self.metric = Metric(self.settings.preconditioning, estimate)
-            # A new metric changes the scale of every direction: search a fresh step size and
-            # restart dual averaging around it (Hoffman & Gelman 2014, section 3.2).
-            self.step_size = initial_step_size(
-                self.target, self.metric, self.state, self.step_size, self.rng
-            )
+            if self.warm_covariance is not None:
+                # The refreshed metric is close to the one the step size was adapted to, so the
+                # averaged step size so far is a better start than a fresh one-step search.
+                self.step_size = self.dual.final_step_size()
+            else:
+                # A new metric changes the scale of every direction: search a fresh step size
+                # (Hoffman & Gelman 2014, section 3.2).
+                self.step_size = initial_step_size(
+                    self.target, self.metric, self.state, self.step_size, self.rng
+                )
             self.dual = DualAveraging.start(self.step_size, self.goal)
         if i + 1 == self.settings.warmup_iterations:
             self.step_size = self.dual.final_step_size()
+
+    def _refitted(self, in_use: np.ndarray) -> np.ndarray | None:
+        """The metric (or proposal covariance) refitted at the end of a block; the estimator
+        then moves on to the next block. None when the blocks hold too few draws to refit."""
+        estimate = self.estimator.estimate()
+        # A cold start's first block may still hold the end of the fall into the bulk: it is
+        # never carried into the next fit.
+        first = self.iteration + 1 == self.schedule.refits[0]
+        self.estimator.advance(keep=self.warm_covariance is not None or not first)
+        if estimate is None:
+            return None
+        covariance, effective = estimate
+        if self.warm_covariance is not None:
+            return refreshed(self.warm_covariance, covariance, effective)
+        return shrunk(covariance, effective, in_use, correlations_after=self._correlations_after)
 
     def _adapt_proposal(self, i: int, acceptance: float) -> None:
         proposal = self.proposal
         self.scale_updates += 1
         proposal.log_scale += scale_gain(self.scale_updates) * (acceptance - self.goal)
         proposal.log_scale = min(max(proposal.log_scale, -LOG_SCALE_LIMIT), LOG_SCALE_LIMIT)
-        if self._windows and self.schedule.in_window(i):
+        if self._refits and self.schedule.collects(i):
             self.estimator.add(self.state.position)
-        if i + 1 in self._windows and self.warm_covariance is not None:
-            estimate = refreshed(self.warm_covariance, self.estimator)
-            self.estimator.reset()
-            if estimate is not None:
+        if i + 1 in self._refits:
+            estimate = self._refitted(self.proposal.covariance)
+            if estimate is not None and self.warm_covariance is not None:
                 # A refresh changes the shape a little: the adapted scale still fits it.
                 self.proposal = RandomWalkProposal(
                     self.settings.preconditioning, estimate, self.proposal.log_scale
                 )
-        elif i + 1 in self._windows:
-            estimate = self.estimator.regularised()
-            self.estimator.reset()
-            if estimate is not None:
+            elif estimate is not None:
                 # With the covariance learned, the optimal scale is again about 2.38/sqrt(d).
                 self.proposal = RandomWalkProposal(
                     self.settings.preconditioning, estimate, default_log_scale(self.dimension)
@@ -356,7 +366,7 @@ class Chain:
         warmup = self.settings.warmup_iterations
         # Polyak-Ruppert average over the second half of the stretch with the final proposal
         # shape, leaving out the restart's first, large-gain iterations.
-        settled = self.schedule.final_start if self._windows else 0
+        settled = self.schedule.polish_start if self._refits else 0
         average_from = (settled + warmup) // 2
         if i >= average_from:
             self.average_sum += self.proposal.log_scale
@@ -408,7 +418,7 @@ class Chain:
             "generator": self.rng.bit_generator.state,
             "log_density": self.state.log_density,
             "divergences": self.divergences,
-            "estimator_count": self.estimator.count,
+            "estimator_counts": self.estimator.counts(),
         }
         if self._counts_known:
             header["evaluations"] = self.evaluations.as_json()
@@ -469,8 +479,8 @@ class Chain:
         chain.state = State(
             np.array(arrays["position"]), float(header["log_density"]), np.array(arrays["gradient"])
         )
-        chain.estimator = RunningCovariance(chain.dimension, settings.preconditioning == "full")
-        chain.estimator.load(int(header["estimator_count"]), arrays, "estimator_")
+        chain.estimator = DiscountedCovariance(chain.dimension, settings.preconditioning == "full")
+        chain.estimator.load(header["estimator_counts"], arrays, "estimator_")
         done = arrays["draws"].shape[0]
         chain.draws[:done] = arrays["draws"]
         for k, v in chain.stats.items():

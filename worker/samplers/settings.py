@@ -26,7 +26,9 @@ class SamplerSettings:
     jitter: bool = True
     divergence_threshold: float = 1000.0
     initialisation: str = "random"
-    start_spread: float = 2.0
+    # The sd of random starts on the unconstrained scale (worker/samplers/initialisation.py): a
+    # standard normal by default, so a positive unknown starts within e^-2..e^2 in 95% of draws.
+    start_spread: float = 1.0
 
     def __post_init__(self) -> None:
         problems = settings_problems(self)

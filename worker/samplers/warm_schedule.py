@@ -2,20 +2,24 @@
 
 A warm start brings an earlier fit's adapted state (for NUTS and static HMC a step size and an
 inverse metric; for Metropolis a proposal covariance and scale) and its final position, from a fit
-of the same model to earlier data. Those are close to right for the new data, so the windowed
-warm-up of a cold start (metric_adaptation.py) is replaced by three stretches:
+of the same model to earlier data. Those are close to right for the new data, so the cold-start
+stages of metric_adaptation.py are kept but laid out for a metric that needs correcting, not
+finding:
 
-1. settle, the first 25% of warm-up: the step size (or proposal scale) adapts while the chain moves
-   from the earlier position into the new posterior; the earlier metric is used from iteration 0;
-2. one refresh window, to 80% of warm-up: at its end the metric becomes the window's covariance
-   shrunk toward the earlier metric (not toward a scaled identity as in a cold start), with weight
-   n / (n + EARLIER_COUNT) for a window of n draws. The earlier metric acts as a prior guess worth
-   EARLIER_COUNT draws: a short window corrects it where the new data moved the posterior without
-   replacing it by a noisy estimate;
-3. final, the last 20%: the step size (or scale) only, to the refreshed metric.
+1. approach, the first 25% of warm-up: the step size (or proposal scale) adapts while the chain
+   moves from the earlier position into the new posterior, with the earlier metric from iteration 0;
+2. shaping, to 80% of warm-up, with refits at 50% and 80%. The first block is drawn under the
+   earlier metric, which may be off for the new data; the refit at 50% corrects it, and the final
+   refit weighs the block drawn under the corrected metric fully and the first at OLDER_WEIGHT
+   (DiscountedCovariance). Each refit is shrunk toward the earlier metric (its variances on the log
+   scale, its correlations linearly), which acts as a prior guess worth EARLIER_COUNT draws: a short
+   block corrects it where the new data moved the posterior without replacing it by a noisy
+   estimate;
+3. polish, the last 20%: the step size (or scale) only, to the refreshed metric.
 
-Warm-ups shorter than 20 iterations keep the earlier metric and adapt the step size only; a warm-up
-of 0 samples with the earlier state as it is.
+When the first block would hold fewer than MINIMUM_BLOCK draws (warm-ups under 40 iterations) the
+earlier metric is kept and only the step size adapts; a warm-up of 0 samples with the earlier state
+as it is.
 """
 
 from __future__ import annotations
@@ -24,10 +28,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from worker.samplers.metric_adaptation import MIN_WINDOWED_WARMUP, RunningCovariance, WarmupSchedule
+from worker.samplers.metric_adaptation import (
+    MINIMUM_BLOCK,
+    WarmupSchedule,
+    correlation_of,
+    shrunk,
+)
 
-SETTLE_FRACTION = 0.25
-REFRESH_END_FRACTION = 0.80
+APPROACH_FRACTION = 0.25
+FIRST_REFIT_FRACTION = 0.50
+SHAPING_END_FRACTION = 0.80
+# Fifty draws estimate a variance within about 20% (the relative sd of a sample variance is
+# sqrt(2 / (n - 1))), about what an earlier fit of the same model is trusted to be off by.
 EARLIER_COUNT = 50.0
 
 
@@ -48,12 +60,12 @@ class WarmStart:
 
 
 def warm_schedule(warmup: int) -> WarmupSchedule:
-    """One refresh window inside a short warm-up (see the module docstring)."""
-    if warmup < MIN_WINDOWED_WARMUP:
-        return WarmupSchedule(warmup, ())
-    start = int(SETTLE_FRACTION * warmup)
-    end = int(REFRESH_END_FRACTION * warmup)
-    return WarmupSchedule(warmup, ((start, end),))
+    """Approach, two refits and polish inside a short warm-up (see the module docstring)."""
+    approach = int(APPROACH_FRACTION * warmup)
+    middle = int(FIRST_REFIT_FRACTION * warmup)
+    if middle - approach < MINIMUM_BLOCK:
+        return WarmupSchedule(warmup, approach, ())
+    return WarmupSchedule(warmup, approach, (middle, int(SHAPING_END_FRACTION * warmup)))
 
 
 def converted(covariance: np.ndarray, kind: str, dimension: int) -> np.ndarray:
@@ -70,17 +82,9 @@ def converted(covariance: np.ndarray, kind: str, dimension: int) -> np.ndarray:
     return covariance if covariance.ndim == 1 else np.diagonal(covariance).copy()
 
 
-def refreshed(earlier: np.ndarray, window: RunningCovariance) -> np.ndarray | None:
-    """The window's covariance shrunk toward the earlier metric, or None if the window is unusable.
-
-    A convex combination of a positive semi-definite covariance and a positive definite earlier
-    metric is positive definite, so the result is always a valid metric.
-    """
-    covariance = window.covariance()
-    if covariance is None:
-        return None
-    weight = window.count / (window.count + EARLIER_COUNT)
-    result = weight * covariance + (1.0 - weight) * earlier
-    if result.ndim == 2:
-        result = 0.5 * (result + result.T)
-    return result
+def refreshed(earlier: np.ndarray, covariance: np.ndarray, effective: float) -> np.ndarray:
+    """An estimate of ``effective`` draws shrunk toward the earlier metric: a valid metric."""
+    # The earlier correlations are a real guess, so the new ones count from the first draw.
+    return shrunk(
+        covariance, effective, earlier, EARLIER_COUNT, EARLIER_COUNT, correlation_of(earlier), 0.0
+    )
