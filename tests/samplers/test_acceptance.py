@@ -29,7 +29,7 @@ def test_dual_averaging_hits_target_and_sampling_follows(method: str) -> None:
     for goal in (0.6, 0.8, 0.95):
         settings = SamplerSettings(method=method, target_acceptance=goal, draws=500)
         _, outputs = run_chains(TEN_SCALES, settings, seed=31, chains=2)
-        final = warmup_schedule(settings.warmup_iterations).final_start
+        final = warmup_schedule(settings.warmup_iterations).polish_start
         adapting = np.mean(
             [out.warmup_stats["accept_probability"][final:].mean() for out in outputs]
         )

@@ -1,9 +1,9 @@
 """Snapshot and restore: a chain resumed from any iteration makes exactly the uninterrupted draws.
 
 The requirement is exact (bitwise) equality, so the comparison is array_equal, not a tolerance.
-Stopping points cover warm-up start, the initial fast stretch, both sides of every window boundary
-of a 200-iteration warm-up (windows [30, 40), [40, 60), [60, 100), [100, 180)), the end of warm-up,
-and sampling.
+Stopping points cover warm-up start, the approach stage, both sides of the approach's end and of
+every refit of a 200-iteration warm-up (approach to 10, refits after iterations 20, 40, 80 and
+160), the end of warm-up, and sampling.
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ from worker.samplers import Chain, SamplerSettings, SnapshotError
 from worker.samplers.metric_adaptation import warmup_schedule
 from worker.samplers.warm_schedule import WarmStart, warm_schedule
 
-STOPS = [0, 1, 17, 29, 30, 31, 39, 40, 41, 99, 100, 101, 179, 180, 181, 199, 200, 201, 263]
+STOPS = [0, 1, 9, 10, 11, 19, 20, 21, 39, 40, 41, 79, 80, 81, 159, 160, 161, 199, 200, 201, 263]
 
 
 def target() -> Gaussian:
@@ -40,7 +40,8 @@ def same_output(a, b) -> bool:
 
 
 def test_schedule_has_the_boundaries_the_stops_straddle() -> None:
-    assert warmup_schedule(200).windows == ((30, 40), (40, 60), (60, 100), (100, 180))
+    schedule = warmup_schedule(200)
+    assert (schedule.approach_end, schedule.refits) == (10, (20, 40, 80, 160))
 
 
 @pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
@@ -89,14 +90,14 @@ def test_restore_rejects_foreign_bytes_and_wrong_dimension() -> None:
         Chain.restore(Gaussian(np.zeros(2), np.eye(2)), blob)
 
 
-# A warm start's schedule for 200 iterations has one refresh window, [50, 160).
-WARM_STOPS = [0, 1, 49, 50, 51, 159, 160, 161, 199, 200, 201, 263]
+# A warm start's schedule for 200 iterations: approach to 50, refits after 100 and 160.
+WARM_STOPS = [0, 1, 49, 50, 51, 99, 100, 101, 159, 160, 161, 199, 200, 201, 263]
 
 
 @pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
 @pytest.mark.parametrize("metric", ["per_coordinate", "full", "none"])
 def test_a_warm_started_chain_resumes_anywhere_with_identical_draws(method, metric) -> None:
-    assert warm_schedule(200).windows == ((50, 160),)
+    assert (warm_schedule(200).approach_end, warm_schedule(200).refits) == (50, (100, 160))
     covariance = target().covariance
     metropolis = method == "metropolis"
     start = WarmStart(

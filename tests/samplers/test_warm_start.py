@@ -1,9 +1,9 @@
 """A chain started from an earlier chain's adapted state (worker/samplers/warm_schedule.py).
 
-What is checked: the warm schedule's single refresh window; the earlier metric and step size are
-used from iteration 0 and the earlier position is the first state unless a point is given; the
-metric at the window's end is the window covariance shrunk toward the earlier metric with the
-documented weight; earlier metrics of another kind are converted as documented; the earlier state
+What is checked: the warm schedule's stages (approach to 25%, refits at 50% and 80%); the earlier
+metric and step size are used from iteration 0 and the earlier position is the first state unless a
+point is given; the metric after each refit is the blocks' weighted covariance (numpy.cov with
+aweights) shrunk toward the earlier metric with the documented weights; earlier metrics of another kind are converted as documented; the earlier state
 is a start, not a fixed setting (a step size 100 times too large is adapted away).
 """
 
@@ -14,7 +14,7 @@ import pytest
 
 from tests.samplers.targets import Gaussian
 from worker.samplers import Chain, SamplerSettings
-from worker.samplers.metric_adaptation import RunningCovariance
+from worker.samplers.metric_adaptation import OLDER_WEIGHT
 from worker.samplers.warm_schedule import EARLIER_COUNT, WarmStart, warm_schedule
 
 COVARIANCE = np.array([[1.0, 0.6, 0.0], [0.6, 2.0, -0.3], [0.0, -0.3, 0.5]])
@@ -36,20 +36,25 @@ def warm(metric: str = "per_coordinate", step_size: float = 0.7, method: str = "
     )
 
 
-def test_the_warm_schedule_has_one_refresh_window() -> None:
-    assert warm_schedule(200).windows == ((50, 160),)
-    assert warm_schedule(250).windows == ((62, 200),)
-    assert warm_schedule(19).windows == ()
-    assert warm_schedule(0).windows == ()
+def stages(schedule) -> tuple[int, tuple[int, ...]]:
+    return schedule.approach_end, schedule.refits
+
+
+def test_the_warm_schedule_has_an_approach_two_refits_and_polish() -> None:
+    assert stages(warm_schedule(200)) == (50, (100, 160))
+    assert stages(warm_schedule(250)) == (62, (125, 200))
+    assert stages(warm_schedule(38)) == (9, (19, 30))  # the shortest with a 10-draw first block
+    assert warm_schedule(37).refits == ()
+    assert warm_schedule(0).refits == ()
 
 
 @pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
 def test_a_warm_chain_uses_the_warm_schedule(method: str) -> None:
     settings = SamplerSettings(method=method, warmup_iterations=200, draws=10)
     chain = Chain(target(), settings, np.random.SeedSequence(3), warm_start=warm(method=method))
-    assert chain.schedule.windows == ((50, 160),)
+    assert stages(chain.schedule) == (50, (100, 160))
     cold = Chain(target(), settings, np.random.SeedSequence(3))
-    assert cold.schedule.windows != chain.schedule.windows
+    assert stages(cold.schedule) != stages(chain.schedule)
 
 
 @pytest.mark.parametrize("method", ["nuts", "hmc"])
@@ -86,9 +91,30 @@ def test_the_earlier_position_is_the_first_state(initialisation: str) -> None:
     assert chain.state.position.tolist() == given.tolist()
 
 
+def expected_refresh(earlier: np.ndarray, draws: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    """The documented refresh, written out independently of worker/samplers: numpy.cov with
+    ``aweights`` for the estimate, Kish's effective count n = (sum w)^2 / sum w^2, then each
+    variance log-linearly and each correlation linearly toward the earlier metric's, with weight
+    n / (n + EARLIER_COUNT)."""
+    covariance = np.atleast_2d(np.cov(draws.T, aweights=weights))
+    n = weights.sum() ** 2 / (weights**2).sum()
+    w = n / (n + EARLIER_COUNT)
+    earlier_matrix = earlier if earlier.ndim == 2 else np.diag(earlier)
+    variances = np.exp(
+        w * np.log(np.diag(covariance)) + (1 - w) * np.log(np.diag(earlier_matrix))
+    )
+    if earlier.ndim == 1:
+        return variances
+    sd, earlier_sd = np.sqrt(np.diag(covariance)), np.sqrt(np.diag(earlier_matrix))
+    correlation = w * covariance / np.outer(sd, sd) + (1 - w) * earlier_matrix / np.outer(
+        earlier_sd, earlier_sd
+    )
+    return correlation * np.outer(np.sqrt(variances), np.sqrt(variances))
+
+
 @pytest.mark.parametrize("method", ["nuts", "metropolis"])
 @pytest.mark.parametrize("metric", ["per_coordinate", "full"])
-def test_the_refresh_shrinks_the_window_covariance_toward_the_earlier_metric(
+def test_each_refit_shrinks_the_blocks_covariance_toward_the_earlier_metric(
     metric, method
 ) -> None:
     settings = SamplerSettings(
@@ -96,19 +122,26 @@ def test_the_refresh_shrinks_the_window_covariance_toward_the_earlier_metric(
     )
     start = warm(metric, method=method)
     chain = Chain(target(), settings, np.random.SeedSequence(6), warm_start=start)
-    window = RunningCovariance(3, metric == "full")
+
+    def current() -> np.ndarray:
+        return chain.proposal.covariance if method == "metropolis" else chain.metric.inverse
+
     chain.run(should_stop=lambda: chain.iteration >= 50)
+    positions = []
     while chain.iteration < 160:
         chain.step()
-        window.add(chain.state.position)
-        if chain.iteration < 160:
-            current = chain.proposal.covariance if method == "metropolis" else chain.metric.inverse
-            assert current.tolist() == start.covariance.tolist()
-    assert window.count == 110
-    weight = 110 / (110 + EARLIER_COUNT)
-    expected = weight * window.covariance() + (1 - weight) * start.covariance
-    refreshed = chain.proposal.covariance if method == "metropolis" else chain.metric.inverse
-    np.testing.assert_allclose(refreshed, expected, rtol=1e-12)
+        positions.append(chain.state.position.copy())
+        if chain.iteration < 100:
+            assert current().tolist() == start.covariance.tolist()
+        if chain.iteration == 100:
+            first = np.array(positions)
+            np.testing.assert_allclose(
+                current(), expected_refresh(start.covariance, first, np.ones(50)), rtol=1e-10
+            )
+    # The final refit: the block [100, 160) at weight 1 and the block [50, 100) at OLDER_WEIGHT.
+    weights = np.r_[np.full(50, OLDER_WEIGHT), np.ones(60)]
+    expected = expected_refresh(start.covariance, np.array(positions), weights)
+    np.testing.assert_allclose(current(), expected, rtol=1e-10)
 
 
 @pytest.mark.parametrize(
