@@ -3,8 +3,9 @@
 What is checked: the warm schedule's stages (approach to 25%, refits at 50% and 80%); the earlier
 metric and step size are used from iteration 0 and the earlier position is the first state unless a
 point is given; the metric after each refit is the blocks' weighted covariance (numpy.cov with
-aweights) shrunk toward the earlier metric with the documented weights; earlier metrics of another kind are converted as documented; the earlier state
-is a start, not a fixed setting (a step size 100 times too large is adapted away).
+aweights) shrunk toward the earlier metric with the documented weights; earlier metrics of another
+kind are converted as documented; the earlier state is a start, not a fixed setting (a step size
+100 times too large is adapted away).
 """
 
 from __future__ import annotations

@@ -5,18 +5,19 @@ Warm-up has three stages:
 1. approach, the first max(APPROACH_MINIMUM, APPROACH_FRACTION x warm-up) iterations: the step
    size adapts with the unit metric while the chain falls from its starting point into the bulk.
    Those draws are never used for the metric: far from the bulk they would inflate it.
-2. shaping, from the end of approach to SHAPING_END_FRACTION of warm-up: the metric is refitted at
-   points placed at fixed fractions of warm-up, SHAPING_END_FRACTION x GROWTH^-k (k = 0, 1, ...),
-   kept while the first block (from the end of approach to the first point) holds at least
-   MINIMUM_BLOCK draws. Each refit uses the draws of the block just ended at full weight and those
-   of the block before it at weight OLDER_WEIGHT (DiscountedCovariance), shrunk as ``shrunk`` says;
-   anything older is forgotten, so what the chain did under a poor early metric stops counting.
-   After a refit the step size is searched afresh and dual averaging restarts around it.
+2. shaping, from the end of approach to SHAPING_END_FRACTION of warm-up: the metric is refitted
+   MINIMUM_BLOCK draws after the end of approach, at SHAPING_END_FRACTION of warm-up, and at
+   points between them in a geometric progression whose ratio is the nearest to GROWTH that a
+   whole number of steps allows. Each refit uses the draws of the block just ended at full weight
+   and those of the block before it at weight OLDER_WEIGHT (DiscountedCovariance), shrunk as
+   ``shrunk`` says; anything older is forgotten, so what the chain did under a poor early metric
+   stops counting, and the first block, which may still hold the end of the approach, is never
+   carried on. After a refit the step size is searched afresh and dual averaging restarts.
 3. polish, the last 1 - SHAPING_END_FRACTION of warm-up: the step size only, to the final metric.
 
-With the default 1000 warm-up iterations: approach 0-20, refits after iterations 30, 89, 267 and
-800 (blocks of 10, 59, 178 and 533 draws), polish 800-1000. When no block of MINIMUM_BLOCK draws
-fits (warm-ups under 38 iterations), the whole warm-up adapts the step size only.
+With the default 1000 warm-up iterations: approach 0-10, refits after iterations 20, 42, 87, 183,
+383 and 800, polish 800-1000; with 200: approach 0-10, refits after 20, 40, 80 and 160. Warm-ups
+under 25 iterations (no room for a first block before 80%) adapt the step size only.
 """
 
 from __future__ import annotations
