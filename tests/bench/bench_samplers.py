@@ -5,12 +5,17 @@ printed beside them) are comparable. Costs cover the whole chain, warm-up includ
 wall time and calls of the log density and gradient (log density alone for random-walk
 Metropolis). ESS is worker.diagnostics.bulk_ess over all chains of a case, minimum over the
 unconstrained coordinates.
+
+`python tests/bench/bench_samplers.py --against OLD_TREE [case ...]` runs every case (or those
+named) with the code of another checkout and with this one, alternately, and prints a table of
+the two side by side (tests/bench/RESULTS.md, warm-up redesign).
 """
 
 from __future__ import annotations
 
 import time
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
@@ -182,7 +187,59 @@ def main(only: list[str] | None = None) -> None:
     print("ratios (per gradient evaluation): " + "; ".join(shown), flush=True)
 
 
+def compare(old_tree: str, only: list[str]) -> None:
+    """Each case run by the code in ``old_tree`` (a checkout of an earlier commit) and by this
+    one, alternately, in fresh processes: a markdown table of ESS per evaluation, new over old.
+
+    The per-evaluation figures are deterministic for the fixed seeds, so only the per-second
+    ones depend on the machine's load at the time.
+    """
+    import json
+    import os
+    import subprocess
+    import sys
+
+    here = Path(__file__).resolve()
+    trees = {"old": str(Path(old_tree).resolve()), "new": str(here.parents[2])}
+    names = [n for n in cases() if not only or n in only]
+    print("| case | old per evaluation | new per evaluation | new / old | old per s | new per s |")
+    print("|---|---|---|---|---|---|")
+    for name in names:
+        found = {}
+        for which, tree in trees.items():
+            environment = {**os.environ, "PYTHONPATH": tree, "OPENBLAS_NUM_THREADS": "1"}
+            done = subprocess.run(
+                [sys.executable, str(here), "--json", name],
+                cwd=tree, env=environment, capture_output=True, text=True, check=True,
+            )  # fmt: skip
+            found[which] = json.loads(done.stdout.strip().splitlines()[-1])
+        old, new = found["old"], found["new"]
+        print(
+            f"| {old['label']} | {old['per_evaluation']:.5f} | {new['per_evaluation']:.5f} | "
+            f"{new['per_evaluation'] / old['per_evaluation']:.2f} | {old['per_second']:.1f} | "
+            f"{new['per_second']:.1f} |",
+            flush=True,
+        )
+
+
+def one_as_json(name: str) -> None:
+    import json
+
+    label, target, settings, chains = cases()[name]
+    figures = measure(label, target, settings, chains)
+    print(json.dumps({"label": label, "per_evaluation": figures.per_evaluation,
+                      "per_second": figures.per_second}))  # fmt: skip
+
+
 if __name__ == "__main__":
     import sys
 
-    main(sys.argv[1:])
+    arguments = sys.argv[1:]
+    if arguments[:1] == ["--json"]:
+        one_as_json(arguments[1])
+    elif arguments[:1] == ["--against"]:
+        # This process only lists the cases; the children import the code of their own tree.
+        sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+        compare(arguments[1], arguments[2:])
+    else:
+        main(arguments)
