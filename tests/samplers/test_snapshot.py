@@ -119,3 +119,21 @@ def test_a_warm_started_chain_resumes_anywhere_with_identical_draws(method, metr
         resumed = Chain.restore(target(), first.snapshot())
         assert resumed.schedule == first.schedule
         assert same_output(resumed.run(), reference), f"{method}/{metric}: differs after {stop}"
+
+
+def test_a_snapshot_made_under_the_earlier_warm_up_is_refused() -> None:
+    """Version 1 snapshots held one estimator block of the earlier warm-up: resuming one under
+    the present schedule would mix two designs, so it is refused (the service then starts the
+    chain over, which gives the same draws as an uninterrupted run)."""
+    import json
+
+    from worker.samplers import snapshot as snapshot_format
+
+    blob = Chain(target(), SamplerSettings(), np.random.SeedSequence(2)).snapshot()
+    header, arrays = snapshot_format.decode(blob)
+    header["version"] = 1
+    text = json.dumps(header).encode("utf-8")
+    buffer = io.BytesIO()
+    np.savez(buffer, **arrays, header_json=np.frombuffer(text, dtype=np.uint8))
+    with pytest.raises(SnapshotError, match="version 1"):
+        Chain.restore(target(), buffer.getvalue())

@@ -16,7 +16,10 @@ from typing import Any
 import numpy as np
 
 FORMAT = "drawyard-chain-snapshot"
-VERSION = 1
+# 2: the warm-up estimator became two blocks (header "estimator_counts", arrays
+# "estimator_older_*"); a version-1 snapshot was made under the earlier warm-up and is refused, so
+# the service starts that chain over (service/chain_work.py) instead of mixing two schedules.
+VERSION = 2
 _HEADER_KEY = "header_json"
 
 
