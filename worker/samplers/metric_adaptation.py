@@ -153,10 +153,6 @@ class DiscountedCovariance:
             self.older.clear()
         self.current.clear()
 
-    def reset(self) -> None:
-        self.current.clear()
-        self.older.clear()
-
     def estimate(self) -> tuple[np.ndarray, float] | None:
         """(weighted covariance, effective count), or None with fewer than two draws.
 
