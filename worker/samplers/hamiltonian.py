@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg
 
-from worker.samplers.target import Target, density_and_gradient
+from worker.samplers.target import Target, all_finite, density_and_gradient
 
 
 class Metric:
@@ -81,6 +81,17 @@ def leapfrog(
     log_density, new_gradient = density_and_gradient(target, new_position)
     new_momentum = half + (0.5 * step) * new_gradient
     return new_position, new_momentum, log_density, new_gradient
+
+
+def finite(x: np.ndarray) -> bool:
+    """worker.samplers.target.all_finite(x), the same answer at the cost of one dot product
+    when the entries are moderate, as they are on every trajectory that has not diverged.
+
+    A finite x . x means every |x_i| < 1.4e154 (a sum of non-negative terms cannot hide an
+    infinite one), so the sum that all_finite takes cannot overflow and is finite as well; only
+    otherwise is that sum needed.
+    """
+    return x.dot(x) < math.inf or all_finite(x)
 
 
 def hamiltonian(log_density: float, momentum: np.ndarray, metric: Metric) -> float:
