@@ -30,7 +30,9 @@ How the loop is written (issue 18 item 4: the sampler's own work per leapfrog st
 - Each point keeps (step/2) * gradient, which the next leapfrog step from it in the same direction
   would compute again; the velocity M^-1 p of a point is computed once, for its kinetic energy, and
   reused by the U-turn checks; the half-step momentum and the position increment are written into
-  two preallocated buffers. A diagonal metric of ones multiplies by nothing (x * 1.0 == x exactly).
+  two buffers the metric keeps (Metric.workspace, built once per step size rather than once per
+  transition, since the chain builds a transition per iteration). A diagonal metric of ones
+  multiplies by nothing (x * 1.0 == x exactly).
 - Positions and gradients are checked finite by worker.samplers.hamiltonian.finite (written out
   here): the answer of worker.samplers.target.all_finite for the price of one dot product.
 """
@@ -41,7 +43,7 @@ import math
 
 import numpy as np
 
-from worker.samplers.hamiltonian import Metric, State, hamiltonian
+from worker.samplers.hamiltonian import Metric, State
 from worker.samplers.target import Target, all_finite
 
 
@@ -70,13 +72,8 @@ class NutsTransition:
         self.divergence_threshold = divergence_threshold
         inverse = metric.inverse
         self._full = inverse if metric.kind == "full" else None
-        unit = metric.kind != "full" and bool(np.all(inverse == 1.0))
-        self._diagonal = None if metric.kind == "full" or unit else inverse
-        dimension = inverse.shape[0]
-        self._half = np.empty(dimension)  # momentum after the first half step
-        self._move = np.empty(dimension)  # step * M^-1 (half-step momentum)
-        self._forward = (np.full(dimension, step_size), np.full(dimension, 0.5 * step_size))
-        self._backward = (np.full(dimension, -step_size), np.full(dimension, 0.5 * -step_size))
+        self._diagonal = None if metric.kind == "full" or metric.unit else inverse
+        self._workspace = metric.workspace(step_size)
         # Per level of a subtree: the completed earlier half waiting for its sibling.
         self._waiting: list[tuple] = [()] * maximum_tree_depth
 
@@ -90,8 +87,11 @@ class NutsTransition:
     def __call__(self, state: State, rng: np.random.Generator) -> tuple[State, dict[str, float]]:
         metric = self.metric
         p0 = metric.draw_momentum(rng)
-        h0 = hamiltonian(state.log_density, p0, metric)
         v0 = self._velocity(p0)
+        # hamiltonian(state.log_density, p0, metric), reusing the velocity
+        h0 = -state.log_density + 0.5 * float(p0.dot(v0))
+        if not math.isfinite(h0):
+            h0 = math.inf
         # The two ends of the trajectory: position, momentum, gradient, velocity and the
         # (step/2) * gradient of a step leaving the trajectory from that end (None until needed).
         q0, g0 = state.position, state.gradient
@@ -169,14 +169,13 @@ class NutsTransition:
         """
         target = self.target
         full, diagonal = self._full, self._diagonal
-        half, move = self._half, self._move
+        space = self._workspace
+        half, move = space.half, space.move
         threshold = self.divergence_threshold
         waiting = self._waiting
         add, multiply, random = np.add, np.multiply, rng.random
         log, log1p, exp, isfinite, inf = math.log, math.log1p, math.exp, math.isfinite, math.inf
-        # Multiplying by a vector of copies of a scalar gives the same numbers as by the scalar,
-        # without converting the Python float on every call.
-        steps, half_steps = (self._forward if step > 0 else self._backward)
+        steps, half_steps = space.forward if step > 0 else space.backward
         for k in range(1 << depth):
             # One leapfrog step (Neal 2011, eq. 5.18-5.20), with its log density, gradient and
             # energy checked as worker.samplers.target.density_and_gradient and
