@@ -109,7 +109,7 @@ class NutsTransition:
         while depth < self.maximum_tree_depth:
             forward = rng.random() < 0.5
             step = eps if forward else -eps
-            q, p, g, v, half_g = plus if forward else minus
+            q, p, g, _, half_g = plus if forward else minus
             if half_g is None:
                 half_g = (0.5 * step) * g
             new = self._subtree(q, p, g, half_g, step, depth, h0, rng)
@@ -148,6 +148,8 @@ class NutsTransition:
             "divergent": float(divergent),
             "log_density": sample_log_density,
         }
+        if sample_q is q0:  # the chain stays where it was
+            return state, stats
         return State(sample_q, sample_log_density, sample_g), stats
 
     def _subtree(
