@@ -27,7 +27,7 @@ class SamplerSettings:
     divergence_threshold: float = 1000.0
     initialisation: str = "random"
     # The sd of random starts on the unconstrained scale (worker/samplers/initialisation.py): a
-    # standard normal by default, so a positive unknown starts within e^-1.96..e^1.96 in 95% of draws.
+    # standard normal by default, so 95% of a positive unknown's starts lie in e^-1.96..e^1.96.
     start_spread: float = 1.0
 
     def __post_init__(self) -> None:
