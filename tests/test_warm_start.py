@@ -115,14 +115,15 @@ def test_same_body_and_records_give_bitwise_the_same_draws(method: str) -> None:
 
 
 @pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
-@pytest.mark.parametrize("stop_after", [1, 37, 38, 119, 120, 121, 150, 151, 260])
+@pytest.mark.parametrize("stop_after", [1, 37, 38, 74, 75, 76, 119, 120, 121, 150, 151, 260])
 def test_warm_chain_resumes_bitwise_from_a_snapshot(method: str, stop_after: int) -> None:
-    """Stops around the warm schedule of 150 iterations (refresh window [37, 120)), at the end of
-    warm-up and in sampling."""
+    """Stops around the warm schedule of 150 iterations (approach to 37, refits after 75 and
+    120), at the end of warm-up and in sampling."""
     body = warm_body(method)
     whole = runner.start_chain(body, 1).run()
     first = runner.start_chain(body, 1)
-    assert first.chain.schedule.windows == ((37, 120),)
+    schedule = first.chain.schedule
+    assert (schedule.approach_end, schedule.refits) == (37, (75, 120))
     count = {"n": 0}
 
     def should_stop() -> bool:
