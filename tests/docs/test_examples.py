@@ -47,7 +47,9 @@ def test_every_shell_and_python_block_is_an_example_file() -> None:
         assert file.read_text() == text, f"{page.name}: the block differs from {file}"
 
 
-JSON_BLOCK = re.compile(r"\(examples/([\w.-]+\.json)\)[^\n]*\n(?:[^\n]*\n)?```json\n(.*?)^```", re.S | re.M)
+JSON_BLOCK = re.compile(
+    r"\(examples/([\w.-]+\.json)\)[^\n]*\n(?:[^\n]*\n)?```json\n(.*?)^```", re.S | re.M
+)
 
 
 def test_a_json_block_after_a_link_to_its_file_is_that_file() -> None:
