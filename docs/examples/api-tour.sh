@@ -14,7 +14,8 @@ state() { curl -s "$BASE/v1/jobs/$JOB" | python3 -c 'import json, sys; print(jso
 while [ "$(state)" = queued ] || [ "$(state)" = running ]; do sleep 1; done
 curl -s "$BASE/v1/jobs/$JOB" | python3 -c 'import json, sys; j = json.load(sys.stdin)
 print(j["state"], "passed:", j["verdict"]["passed"])
-for c in j["chains"]: print("chain", c["chain"], c["phase"], c["iteration"], "of", c["iterations_total"])'
+for c in j["chains"]: print("chain", c["chain"], c["phase"], c["iteration"], "of", c["iterations_total"],
+                      "divergences:", c["divergences"], "in warm-up:", c["warmup_divergences"])'
 # a selection of the draws: one chain, every fifth draw
 curl -s "$BASE/v1/jobs/$JOB/draws?quantities=mean_delay&chains=1&thin=5" |
   python3 -c 'import json, sys; d = json.load(sys.stdin); print("chains:", [c["chain"] for c in d["chains"]])'

@@ -63,3 +63,10 @@ def test_anchors_follow_the_renderers_rule() -> None:
         "notes",
         "notes-1",
     ]
+
+
+def test_every_page_is_on_the_readme_map() -> None:
+    """The README's map is how a reader finds a page: a page missing from it is lost."""
+    mapped = {target.partition("#")[0] for target in links(REPO / "README.md")}
+    for page in PAGES[1:]:
+        assert f"docs/{page.name}" in mapped, f"{page.name} is not on the README's map"

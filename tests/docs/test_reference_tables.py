@@ -111,3 +111,23 @@ def test_every_operation_is_documented() -> None:
     for method, path in OPERATION_IDS:
         shown = path.removeprefix("/v1").replace("{job_id}", "{id}") or "/"
         assert f"{method.upper()} {shown}" in pages, (method, path)
+
+
+def _backticked_names(text: str) -> set[str]:
+    return set(re.findall(r"`([a-z_]+)`", text))
+
+
+def test_the_summary_fields_and_the_sampler_report_members_are_what_a_job_gives() -> None:
+    """A small job run in process (the service's engine interface): every member the page names
+    is there, and every summary field is in the page's table."""
+    from tests.service.bodies import normal_mean
+    from worker.runner import run_in_process
+
+    result = run_in_process(normal_mean(chains=2, warmup=100, draws=100, seed=5))
+    table = table_rows("diagnostics.md", "## The summary: one record per reported quantity")
+    fields = set().union(*(_backticked_names(row[0]) for row in table))
+    assert set(result["summary"][0]) == fields
+    text = (DOCS / "diagnostics.md").read_text()
+    report = text[text.index("## The sampler report"):text.index("## The verdict")]
+    named = _backticked_names(report.split("`{")[0])  # the members, before the counts' form
+    assert named <= set(result["sampler"]), named - set(result["sampler"])
