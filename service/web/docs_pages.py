@@ -13,11 +13,12 @@ import re
 from functools import cache
 from pathlib import Path
 
-from flask import abort, current_app, render_template, url_for
+from flask import current_app, render_template, url_for
 from markdown_it import MarkdownIt
 from markdown_it.token import Token
 from werkzeug.wrappers import Response
 
+from service.problem_details import ApiProblem
 from service.web.blueprint import web
 
 # A source checkout has docs/ beside service/; an image built by service/Dockerfile copies it into
@@ -27,6 +28,11 @@ PAGE_NAME = re.compile(r"[a-z0-9][a-z0-9-]*")
 EXAMPLE_NAME = re.compile(r"[A-Za-z0-9][\w.-]*")
 HEADING = re.compile(r"^(#{1,6})\s+(.*?)\s*#*\s*$")
 FENCE = re.compile(r"^(```|~~~)")
+
+
+def _not_found(what: str) -> ApiProblem:
+    # An ApiProblem, so the blueprint answers a browser with its error page.
+    return ApiProblem(404, "page-not-found", "No such page", f"There is no {what}.")
 
 
 def docs_folder() -> Path:
@@ -139,7 +145,7 @@ def docs_page(name: str) -> str:
     folder = docs_folder()
     source = folder / f"{name}.md"
     if not PAGE_NAME.fullmatch(name) or not source.is_file():
-        abort(404)
+        raise _not_found(f"documentation page '{name}'")
     return _page(source, folder)
 
 
@@ -147,5 +153,5 @@ def docs_page(name: str) -> str:
 def docs_example(name: str) -> Response:
     source = docs_folder() / "examples" / name
     if not EXAMPLE_NAME.fullmatch(name) or not source.is_file():
-        abort(404)
+        raise _not_found(f"example file '{name}'")
     return Response(source.read_bytes(), mimetype="text/plain")

@@ -69,6 +69,8 @@ def test_example_files_are_served_as_text_and_nothing_else(client: FlaskClient) 
     for path in ("/docs/examples/..%2f..%2fREADME.md", "/docs/examples/.env", "/docs/nope",
                  "/docs/..%2fDEVELOPERS", "/docs/examples/"):
         assert client.get(path).status_code == 404, path
+    # A page, not a problem document: the reader came by browser.
+    assert client.get("/docs/nope").mimetype == "text/html"
 
 
 def test_the_submit_form_links_the_spec_reference(client: FlaskClient) -> None:
