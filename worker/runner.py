@@ -11,7 +11,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import secrets
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -27,7 +27,7 @@ from worker.diagnostics import check_thresholds, sampler_checks, summarize, verd
 from worker.diagnostics.summary import DEFAULT_INTERVAL, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, EvaluationCounts, SamplerSettings
-from worker.samplers.chain import sampling_sequence
+from worker.samplers.chain import Checkpoint, sampling_sequence
 from worker.samplers.settings import INITIALISATIONS, METHODS, PRECONDITIONINGS
 from worker.samplers.target import CountedTarget
 from worker.warm_start import (
@@ -417,15 +417,21 @@ class ChainRun:
         self,
         progress: ProgressCallback | None = None,
         should_stop: Callable[[], bool] | None = None,
-        checkpoint: Callable[[bytes], None] | None = None,
+        checkpoint: Callable[[bytes], None] | Callable[[Checkpoint], None] | None = None,
         checkpoint_every: int = 100,
+        incremental: bool = False,
     ) -> ChainResult:
-        """Run the chain to its end (or until ``should_stop()``), then report its draws."""
+        """Run the chain to its end (or until ``should_stop()``), then report its draws.
+
+        With ``incremental`` the checkpoints are ``Checkpoint``s (new records and state apart;
+        ``resume_chain`` takes the state and every records block), else snapshot bytes.
+        """
         output = self.chain.run(
             progress=progress,
             should_stop=should_stop,
             checkpoint=checkpoint,
             checkpoint_every=checkpoint_every,
+            incremental=incremental,
         )
         return ChainResult(
             names=list(self.model.quantity_names),
@@ -455,6 +461,11 @@ class ChainRun:
     def snapshot(self) -> bytes:
         """The chain's complete state; ``resume_chain`` continues from it exactly."""
         return self.chain.snapshot()
+
+    def incremental_checkpoint(self) -> Checkpoint:
+        """The records since the previous incremental checkpoint and the state apart (between
+        iterations, as the chain's own checkpoints; see worker.samplers.chain.Checkpoint)."""
+        return self.chain.incremental_checkpoint()
 
 
 def compile_body(body: dict) -> Any:
@@ -503,14 +514,16 @@ def _require_warm_records(body: dict, model: Any = None) -> None:
         raise InvalidSubmission(problems)
 
 
-def resume_chain(body: dict, chain_index: int, blob: bytes, model: Any = None) -> ChainRun:
+def resume_chain(
+    body: dict, chain_index: int, blob: bytes, model: Any = None, blocks: Sequence[bytes] = ()
+) -> ChainRun:
     """Continue chain ``chain_index`` from a snapshot taken by ``ChainRun.snapshot`` or a
-    checkpoint; refuses a snapshot made with other settings than the body's. ``model`` as for
-    ``start_chain``."""
+    checkpoint (an incremental one's state with its records ``blocks`` in order); refuses a
+    snapshot made with other settings than the body's. ``model`` as for ``start_chain``."""
     resolved = _resolved_with_seed(body)
     model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
-    chain = Chain.restore(model, blob)
+    chain = Chain.restore(model, blob, blocks)
     if chain.settings != _chain_settings(resolved):
         raise ValueError("the snapshot was made with different sampler settings than this job's")
     return ChainRun(model, chain, seed)
