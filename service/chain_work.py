@@ -428,9 +428,10 @@ def _start_or_resume(lease: Lease, model: Any = None) -> Any:
     from worker import runner
 
     if lease.checkpoint is not None:
+        blocks, lease.blocks = lease.blocks, []  # let them go once the chain holds their records
         try:
             return runner.resume_chain(
-                lease.body, lease.chain_index, lease.checkpoint, model, lease.blocks
+                lease.body, lease.chain_index, lease.checkpoint, model, blocks
             )
         except Exception as error:  # any unreadable or mismatched snapshot: start over
             log.warning(
@@ -535,9 +536,12 @@ def store_result(
     """Store a chain's draws and statistics, only while this delivery holds the lease.
 
     ``stopped`` is set for a chain its wall-time limit stopped: its draws so far are stored the
-    same way and the chain ends ``timed_out`` at the iteration it reached.
+    same way and the chain ends ``timed_out`` at the iteration it reached. The result's draws are
+    let go once encoded (``values`` keeps their width, no rows): a long chain's draws, their
+    compressed form and the database driver's copy of that are then never held all at once.
     """
     draws = encode_array(np.asarray(result.values, dtype=np.float64))
+    result.values = result.values[:0]
     stats = {name: encode_array(np.asarray(v)) for name, v in dict(result.stats).items()}
     now = utc_now()
     state = "succeeded" if stopped is None else "timed_out"

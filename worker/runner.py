@@ -24,7 +24,7 @@ from worker.approximation.runs import (
     grid_dimension_problem,
 )
 from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
-from worker.diagnostics.summary import DEFAULT_INTERVAL, interval_problem
+from worker.diagnostics.summary import DEFAULT_INTERVAL, QuantityDraws, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, EvaluationCounts, SamplerSettings
 from worker.samplers.chain import Checkpoint, sampling_sequence
@@ -548,22 +548,29 @@ def pooled_draws(results: list[ChainResult]) -> np.ndarray:
     return np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
 
 
-def finish_job(body: dict, results: list[ChainResult]) -> dict:
+def finish_job(
+    body: dict, results: list[ChainResult], draws: QuantityDraws | None = None
+) -> dict:
     """Summary, sampler report and verdict of a job's completed chains, all JSON-able.
 
     Returns ``{"summary": [per-quantity records], "sampler": report, "verdict": verdict}``; the
     sampler report adds each chain's adapted step size and its evaluations of the model (with
-    gradient, and of the log density alone, by phase) to ``sampler_checks``' counts.
+    gradient, and of the log density alone, by phase) to ``sampler_checks``' counts. ``draws``,
+    when given, are the chains' draws read a quantity at a time (the service streams them from
+    its store); the results' ``values`` are then not read.
     """
     if not results:
         raise ValueError("a job needs at least one chain to finish")
     if not all(r.completed for r in results):
         raise ValueError("every chain must be complete before the job is summarised")
-    lengths = {np.asarray(r.values).shape for r in results}
-    if len(lengths) != 1:
-        raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
+    if draws is None:
+        lengths = {np.asarray(r.values).shape for r in results}
+        if len(lengths) != 1:
+            raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
+        draws = pooled_draws(results)
+    elif tuple(draws.shape[:1]) != (len(results),):
+        raise ValueError(f"draws of {draws.shape[0]} chains for {len(results)} results")
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
-    draws = pooled_draws(results)
     summary = summarize(draws, list(results[0].names), summary_interval(body))
     if resolved["method"] in APPROXIMATION_METHODS:
         report, checked = approximation_verdict(results)
