@@ -29,6 +29,7 @@ from service.dispatch import send_finish_task
 from service.runtime import Runtime
 from service.store.arrays import ENCODING, encode_array
 from service.store.engine import transaction
+from service.store.large_values import write_chain_array_data
 from service.store.models import (
     TERMINAL_STATES,
     Chain,
@@ -541,7 +542,7 @@ def store_result(
     compressed form and the database driver's copy of that are then never held all at once.
     """
     draws = encode_array(np.asarray(result.values, dtype=np.float64))
-    result.values = result.values[:0]
+    result.values = np.empty((0, *np.shape(result.values)[1:]))  # not a view: that would keep them
     stats = {name: encode_array(np.asarray(v)) for name, v in dict(result.stats).items()}
     now = utc_now()
     state = "succeeded" if stopped is None else "timed_out"
@@ -590,7 +591,7 @@ def store_result(
         types = ["int64" if name in integers else "float64" for name in result.names]
         rows = [("draws", "draws", draws, list(result.names))]
         rows += [("stat", name, encoded, None) for name, encoded in stats.items()]
-        session.add_all(
+        stored = [
             ChainArray(
                 chain_id=lease.chain_id,
                 kind=kind,
@@ -601,10 +602,14 @@ def store_result(
                 dtype=encoded.dtype,
                 shape=encoded.shape,
                 sha256=encoded.sha256,
-                data=encoded.data,
+                # the draws go in pieces once the row exists (service/store/large_values.py)
+                data=b"" if kind == "draws" else encoded.data,
             )
             for kind, name, encoded, columns in rows
-        )
+        ]
+        session.add_all(stored)
+        session.flush()
+        write_chain_array_data(session, stored[0].id, draws.data)
         events.record(
             session,
             lease.job_id,

@@ -5,8 +5,9 @@ diagnostics need one quantity across every chain; decoding the chains whole to g
 job's whole draw matrix in memory (four chains of 100,000 draws of 100 quantities: 320 MB, plus a
 decoded copy). Instead each chain is inflated a block of rows at a time (its SHA-256 checked on the
 way) and its columns are written to a temporary file laid out by quantity, then chain, then draw,
-so that a quantity is then one contiguous read. Memory: one chain's compressed bytes and a block of
-rows; disk: the job's draws, in a file that is gone when this is closed (or the process ends).
+so that a quantity is then one contiguous read. Memory: a block of rows (on SQLite the stored
+bytes are read in pieces too; elsewhere one chain's compressed bytes are held while it is read).
+Disk: the job's draws, in a file that is gone when this is closed (or the process ends).
 """
 
 from __future__ import annotations
@@ -20,6 +21,7 @@ import numpy as np
 from sqlalchemy import select
 
 from service.store.arrays import PIECE_BYTES, row_blocks
+from service.store.large_values import chain_array_data
 from service.store.models import ChainArray
 
 ITEM = np.dtype(np.float64).itemsize
@@ -64,28 +66,30 @@ class StoredDraws:
         return ((quantity * chains + chain) * draws + draw) * ITEM
 
     def _spill(self, runtime: Any, position: int, chain_id: int) -> None:
-        with runtime.sessions() as session:
-            row = session.execute(
-                select(ChainArray.data, ChainArray.sha256).where(
-                    ChainArray.chain_id == chain_id, ChainArray.kind == "draws"
-                )
-            ).one()
-        data, sha256 = row.data, row.sha256
-        del row
         _, draws, width = self.shape
         rows = max(1, PIECE_BYTES // (ITEM * max(1, width)))
         start = 0
         descriptor = self._file.fileno()
-        # every block is read, past the kept prefix too, so the whole array's checksum is checked
-        for block in row_blocks(data, rows, sha256):
-            kept = block[: max(0, draws - start)]
-            if kept.size:
-                columns = np.ascontiguousarray(kept.T, dtype=np.float64)
-                for quantity in range(width):
-                    at = self._offset(quantity, position, start)
-                    if os.pwrite(descriptor, columns[quantity], at) != columns[quantity].nbytes:
-                        raise OSError("the draws' temporary file took a short write (disk full?)")
-            start += block.shape[0]
+        with runtime.sessions() as session:
+            row_id, sha256 = session.execute(
+                select(ChainArray.id, ChainArray.sha256).where(
+                    ChainArray.chain_id == chain_id, ChainArray.kind == "draws"
+                )
+            ).one()
+            # every block is read, past the kept prefix too, so the whole checksum is checked
+            with chain_array_data(session, row_id) as data:
+                for block in row_blocks(data, rows, sha256):
+                    kept = block[: max(0, draws - start)]
+                    if kept.size:
+                        self._write_columns(descriptor, position, start, kept)
+                    start += block.shape[0]
+
+    def _write_columns(self, descriptor: int, chain: int, start: int, rows: np.ndarray) -> None:
+        columns = np.ascontiguousarray(rows.T, dtype=np.float64)
+        for quantity, column in enumerate(columns):
+            at = self._offset(quantity, chain, start)
+            if os.pwrite(descriptor, column, at) != column.nbytes:
+                raise OSError("the draws' temporary file took a short write (disk full?)")
 
     def quantity(self, index: int) -> np.ndarray:
         """Quantity ``index``'s draws, (chains, draws) float64."""

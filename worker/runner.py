@@ -453,9 +453,11 @@ class ChainRun:
         rng = np.random.default_rng(sampling_sequence(self.seed, GENERATED_CHILD))
         width = len(self.model.quantity_names)
         rows = np.empty((draws.shape[0], width), dtype=np.float64)
-        # the compiled model reports one draw at a time (per-draw outputs are random per draw)
+        # The compiled model reports one draw at a time (per-draw outputs are random per draw).
+        # It gets a copy of each row, not a view: a model keeps its last input in its value
+        # slots, and a view would keep the whole draws matrix alive in the worker's model cache.
         for i, u in enumerate(draws):
-            rows[i] = self.model.report(u, rng)
+            rows[i] = self.model.report(u.copy(), rng)
         return rows
 
     def snapshot(self) -> bytes:

@@ -7,6 +7,7 @@ import io
 import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -61,21 +62,30 @@ def encode_array(values: np.ndarray) -> EncodedArray:
     )
 
 
+def _pieces(source: Any) -> Iterator[bytes | memoryview]:
+    """The bytes of ``source`` (bytes-like, or anything with ``read(size)``) a piece at a time."""
+    if hasattr(source, "read"):
+        while piece := source.read(PIECE_BYTES):
+            yield piece
+        return
+    view = memoryview(source)
+    for start in range(0, len(view), PIECE_BYTES):
+        yield view[start : start + PIECE_BYTES]
+
+
 class _Inflating:
     """A file-like ``read`` over zlib-compressed bytes, inflating only as much as is asked for."""
 
-    def __init__(self, data: bytes):
+    def __init__(self, source: Any):
         self._inflater = zlib.decompressobj()
-        self._source = memoryview(data)
-        self._taken = 0
+        self._source = _pieces(source)
         self._ready = bytearray()
 
     def read(self, size: int) -> bytes:
         while len(self._ready) < size and not self._inflater.eof:
             chunk = self._inflater.unconsumed_tail
             if not chunk:
-                chunk = self._source[self._taken : self._taken + PIECE_BYTES]
-                self._taken += len(chunk)
+                chunk = next(self._source, b"")
                 if not chunk:
                     break
             # max_length bounds the output; what it leaves waits in unconsumed_tail
@@ -86,11 +96,12 @@ class _Inflating:
 
 
 def row_blocks(
-    data: bytes, rows: int, expected_sha256: str | None = None
+    data: Any, rows: int, expected_sha256: str | None = None
 ) -> Iterator[np.ndarray]:
     """A stored 2-D C-order array ``rows`` rows at a time, inflated as it goes: a long chain's
-    draws read without ever being whole in memory. With ``expected_sha256`` the bytes are hashed
-    on the way and ValueError raised after the last block if they differ."""
+    draws read without ever being whole in memory. ``data`` is the stored bytes, or a reader of
+    them (``read(size)``: service/store/large_values.py). With ``expected_sha256`` the bytes are
+    hashed on the way and ValueError raised after the last block if they differ."""
     stream = _Inflating(data)
     version = np.lib.format.read_magic(stream)
     if version == (1, 0):
