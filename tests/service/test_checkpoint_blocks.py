@@ -22,7 +22,7 @@ from service.app import create_app
 from service.chain_work import ChainMonitor, run_chain, take_lease
 from service.finishing import finish
 from service.store import migrate
-from service.store.arrays import decode_array
+from service.store.arrays import decode_array, encode_array
 from service.store.engine import make_engine
 from service.store.migrate import alembic_config
 from service.store.models import Chain, ChainArray, CheckpointBlock, utc_now
@@ -227,8 +227,32 @@ def test_upgrade_from_0008_resumes_an_old_style_snapshot_exactly(
             ),
             {"id": job_id, "token": "f" * 32, "t": past, "blob": old},
         )
+        # a finished chain's stored array, as the service before 0009 wrote it: it must read
+        # back unchanged after the upgrade (which rebuilds chain_arrays on SQLite)
+        kept = np.arange(12.0).reshape(4, 3) / 7
+        encoded = encode_array(kept)
+        chain_row = connection.execute(text("SELECT id FROM chains WHERE job_id = :id"),
+                                       {"id": job_id}).scalar_one()  # fmt: skip
+        connection.execute(
+            text(
+                "INSERT INTO chain_arrays (chain_id, kind, name, columns, encoding, dtype, shape, "
+                "sha256, data, column_types) VALUES (:c, 'stat', 'earlier', NULL, 'npy+zlib', "
+                "'<f8', '[4, 3]', :h, :d, NULL)"
+            ),
+            {"c": chain_row, "h": encoded.sha256, "d": bytes(encoded.data)},
+        )
     engine.dispose()
     migrate(unmigrated_url)
+    check = make_engine(unmigrated_url)
+    with check.connect() as connection:
+        row = connection.execute(
+            text("SELECT data, sha256 FROM chain_arrays WHERE name = 'earlier'")
+        ).one()
+        assert np.array_equal(decode_array(bytes(row.data), row.sha256), kept)
+        if check.dialect.name == "sqlite":
+            columns = [r[1] for r in connection.execute(text("PRAGMA table_info(chain_arrays)"))]
+            assert columns[-1] == "data"
+    check.dispose()
     app = app_for(unmigrated_url, redis_url)
     runtime = app.extensions["drawyard"]
     assert run_chain(runtime, job_id, 0).status == "succeeded"

@@ -8,6 +8,12 @@ Create Date: 2026-12-03 13:00:00
   and statistics) of the iterations since the one before; ``chains.checkpoint`` then holds the
   state without records (snapshot version 2). A checkpoint stored before this revision is a
   version-1 snapshot holding every record so far, and resumes alone, as it did.
+- chain_arrays on SQLite: rebuilt (once) with ``data`` as its last column, as the tables of 0001
+  had it before 0008 added ``column_types`` after it. Stored draws are written and read in pieces
+  through SQLite's blob I/O (service/store/large_values.py), and SQLite writes a ``zeroblob``
+  without materialising it only when it is the record's last field: otherwise storing a long
+  chain's draws costs a transient copy of them in memory. The rebuild copies every stored array
+  once; nothing refers to chain_arrays, so no row elsewhere is touched. PostgreSQL is unchanged.
 - Downgrade: the code before this revision cannot read version-2 snapshots, so a chain whose
   checkpoint has blocks loses its checkpoint and starts over when it runs again (its draws depend
   only on the body and the seed, so they come out the same); then the table goes.
@@ -44,6 +50,11 @@ def upgrade() -> None:
         sa.PrimaryKeyConstraint("id"),
         sa.UniqueConstraint("chain_id", "start_iteration", name="uq_checkpoint_blocks_start"),
     )
+    if op.get_bind().dialect.name == "sqlite":
+        with op.batch_alter_table(
+            "chain_arrays", recreate="always", partial_reordering=[("column_types", "data")]
+        ):
+            pass
 
 
 def downgrade() -> None:
