@@ -24,6 +24,12 @@ from worker.approximation.runs import (
     grid_dimension_problem,
 )
 from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
+from worker.diagnostics.discrete import (
+    MAX_PATTERN_ELEMENTS,
+    flat_members,
+    pattern_table,
+    value_tables,
+)
 from worker.diagnostics.summary import DEFAULT_INTERVAL, QuantityDraws, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, EvaluationCounts, SamplerSettings
@@ -263,6 +269,8 @@ def check_submission(
         problems.extend(_initial_value_problems(body))
     if not problems:
         problems.extend(warm_start_problems(body))
+    if not problems:
+        problems.extend(pattern_problems(body))
     return problems
 
 
@@ -290,7 +298,7 @@ def _approximation_problems(body: dict) -> list[Problem]:
     return problems
 
 
-SUMMARY_MEMBERS = ("interval",)
+SUMMARY_MEMBERS = ("interval", "patterns")
 
 
 def summary_problems(member: Any) -> list[Problem]:
@@ -310,7 +318,75 @@ def summary_problems(member: Any) -> list[Problem]:
         message = interval_problem(member["interval"])
         if message:
             problems.append(Problem("/summary/interval", message))
+    patterns = member.get("patterns")
+    if "patterns" in member and not (
+        isinstance(patterns, list) and all(isinstance(name, str) for name in patterns)
+    ):
+        problems.append(Problem("/summary/patterns", "The patterns setting must be a list of "
+                                "names of integer-valued quantities, such as [\"included\"]."))
+    elif patterns:
+        seen: set[str] = set()
+        for i, name in enumerate(patterns):
+            if name in seen:
+                problems.append(Problem(f"/summary/patterns/{i}", f"'{name}' is named twice."))
+            seen.add(name)
     return problems
+
+
+def pattern_problems(body: dict) -> list[Problem]:
+    """Each name in ``summary.patterns`` must be a quantity of the model whose every element is
+    integer-valued, and together they may have at most ``MAX_PATTERN_ELEMENTS`` elements."""
+    names = (body.get("summary") or {}).get("patterns") or []
+    if not names:
+        return []
+    model = compile_body(body)
+    problems = []
+    elements = 0
+    for i, name in enumerate(names):
+        columns = flat_members(name, model.quantity_names)
+        where = f"/summary/patterns/{i}"
+        if not columns:
+            problems.append(Problem(where, f"The model has no quantity named '{name}'."))
+        elif not all(model.quantity_names[c] in model.integer_quantities for c in columns):
+            problems.append(Problem(where, f"'{name}' is not integer-valued: joint patterns are "
+                                    "tabled for discrete quantities only."))
+        elements += len(columns)
+    if elements > MAX_PATTERN_ELEMENTS:
+        problems.append(Problem("/summary/patterns", f"The named quantities have {elements} "
+                                f"elements together; at most {MAX_PATTERN_ELEMENTS} are tabled."))
+    return problems
+
+
+def discrete_summary(
+    body: dict,
+    draws: np.ndarray | QuantityDraws,
+    names: list[str],
+    summary: list[dict],
+    integers: Any,
+) -> list[dict]:
+    """Adds each integer-valued quantity's value probabilities to its summary record (member
+    ``discrete``; None for the others) and returns the joint-pattern tables the body's
+    ``summary.patterns`` asks for (worker/diagnostics/discrete.py). Draws read a quantity at a
+    time give the same tables (each is computed per quantity, or per pattern's elements)."""
+    wanted = (body.get("summary") or {}).get("patterns") or []
+    if isinstance(draws, np.ndarray):
+        tables = value_tables(draws, names, integers)
+        patterns = [pattern_table(draws, name, names) for name in wanted]
+    else:
+        tables = {}
+        for j, name in enumerate(names):
+            if name in integers:
+                tables.update(value_tables(draws.quantity(j)[:, :, None], [name], {name}))
+        patterns = []
+        for name in wanted:
+            members = flat_members(name, names)
+            if not members:  # as pattern_table says it
+                raise ValueError(f"no quantity named {name!r}")
+            elements = np.stack([draws.quantity(c) for c in members], axis=2)
+            patterns.append(pattern_table(elements, name, [names[c] for c in members]))
+    for record in summary:
+        record["discrete"] = tables.get(record["name"])
+    return patterns
 
 
 def summary_interval(body: dict) -> float:
@@ -555,11 +631,12 @@ def finish_job(
 ) -> dict:
     """Summary, sampler report and verdict of a job's completed chains, all JSON-able.
 
-    Returns ``{"summary": [per-quantity records], "sampler": report, "verdict": verdict}``; the
-    sampler report adds each chain's adapted step size and its evaluations of the model (with
-    gradient, and of the log density alone, by phase) to ``sampler_checks``' counts. ``draws``,
-    when given, are the chains' draws read a quantity at a time (the service streams them from
-    its store); the results' ``values`` are then not read.
+    Returns ``{"summary": [per-quantity records], "sampler": report, "verdict": verdict,
+    "patterns": [joint-pattern tables of summary.patterns]}``; the sampler report adds each
+    chain's adapted step size and its evaluations of the model (with gradient, and of the log
+    density alone, by phase) to ``sampler_checks``' counts. ``draws``, when given, are the
+    chains' draws read a quantity at a time (the service streams them from its store); the
+    results' ``values`` are then not read.
     """
     if not results:
         raise ValueError("a job needs at least one chain to finish")
@@ -573,10 +650,13 @@ def finish_job(
     elif tuple(draws.shape[:1]) != (len(results),):
         raise ValueError(f"draws of {draws.shape[0]} chains for {len(results)} results")
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
-    summary = summarize(draws, list(results[0].names), summary_interval(body))
+    names = list(results[0].names)
+    model = compile_body(body)
+    summary = summarize(draws, names, summary_interval(body))
+    patterns = discrete_summary(body, draws, names, summary, model.integer_quantities)
     if resolved["method"] in APPROXIMATION_METHODS:
         report, checked = approximation_verdict(results)
-        return {"summary": summary, "sampler": report, "verdict": checked}
+        return {"summary": summary, "sampler": report, "verdict": checked, "patterns": patterns}
     depth = resolved["maximum_tree_depth"] if resolved["method"] == "nuts" else None
     report = sampler_checks([dict(r.stats) for r in results], depth)
     report["step_size_per_chain"] = [
@@ -589,11 +669,12 @@ def finish_job(
     report["log_density_evaluations_per_chain"] = [
         None if r.evaluations is None else dict(r.evaluations.log_density) for r in results
     ]
-    report["reparametrisation"] = compile_body(body).reparametrisation
+    report["reparametrisation"] = model.reparametrisation
     return {
         "summary": summary,
         "sampler": report,
         "verdict": verdict(summary, report, body.get("checks")),
+        "patterns": patterns,
     }
 
 
