@@ -553,8 +553,33 @@ class Chain:
         chain.state = State(
             np.array(arrays["position"]), float(header["log_density"]), np.array(arrays["gradient"])
         )
-            "estimator_counts": self.estimator.counts(),
-            "records_from": records_from,
+        if "estimator_counts" not in header:
+            # Made under the earlier warm-up (one estimator block, other stage boundaries):
+            # resuming it under this schedule would mix two designs. The service starts the
+            # chain over instead, which gives the uninterrupted chain's draws.
+            raise snapshot_format.SnapshotError(
+                "the snapshot was made under an earlier warm-up design and cannot be resumed"
+            )
+        chain.estimator = DiscountedCovariance(chain.dimension, settings.preconditioning == "full")
+        chain.estimator.load(header["estimator_counts"], arrays, "estimator_")
+        reached = 0
+        for block in blocks:
+            found, records = snapshot_format.decode(block, snapshot_format.RECORDS_FORMAT)
+            if found.get("dimension") != chain.dimension or found.get("start") != reached:
+                raise snapshot_format.SnapshotError(
+                    f"a records block for iterations from {found.get('start')} where "
+                    f"{reached} was next"
+                )
+            reached = chain._load_records(reached, records)
+        if reached != int(header.get("records_from", 0)):
+            raise snapshot_format.SnapshotError(
+                f"the records end at iteration {reached}; the snapshot's start at "
+                f"{header.get('records_from', 0)}"
+            )
+        if chain._load_records(reached, arrays) != chain.iteration:
+            raise snapshot_format.SnapshotError("the records do not reach the snapshot's iteration")
+        # later incremental checkpoints hand out records from here: the caller holds the rest
+        chain._records_given = chain.iteration
         if chain._metropolis:
             chain.proposal = RandomWalkProposal(
                 settings.preconditioning, arrays["proposal_covariance"], float(header["log_scale"])
