@@ -87,13 +87,16 @@ def _batch_shape(graph: Graph, term: Any) -> tuple[int, ...]:
     return tuple(np.broadcast_shapes(*shapes))
 
 
-def _elementwise(graph: Graph, leaf: int, downstream: set[int], terms: list[Any],
-                 shape: tuple[int, ...]) -> bool:
-    """Whether every involved term's element i depends on element i of the unknown alone."""
-    used = downstream & _upstream(graph, set().union(*(_term_nodes(t) for t in terms)))
+def _elementwise(graph: Graph, leaf: int, used: set[int], terms: list[Any],
+                 shape: tuple[int, ...] | None) -> bool:
+    """Whether the unknown reaches every involved term through elementwise operations only, so
+    that an extra leading axis of candidate values broadcasts through unchanged; with ``shape``
+    given, also whether every involved term's element i depends on element i of the unknown
+    alone."""
+    downstream = used
     for i in sorted(used - {leaf}):
         node = graph.nodes[i]
-        if node.type.shape != shape:
+        if shape is not None and node.type.shape != shape:
             return False
         op = node.operation
         if isinstance(op, ops.TakeByUnknown):
@@ -109,21 +112,33 @@ def _elementwise(graph: Graph, leaf: int, downstream: set[int], terms: list[Any]
         if any(node in downstream and d.argument_event_ndim.get(name, 0)
                for name, node in zip(term.argument_names, term.argument_nodes, strict=True)):
             return False
-        if _batch_shape(graph, term) != shape:
+        if shape is not None and _batch_shape(graph, term) != shape:
             return False
     return True
 
 
 class Conditional:
-    """The log weights of one integer unknown's support values given a point."""
+    """The log weights of one integer unknown's support values given a point.
 
-    def __init__(self, block: IntegerBlock, plan: Plan, terms: list[Any]):
+    Where the unknown reaches its terms through elementwise operations only (``batched``), every
+    support value is weighed in one pass: the unknown's node takes an extra leading axis holding
+    the candidate values, and only the nodes downstream of it are recomputed, broadcasting that
+    axis through. Otherwise each value costs one evaluation of the involved terms.
+    """
+
+    def __init__(self, block: IntegerBlock, plan: Plan, terms: list[Any], graph: Graph,
+                 leaf: int, steps: list[int] | None, rank: int):
         self.block = block
         self._plan = plan
         self._terms = terms
+        self._leaf = leaf
+        # the downstream nodes to recompute, in order, with their operations and inputs
+        self._steps = None if steps is None else [
+            (i, graph.nodes[i].operation.forward, graph.nodes[i].inputs) for i in steps]
+        self._rank = rank  # the candidates' axis goes before this many axes
+        self.batched = steps is not None
 
-    def _pointwise(self, point: np.ndarray) -> np.ndarray | float:
-        values = self._plan.values_at(point)
+    def _total(self, values: list[Any]) -> Any:
         total: Any = 0.0
         with np.errstate(all="ignore"):
             for term in self._terms:
@@ -132,17 +147,42 @@ class Conditional:
                 total = total + term.distribution.log_density(values[term.variate], args)
         return total
 
+    def _pointwise(self, point: np.ndarray) -> Any:
+        return self._total(self._plan.values_at(point))
+
+    def _batched(self, point: np.ndarray) -> np.ndarray:
+        """(support size, elements) in one pass (see the class docstring)."""
+        b = self.block
+        values = list(self._plan.values_at(point))
+        count = b.upper - b.lower + 1
+        if b.shape:
+            values[self._leaf] = np.broadcast_to(
+                b.support.reshape((count,) + (1,) * len(b.shape)), (count, *b.shape))
+        else:
+            values[self._leaf] = b.support.reshape((count,) + (1,) * self._rank)
+        with np.errstate(all="ignore"):
+            for out, forward, inputs in self._steps:
+                values[out] = forward(*[values[i] for i in inputs])
+        pointwise = np.asarray(self._total(values), dtype=float)
+        if b.shape:  # every involved term's pointwise values have the unknown's shape
+            return np.broadcast_to(pointwise, (count, *b.shape)).reshape(count, b.size)
+        pointwise = np.broadcast_to(pointwise, (count,) + pointwise.shape[1:])
+        return pointwise.reshape(count, -1).sum(axis=1, keepdims=True)
+
     def log_weights(self, point: np.ndarray) -> np.ndarray:
         """(support size, elements): the log weight of each value for each element, up to a
         constant per element, every element set to the value at once. Only for a block whose
         elements are conditionally independent (``block.independent``)."""
         b = self.block
-        scratch = np.array(point, dtype=float)
-        weights = np.empty((b.upper - b.lower + 1, b.size))
-        for k, value in enumerate(b.support):
-            scratch[b.start:b.stop] = value
-            pointwise = np.asarray(self._pointwise(scratch), dtype=float)
-            weights[k] = pointwise.reshape(-1) if b.shape else np.sum(pointwise)
+        if self.batched:
+            weights = np.array(self._batched(point))
+        else:
+            scratch = np.array(point, dtype=float)
+            weights = np.empty((b.upper - b.lower + 1, b.size))
+            for k, value in enumerate(b.support):
+                scratch[b.start:b.stop] = value
+                pointwise = np.asarray(self._pointwise(scratch), dtype=float)
+                weights[k] = pointwise.reshape(-1) if b.shape else np.sum(pointwise)
         weights[~np.isfinite(weights)] = -np.inf
         return weights
 
@@ -166,15 +206,20 @@ def conditionals(graph: Graph, slots: list[UnknownSlot], held: list[UnknownSlot]
     for slot in held:
         downstream = _downstream(graph, slot.node)
         involved = [t for t in terms if _term_nodes(t) & downstream]
-        independent = not slot.shape or _elementwise(graph, slot.node, downstream, involved,
-                                                     slot.shape)
+        outputs = set().union(*(_term_nodes(t) for t in involved)) if involved else set()
+        needed = _upstream(graph, outputs)
+        used = downstream & needed
+        batched = _elementwise(graph, slot.node, used, involved,
+                               slot.shape if slot.shape else None)
+        independent = batched or not slot.shape
         lower, upper = bounds[slot.name]
         block = IntegerBlock(slot.name, slot.start, slot.stop, slot.shape, lower, upper,
                              independent)
-        outputs = set().union(*(_term_nodes(t) for t in involved)) if involved else set()
-        needed = _upstream(graph, outputs)
         plan = Plan(graph, [s for s in slots if s.node in needed], [], dimension,
                     extra_outputs=tuple(sorted(outputs)),
                     held=tuple(s for s in held if s.node in needed))
-        made.append(Conditional(block, plan, involved))
+        rank = max([len(graph.type_of(i).shape) for i in used]
+                   + [len(_batch_shape(graph, t)) for t in involved] + [0])
+        steps = sorted(used - {slot.node}) if batched else None
+        made.append(Conditional(block, plan, involved, graph, slot.node, steps, rank))
     return made
