@@ -540,7 +540,10 @@ def resume_chain(body: dict, chain_index: int, blob: bytes, model: Any = None) -
     resolved = _resolved_with_seed(body)
     model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
-    chain = restore_integer_chain(model, blob) if model.discrete_size else Chain.restore(model, blob)
+    if model.discrete_size:
+        chain: Chain = restore_integer_chain(model, blob)
+    else:
+        chain = Chain.restore(model, blob)
     if chain.settings != _chain_settings(resolved):
         raise ValueError("the snapshot was made with different sampler settings than this job's")
     return ChainRun(model, chain, seed)

@@ -138,17 +138,19 @@ class Conditional:
         self._rank = rank  # the candidates' axis goes before this many axes
         self.batched = steps is not None
 
-    def _total(self, values: list[Any]) -> Any:
-        total: Any = 0.0
+    def _pointwise(self, values: list[Any]) -> list[np.ndarray]:
+        """Each involved term's pointwise log densities."""
+        found = []
         with np.errstate(all="ignore"):
             for term in self._terms:
                 args = {n: values[k] for n, k in zip(term.argument_names, term.argument_nodes,
                                                      strict=True)}
-                total = total + term.distribution.log_density(values[term.variate], args)
-        return total
+                found.append(np.asarray(term.distribution.log_density(values[term.variate],
+                                                                      args), dtype=float))
+        return found
 
-    def _pointwise(self, point: np.ndarray) -> Any:
-        return self._total(self._plan.values_at(point))
+    def _total(self, point: np.ndarray) -> float:
+        return float(sum(np.sum(p) for p in self._pointwise(self._plan.values_at(point))))
 
     def _batched(self, point: np.ndarray) -> np.ndarray:
         """(support size, elements) in one pass (see the class docstring)."""
@@ -163,11 +165,14 @@ class Conditional:
         with np.errstate(all="ignore"):
             for out, forward, inputs in self._steps:
                 values[out] = forward(*[values[i] for i in inputs])
-        pointwise = np.asarray(self._total(values), dtype=float)
-        if b.shape:  # every involved term's pointwise values have the unknown's shape
-            return np.broadcast_to(pointwise, (count, *b.shape)).reshape(count, b.size)
-        pointwise = np.broadcast_to(pointwise, (count,) + pointwise.shape[1:])
-        return pointwise.reshape(count, -1).sum(axis=1, keepdims=True)
+        weights = np.zeros((count, b.size))
+        for pointwise in self._pointwise(values):
+            if b.shape:  # every involved term's pointwise values have the unknown's shape
+                weights += np.broadcast_to(pointwise, (count, *b.shape)).reshape(count, b.size)
+            else:  # a term's values carry the candidates' axis first, then its own elements
+                pointwise = np.broadcast_to(pointwise, (count,) + pointwise.shape[1:])
+                weights[:, 0] += pointwise.reshape(count, -1).sum(axis=1)
+        return weights
 
     def log_weights(self, point: np.ndarray) -> np.ndarray:
         """(support size, elements): the log weight of each value for each element, up to a
@@ -179,10 +184,9 @@ class Conditional:
         else:
             scratch = np.array(point, dtype=float)
             weights = np.empty((b.upper - b.lower + 1, b.size))
-            for k, value in enumerate(b.support):
+            for k, value in enumerate(b.support):  # a scalar (or one-element) block here
                 scratch[b.start:b.stop] = value
-                pointwise = np.asarray(self._pointwise(scratch), dtype=float)
-                weights[k] = pointwise.reshape(-1) if b.shape else np.sum(pointwise)
+                weights[k] = self._total(scratch)
         weights[~np.isfinite(weights)] = -np.inf
         return weights
 
@@ -193,7 +197,7 @@ class Conditional:
         weights = np.empty(b.upper - b.lower + 1)
         for k, value in enumerate(b.support):
             scratch[b.start + element] = value
-            weights[k] = float(np.sum(self._pointwise(scratch)))
+            weights[k] = self._total(scratch)
         weights[~np.isfinite(weights)] = -np.inf
         return weights
 
