@@ -52,6 +52,14 @@ def job_evidence(runtime: Runtime, job: Job, chains: list[Chain]) -> Evidence:
                          f"Job {job.id}'s prior does not integrate to one, so its marginal "
                          "likelihood is not defined; nothing was computed.", problems)
     model = compile_model(body["model"], body["data"])
+    if model.discrete_size:
+        # Bridge sampling fits a normal proposal to the continuous unknowns; over integer ones it
+        # would need a sum over their values, which it does not do (docs/discrete-unknowns.md).
+        message = ("bridge sampling estimates the marginal likelihood of continuous unknowns "
+                   "only, and this model has integer unknowns")
+        raise ApiProblem(422, "integer-unknowns", "The model has integer unknowns",
+                         f"Job {job.id}: {message}; nothing was computed.",
+                         [{"pointer": "/model/unknowns", "message": message}])
     load = draw_loader(runtime, chains)
     width = len(model.unknown_names)
     draws = np.stack([model.unconstrain_draws(load(chain.chain_index)[:, :width])

@@ -82,3 +82,7 @@ def test_change_point_over_http_with_a_resume_matches_in_process(
     assert record["rhat"] is not None and record["bulk_ess"] > 0
     response, _ = call("GET", job_url + "/diagnostics")
     assert response.status_code == 200
+    # bridge sampling covers continuous unknowns only: refused, with a pointer, not a 500
+    response, problem = call("GET", job_url + "/evidence")
+    assert response.status_code == 422
+    assert problem["errors"][0]["pointer"] == "/model/unknowns"
