@@ -3,9 +3,8 @@
 Every iteration first draws each integer unknown from its full conditional (worker/samplers/
 gibbs.py), then moves the continuous unknowns by one NUTS, static HMC or Metropolis transition
 with the integers held at their new values. Each half leaves the joint posterior invariant, so
-their composition does too (the deterministic-scan combination of Gibbs-type updates in Gelfand
-& Smith 1990, section 2). Warm-up adapts only the continuous half: the Gibbs half has nothing to
-tune.
+their composition does too (updates of blocks in turn, each from its conditional, as in Gelfand
+& Smith 1990). Warm-up adapts only the continuous half: the Gibbs half has nothing to tune.
 
 A chain's point is the continuous coordinates u followed by the integer unknowns' values (as
 CompiledModel lays it out); its draws are whole points. The Gibbs updates draw from child 2 of
