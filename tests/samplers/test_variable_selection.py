@@ -115,6 +115,7 @@ def body(chains: int, draws: int, seed: int) -> dict:
 
 
 @pytest.mark.slow
+@pytest.mark.timeout(2700)  # 120,000 iterations: 15.6 min at a load average of 10 on 2 cores
 def test_inclusion_probabilities_match_the_g_prior_enumeration():
     reference = exact()
     assert 0.2 < reference["inclusion"][3] < 0.8  # the weak effect is genuinely uncertain
