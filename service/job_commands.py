@@ -22,6 +22,7 @@ from service.client.http import DEFAULT_URL, DrawyardClient
 from service.client.records import Job
 from service.client.retrying import RetryPolicy
 from service.client.waiting import WaitTimedOut, wait_for_job
+from service.discrete_tables import discrete_text
 
 EXIT_PASSED = 0
 EXIT_CHECKS_FAILED = 3
@@ -164,6 +165,8 @@ def build_submission(args: argparse.Namespace) -> dict[str, Any]:
     summary = _member(body, "summary", args.settings)
     if args.interval_level is not None:
         summary["interval"] = args.interval_level
+    if args.pattern:
+        summary["patterns"] = [*summary.get("patterns", []), *args.pattern]
     labels = _member(body, "labels", args.settings)
     for item in args.label:
         key, value = _pair(item, "=", "--label")
@@ -387,6 +390,15 @@ def _chains(text: str | None) -> list[int] | None:
         raise InputProblem(f"--chains '{text}': expected chain numbers such as 1,2") from error
 
 
+def run_probabilities(args: argparse.Namespace) -> int:
+    with _client(args) as client:
+        document = client.summary(args.job)
+    if document.get("partial"):
+        _warn_partial(args.job)
+    sys.stdout.write(discrete_text(dict(document)))
+    return EXIT_PASSED
+
+
 def run_cancel(args: argparse.Namespace) -> int:
     with _client(args) as client:
         job = client.cancel(args.job)
@@ -554,6 +566,9 @@ def _submission_options() -> argparse.ArgumentParser:
     group.add_argument("--interval-level", type=float, default=None, metavar="LEVEL",
                        help="the level of each quantity's central interval in the summary "
                             "(default 0.8)")
+    group.add_argument("--pattern", action="append", default=[], metavar="NAME",
+                       help="an integer-valued vector quantity (such as inclusion indicators) "
+                            "whose most probable joint values the summary tables (repeatable)")
     group.add_argument("--set", action="append", default=[], metavar="NAME=JSON",
                        help="any other sampler setting, e.g. --set start_spread=1 (repeatable)")
     group.add_argument("--check", action="append", default=[], metavar="NAME=JSON",
@@ -626,6 +641,15 @@ def add_job_commands(commands: argparse._SubParsersAction) -> None:
                        help="draws and sampler-stats with -o: keep the entity tag in FILE.etag "
                             "and download again only when the result differs (the service "
                             "answers 304 otherwise); the file is replaced only when complete")
+
+    probabilities = add(
+        "probabilities", "print a finished job's discrete quantities as probability tables",
+        "For every integer-valued quantity of a finished job, the posterior probability of each "
+        "value drawn (of 1, for a 0/1 quantity), and the joint-pattern tables asked for with "
+        "submit --pattern, each probability with its Monte Carlo standard error after '±'.",
+        [connection], run_probabilities, "probabilities",
+    )
+    probabilities.add_argument("job", help="the job id")
 
     cancel = add(
         "cancel", "cancel a job",

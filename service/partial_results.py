@@ -137,7 +137,12 @@ def summarise_partial(
     verdict["passed"] = False
     return {
         "summary": outcome["summary"],
-        "diagnostics": {"sampler": outcome["sampler"], "verdict": verdict, "partial": record},
+        "diagnostics": {
+            "sampler": outcome["sampler"],
+            "verdict": verdict,
+            "partial": record,
+            "patterns": outcome["patterns"],
+        },
         "verdict": verdict,
         "error": _reason(limit, lengths, summarised),
     }

@@ -117,6 +117,9 @@ def summary_document(job: Job) -> dict[str, Any]:
         "job": job.id,
         **_partial_members(job),
         "quantities": job.summary or [],
+        # joint-pattern tables of the vectors the submission's summary.patterns named (none for
+        # jobs finished before they existed)
+        "patterns": (job.diagnostics or {}).get("patterns") or [],
         "verdict": job.verdict,
     }
 

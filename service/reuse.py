@@ -13,6 +13,7 @@ Nothing is queued for it.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 from sqlalchemy import insert, literal, or_, select, update
@@ -32,23 +33,28 @@ def run_fingerprint(
     warm_start_from: str | None,
     summary_interval: float,
     scheme: str = CURRENT_SCHEME,
+    summary_patterns: Sequence[str] = (),
 ) -> str:
     """SHA-256 of everything that fixes a job's draws, summary and verdict, engine version
-    included, under the digest scheme ``scheme`` (the spec and data digests under it too)."""
-    return sha256_of_json(
-        {
-            "model": spec_sha256,
-            "data": data_sha256,
-            "settings": resolved,
-            "summary_interval": float(summary_interval),
-            "checks": verdict_thresholds(checks),
-            "warm_start_from": warm_start_from,
-            # An upgrade of drawyard or of the numerical libraries may change the draws; a
-            # result made by other code is not reused.
-            "software": software_versions(),
-        },
-        scheme,
-    )
+    included, under the digest scheme ``scheme`` (the spec and data digests under it too).
+
+    ``summary_patterns`` (the joint-pattern tables asked for) enters only when given, so the
+    fingerprints of jobs that ask for none are those made before the setting existed.
+    """
+    parts: dict[str, Any] = {
+        "model": spec_sha256,
+        "data": data_sha256,
+        "settings": resolved,
+        "summary_interval": float(summary_interval),
+        "checks": verdict_thresholds(checks),
+        "warm_start_from": warm_start_from,
+        # An upgrade of drawyard or of the numerical libraries may change the draws; a
+        # result made by other code is not reused.
+        "software": software_versions(),
+    }
+    if summary_patterns:
+        parts["summary_patterns"] = list(summary_patterns)
+    return sha256_of_json(parts, scheme)
 
 
 def verdict_thresholds(checks: Any) -> dict[str, float | None]:
@@ -157,12 +163,13 @@ def fingerprints_by_scheme(
     checks: Any,
     warm_start_from: str | None,
     summary_interval: float,
+    summary_patterns: Sequence[str] = (),
 ) -> dict[str, str]:
     """The run fingerprint of a submission under every digest scheme, for find_source."""
     return {
         scheme: run_fingerprint(
             sha256_of_json(model, scheme), sha256_of_json(data, scheme), resolved, checks,
-            warm_start_from, summary_interval, scheme,
+            warm_start_from, summary_interval, scheme, summary_patterns,
         )
         for scheme in SCHEMES
     }

@@ -333,6 +333,7 @@ def submit(runtime: Runtime, body: Any, idempotency_key: str | None) -> Accepted
     fingerprints = fingerprints_by_scheme(
         stored["model"], stored.get("data") or {}, resolved, stored.get("checks"),
         prepared.warm_start_from, summary_interval(stored),
+        (stored.get("summary") or {}).get("patterns") or (),
     )
     run_sha256 = fingerprints[CURRENT_SCHEME]
     source = None

@@ -24,6 +24,12 @@ from worker.approximation.runs import (
     grid_dimension_problem,
 )
 from worker.diagnostics import check_thresholds, sampler_checks, summarize, verdict
+from worker.diagnostics.discrete import (
+    MAX_PATTERN_ELEMENTS,
+    flat_members,
+    pattern_table,
+    value_tables,
+)
 from worker.diagnostics.summary import DEFAULT_INTERVAL, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, EvaluationCounts, SamplerSettings
@@ -266,6 +272,8 @@ def check_submission(
         problems.extend(_initial_value_problems(body))
     if not problems:
         problems.extend(warm_start_problems(body))
+    if not problems:
+        problems.extend(pattern_problems(body))
     return problems
 
 
@@ -317,7 +325,7 @@ def _integer_unknown_problems(body: dict) -> list[Problem]:
     return problems
 
 
-SUMMARY_MEMBERS = ("interval",)
+SUMMARY_MEMBERS = ("interval", "patterns")
 
 
 def summary_problems(member: Any) -> list[Problem]:
@@ -337,7 +345,56 @@ def summary_problems(member: Any) -> list[Problem]:
         message = interval_problem(member["interval"])
         if message:
             problems.append(Problem("/summary/interval", message))
+    patterns = member.get("patterns")
+    if "patterns" in member and not (
+        isinstance(patterns, list) and all(isinstance(name, str) for name in patterns)
+    ):
+        problems.append(Problem("/summary/patterns", "The patterns setting must be a list of "
+                                "names of integer-valued quantities, such as [\"included\"]."))
+    elif patterns:
+        seen: set[str] = set()
+        for i, name in enumerate(patterns):
+            if name in seen:
+                problems.append(Problem(f"/summary/patterns/{i}", f"'{name}' is named twice."))
+            seen.add(name)
     return problems
+
+
+def pattern_problems(body: dict) -> list[Problem]:
+    """Each name in ``summary.patterns`` must be a quantity of the model whose every element is
+    integer-valued, and together they may have at most ``MAX_PATTERN_ELEMENTS`` elements."""
+    names = (body.get("summary") or {}).get("patterns") or []
+    if not names:
+        return []
+    model = compile_body(body)
+    problems = []
+    elements = 0
+    for i, name in enumerate(names):
+        columns = flat_members(name, model.quantity_names)
+        where = f"/summary/patterns/{i}"
+        if not columns:
+            problems.append(Problem(where, f"The model has no quantity named '{name}'."))
+        elif not all(model.quantity_names[c] in model.integer_quantities for c in columns):
+            problems.append(Problem(where, f"'{name}' is not integer-valued: joint patterns are "
+                                    "tabled for discrete quantities only."))
+        elements += len(columns)
+    if elements > MAX_PATTERN_ELEMENTS:
+        problems.append(Problem("/summary/patterns", f"The named quantities have {elements} "
+                                f"elements together; at most {MAX_PATTERN_ELEMENTS} are tabled."))
+    return problems
+
+
+def discrete_summary(
+    body: dict, draws: np.ndarray, names: list[str], summary: list[dict], integers: Any
+) -> list[dict]:
+    """Adds each integer-valued quantity's value probabilities to its summary record (member
+    ``discrete``; None for the others) and returns the joint-pattern tables the body's
+    ``summary.patterns`` asks for (worker/diagnostics/discrete.py)."""
+    tables = value_tables(draws, names, integers)
+    for record in summary:
+        record["discrete"] = tables.get(record["name"])
+    wanted = (body.get("summary") or {}).get("patterns") or []
+    return [pattern_table(draws, name, names) for name in wanted]
 
 
 def summary_interval(body: dict) -> float:
@@ -571,9 +628,10 @@ def pooled_draws(results: list[ChainResult]) -> np.ndarray:
 def finish_job(body: dict, results: list[ChainResult]) -> dict:
     """Summary, sampler report and verdict of a job's completed chains, all JSON-able.
 
-    Returns ``{"summary": [per-quantity records], "sampler": report, "verdict": verdict}``; the
-    sampler report adds each chain's adapted step size and its evaluations of the model (with
-    gradient, and of the log density alone, by phase) to ``sampler_checks``' counts.
+    Returns ``{"summary": [per-quantity records], "sampler": report, "verdict": verdict,
+    "patterns": [joint-pattern tables of summary.patterns]}``; the sampler report adds each
+    chain's adapted step size and its evaluations of the model (with gradient, and of the log
+    density alone, by phase) to ``sampler_checks``' counts.
     """
     if not results:
         raise ValueError("a job needs at least one chain to finish")
@@ -584,10 +642,13 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
         raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
     draws = pooled_draws(results)
-    summary = summarize(draws, list(results[0].names), summary_interval(body))
+    names = list(results[0].names)
+    model = compile_body(body)
+    summary = summarize(draws, names, summary_interval(body))
+    patterns = discrete_summary(body, draws, names, summary, model.integer_quantities)
     if resolved["method"] in APPROXIMATION_METHODS:
         report, checked = approximation_verdict(results)
-        return {"summary": summary, "sampler": report, "verdict": checked}
+        return {"summary": summary, "sampler": report, "verdict": checked, "patterns": patterns}
     depth = resolved["maximum_tree_depth"] if resolved["method"] == "nuts" else None
     report = sampler_checks([dict(r.stats) for r in results], depth)
     report["step_size_per_chain"] = [
@@ -600,11 +661,12 @@ def finish_job(body: dict, results: list[ChainResult]) -> dict:
     report["log_density_evaluations_per_chain"] = [
         None if r.evaluations is None else dict(r.evaluations.log_density) for r in results
     ]
-    report["reparametrisation"] = compile_body(body).reparametrisation
+    report["reparametrisation"] = model.reparametrisation
     return {
         "summary": summary,
         "sampler": report,
         "verdict": verdict(summary, report, body.get("checks")),
+        "patterns": patterns,
     }
 
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, TypedDict
+from typing import Any, NotRequired, TypedDict
 
 TERMINAL_STATES = frozenset({"succeeded", "failed", "cancelled", "timed_out"})
 
@@ -154,11 +154,60 @@ class QuantitySummary(TypedDict, total=False):
     sd_error: float | None
     quantile_errors: dict[str, float | None]  # "median", "lower", "upper"
     note: str | None
+    discrete: ValueTable | None  # integer-valued quantities only (docs/discrete-summaries.md)
+
+
+class Estimate(TypedDict, total=False):
+    """A probability read off the draws, its Monte Carlo standard error and its indicator's ESS."""
+
+    probability: float
+    error: float | None
+    ess: float | None
+
+
+class ValueProbability(Estimate):
+    value: int
+
+
+class OtherValues(Estimate):
+    distinct_values: int
+
+
+class ValueTable(TypedDict):
+    distinct_values: int
+    values: list[ValueProbability]   # increasing values, at most 20
+    other: OtherValues | None        # the mass of the values not listed
+    probability_of_one: Estimate | None  # 0/1 quantities: P(= 1)
+
+
+class PatternProbability(Estimate, total=False):
+    values: list[int]
+    included: list[str]              # binary vectors: the elements equal to 1
+
+
+class OtherPatterns(Estimate):
+    distinct_patterns: int
+
+
+class NamedEstimate(Estimate):
+    name: str
+
+
+class PatternTable(TypedDict):
+    name: str
+    elements: list[str]
+    distinct_patterns: int
+    patterns: list[PatternProbability]   # most probable first, at most 10
+    other: OtherPatterns | None
+    binary: bool
+    inclusion: list[NamedEstimate] | None  # binary vectors: each element's P(= 1)
 
 
 class SummaryDocument(TypedDict):
     job: str
+    partial: bool
     quantities: list[QuantitySummary]
+    patterns: NotRequired[list[PatternTable]]  # the vectors the submission's summary.patterns named
     verdict: dict[str, Any] | None
 
 

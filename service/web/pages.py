@@ -20,6 +20,7 @@ from service.submissions import submit, validate
 from service.views.context import runtime
 from service.web.advice import grouped_failures
 from service.web.blueprint import web
+from service.web.plot_views import discrete_names
 from service.web.submission_form import (
     METHODS,
     FormState,
@@ -32,6 +33,9 @@ from service.web.submission_form import (
 )
 
 PAGE_SIZE = 25
+# Integer-valued quantities listed on the job page: a model with thousands of replicated counts
+# would otherwise make the page as long as its summary; the summary JSON holds all of them.
+DISCRETE_ROWS = 50
 # Small settings for the demo button: the page is for trying the service, and a run this size
 # finishes in well under a minute on two cores; the analyst can raise them before submitting.
 DEMO_SETTINGS = {"chains": 4, "warmup": 300, "draws": 300}
@@ -118,6 +122,9 @@ def job_page(job_id: str) -> str:
             x_name=_pick(names, request.args.get("x"), first),
             y_name=_pick(names, request.args.get("y"), second),
             downloads=DOWNLOADS,
+            discrete=discrete_names(summary),
+            discrete_rows=[r for r in summary if r.get("discrete")][:DISCRETE_ROWS],
+            patterns=(job.diagnostics or {}).get("patterns") or [],
         )
     elif job.state == "timed_out":
         context["partial_downloads"] = partial_downloads(job)

@@ -11,13 +11,14 @@ from service.job_queries import bad_parameter
 from service.plots.cache import PlotCache
 from service.plots.figures import density_figure, rank_figure, scatter_figure, trace_figure
 from service.plots.job_arrays import divergent_draws, quantity_draws, quantity_names
+from service.plots.probabilities import probability_figure
 from service.plots.rendering import to_png, to_svg
 from service.problem_details import ApiProblem
 from service.results import finished_job
 from service.views.context import runtime
 from service.web.blueprint import web
 
-KINDS = ("trace", "ranks", "density", "scatter")
+KINDS = ("trace", "ranks", "density", "scatter", "probabilities")
 CACHE_SETTING = "DRAWYARD_PLOT_CACHE"
 DEFAULT_CACHE = "var/plot-cache"
 RANK_BINS = (5, 100)
@@ -34,6 +35,11 @@ def _quantity(names: list[str], parameter: str) -> str:
     if name not in names:
         raise bad_parameter(parameter, f"No quantity named {name!r} in this job.")
     return name
+
+
+def discrete_names(summary: list[dict] | None) -> set[str]:
+    """The quantities the summary gave value probabilities (integer-valued ones)."""
+    return {r["name"] for r in summary or [] if r.get("discrete")}
 
 
 def _bins() -> int:
@@ -62,7 +68,7 @@ def _plot(job_id: str, kind: str, image_format: str) -> Response:
     if kind not in KINDS:
         raise ApiProblem(404, "plot-not-found", "No such plot",
                          f"The plots are {', '.join(KINDS)}.")
-    _, chains = finished_job(runtime(), job_id)
+    job, chains = finished_job(runtime(), job_id)
     names = quantity_names(runtime(), chains)
     if kind == "scatter":
         parameters: dict[str, object] = {"x": _quantity(names, "x"), "y": _quantity(names, "y")}
@@ -70,6 +76,9 @@ def _plot(job_id: str, kind: str, image_format: str) -> Response:
         parameters = {"quantity": _quantity(names, "quantity")}
         if kind == "ranks":
             parameters["bins"] = _bins()
+        if kind == "probabilities" and parameters["quantity"] not in discrete_names(job.summary):
+            raise bad_parameter("quantity", f"{parameters['quantity']!r} is not integer-valued: "
+                                            "its posterior is shown by the density plot.")
 
     def render() -> bytes:
         if kind == "scatter":
@@ -83,6 +92,8 @@ def _plot(job_id: str, kind: str, image_format: str) -> Response:
                 figure = trace_figure(x, name)
             elif kind == "ranks":
                 figure = rank_figure(x, name, int(parameters["bins"]))
+            elif kind == "probabilities":
+                figure = probability_figure(x, name)
             else:
                 figure = density_figure(x, name)
         return write(figure)

@@ -263,6 +263,16 @@ CASES = [
          changed(set_in(("summary",), {"interval": "90%"}))),
     Case("unknown_summary_setting", 422, "/summary/quantiles",
          changed(set_in(("summary",), {"quantiles": [0.5]}))),
+    Case("patterns_not_a_list", 422, "/summary/patterns",
+         changed(set_in(("summary",), {"patterns": "mu"}))),
+    Case("patterns_of_an_unknown_name", 422, "/summary/patterns/0",
+         changed(set_in(("summary",), {"patterns": ["gamma"]})), says=("no quantity",)),
+    Case("patterns_of_a_real_quantity", 422, "/summary/patterns/0",
+         changed(set_in(("summary",), {"patterns": ["mu"]})), says=("not integer-valued",)),
+    Case("patterns_named_twice", 422, "/summary/patterns/1", changed(
+        lambda b: (count_model(b), b["data"]["k"].__setitem__(3, 1),
+                   b["model"].update({"per_draw": {"replicates": ["counts"]}}),
+                   b.update({"summary": {"patterns": ["replicate.counts"] * 2}})))),
     Case("ordered_with_upper", 422, "/model/unknowns/mu", changed(
         set_in(("model", "unknowns", "mu"), {"shape": [2], "structure": "ordered", "upper": 1}))),
     Case("too_many_unknowns", 422, "/model/unknowns", changed(many_unknowns)),

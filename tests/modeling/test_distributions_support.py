@@ -78,6 +78,12 @@ OUT_OF_SUPPORT = [
     ("lkj_correlation_factor", {"concentration": 2.0},
      np.stack([CHOL_2, np.array([[1.0, 0.0], [0.6, 0.9]])])),
     ("lkj_correlation_factor", {"concentration": np.array([2.0, 0.0])}, CHOL_2),
+    ("wishart_factor", {"degrees_of_freedom": 3.0, "scale_cholesky": np.eye(2)},
+     np.stack([CHOL_2, -CHOL_2])),
+    ("wishart_factor", {"degrees_of_freedom": np.array([3.0, 0.5]), "scale_cholesky": np.eye(2)},
+     CHOL_2),
+    ("wishart_factor", {"degrees_of_freedom": 3.0,
+                        "scale_cholesky": np.stack([np.eye(2), np.zeros((2, 2))])}, CHOL_2),
 ]
 
 

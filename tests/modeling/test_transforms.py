@@ -2,10 +2,12 @@
 the constrain VJP against central finite differences (scipy.optimize.approx_fprime with steps +h
 and -h). The log-Jacobian is checked against log|det| (numpy.linalg.slogdet) of the
 finite-difference Jacobian of the map from u to the free coordinates of x: every element, the
-first K-1 of a simplex, the strictly lower triangle of a Cholesky factor (change of variables,
-common practice). The maps themselves are the standard ones: stick-breaking for the simplex,
-exponentiated increments for ordered vectors, and tanh-transformed canonical partial correlations
-for Cholesky factors (Lewandowski, Kurowicka & Joe 2009, section 2).
+first K-1 of a simplex, the strictly lower triangle of a correlation matrix's Cholesky factor, the
+lower triangle with the diagonal of a covariance matrix's (change of variables, common practice).
+The maps themselves are the standard ones: stick-breaking for the simplex, exponentiated
+increments for ordered vectors, tanh-transformed canonical partial correlations for correlation
+Cholesky factors (Lewandowski, Kurowicka & Joe 2009, section 2), and an exponentiated diagonal for
+covariance Cholesky factors.
 """
 
 from __future__ import annotations
@@ -38,6 +40,8 @@ CASES: list[tuple[str, dict, tuple[int, ...], float]] = [
     ("ordered_above_shifted", {"structure": "ordered", "lower": -3.5}, (2, 3), 2.0),
     ("cholesky_2", {"structure": "correlation_factor"}, (2, 2), 2.0),
     ("cholesky_4", {"structure": "correlation_factor"}, (4, 4), 2.0),
+    ("covariance_factor_1", {"structure": "covariance_factor"}, (1, 1), 3.0),
+    ("covariance_factor_3", {"structure": "covariance_factor"}, (3, 3), 3.0),
 ]
 
 
@@ -51,6 +55,9 @@ def free_coordinates(transform: Transform, x: np.ndarray) -> np.ndarray:
         return x[..., :-1].ravel()
     if transform.structure == "correlation_factor":
         rows, cols = np.tril_indices(x.shape[0], -1)
+        return x[rows, cols]
+    if transform.structure == "covariance_factor":
+        rows, cols = np.tril_indices(x.shape[0])
         return x[rows, cols]
     return np.ravel(x)
 
@@ -90,6 +97,9 @@ def test_round_trip_and_structure(label, options, shape, bound, data) -> None:
         assert np.all(np.triu(x, 1) == 0)
         assert np.all(np.diagonal(x) > 0)
         np.testing.assert_allclose(np.sum(x * x, axis=1), 1.0, rtol=0, atol=1e-13)
+    if structure == "covariance_factor":
+        assert np.all(np.triu(x, 1) == 0)
+        assert np.all(np.diagonal(x) > 0)
 
 
 @pytest.mark.parametrize(("label", "options", "shape", "bound"), CASES, ids=[c[0] for c in CASES])
@@ -133,10 +143,13 @@ def test_log_jacobian_and_derivatives(label, options, shape, bound, data) -> Non
         ({"structure": "ordered", "lower": 0.0}, (5,), 5),
         ({"structure": "correlation_factor"}, (5, 5), 10),
         ({"structure": "correlation_factor"}, (1, 1), 0),
+        ({"structure": "covariance_factor"}, (4, 4), 10),
+        ({"structure": "covariance_factor"}, (1, 1), 1),
     ],
 )
 def test_sizes(options: dict, shape: tuple[int, ...], expected: int) -> None:
-    """Free parameter counts (common practice): K-1 per simplex, K(K-1)/2 for a K x K factor."""
+    """Free parameter counts (common practice): K-1 per simplex, K(K-1)/2 for a K x K correlation
+    factor, K(K+1)/2 for a K x K covariance factor."""
     transform = build(options, shape)
     assert transform.size(shape) == expected
     assert transform.dimension == expected

@@ -54,3 +54,23 @@ def test_a_changed_or_disabled_threshold_is_not_reused(app: Flask, queue):
         response, job = call(client, "POST", "/v1/jobs", {**body, "checks": checks})
         assert response.status_code == 202
         assert job["reused_from"] is None and job["state"] == "queued", checks
+
+
+def test_joint_pattern_tables_asked_for_are_part_of_the_fingerprint(app: Flask, queue):
+    """A job that asks for a pattern table is not answered by one that did not make it, and the
+    other way round; the same request reuses the result, tables and all."""
+    body = normal_mean(chains=2, warmup=100, draws=100, seed=34)
+    body["model"]["per_draw"] = {"predictions": [
+        {"name": "above", "distribution": "bernoulli", "arguments": {"probability": "logistic(mu)"}}
+    ]}
+    client = app.test_client()
+    response, first = call(client, "POST", "/v1/jobs", {**body, "summary": {"patterns": ["above"]}})
+    assert response.status_code == 202
+    run_to_the_end(app, first["id"], 2)
+    _, plain = call(client, "POST", "/v1/jobs", body)
+    assert plain["reused_from"] is None and plain["state"] == "queued"
+    _, again = call(client, "POST", "/v1/jobs", {**body, "summary": {"patterns": ["above"]}})
+    assert again["reused_from"] == first["id"]
+    tables = [call(client, "GET", f"/v1/jobs/{j}/summary")[1]["patterns"]
+              for j in (first["id"], again["id"])]
+    assert tables[0] == tables[1] and [t["name"] for t in tables[0]] == ["above"]

@@ -81,9 +81,14 @@ def quantile_ess_batch(x: np.ndarray, p: float) -> np.ndarray:
 
 
 def tail_ess_batch(x: np.ndarray) -> np.ndarray:
-    """Minimum of the 5% and 95% quantile ESS."""
+    """Minimum of the 5% and 95% quantile ESS, over those that are defined.
+
+    A discrete quantity can have one constant quantile indicator (a 0/1 quantity has 95% quantile
+    1, and I(x <= 1) is always true) and a varying one; the varying one still measures mixing, so
+    a NaN does not hide it (fmin skips a NaN). Both undefined gives NaN.
+    """
     lower, upper = (quantile_ess_batch(x, p) for p in TAIL_PROBABILITIES)
-    return np.minimum(lower, upper)
+    return np.fmin(lower, upper)
 
 
 def ess(x: np.ndarray) -> float:

@@ -42,7 +42,10 @@ def split_rhat_batch(x: np.ndarray) -> np.ndarray:
     split = split_chains(neutralize(x, bad))
     bulk = _rhat_of_split(rank_normalize(split))
     tail = _rhat_of_split(rank_normalize(fold(split)))
-    result = np.maximum(bulk, tail)
+    # Folded draws can be constant when the draws are not: a 0/1 quantity with exactly as many
+    # ones as zeros has median 1/2, and every draw lies 1/2 from it. The tail R-hat is then 0/0
+    # and says nothing, so the bulk R-hat alone decides (fmax skips a NaN).
+    result = np.fmax(bulk, tail)
     result[bad] = np.nan
     return result
 

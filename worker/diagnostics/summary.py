@@ -115,7 +115,8 @@ def _summarize_block(
             quantile_error_batch(block, p, indicator[p]) if enough else nan for p in probabilities
         ]
         bulk = bulk_ess_batch(block) if enough else nan
-        tail = np.minimum(*(indicator[p] for p in TAIL_PROBABILITIES))
+        # over the defined ones, as tail_ess_batch: one constant indicator must not hide the other
+        tail = np.fmin(*(indicator[p] for p in TAIL_PROBABILITIES))
         rhat = split_rhat_batch(block) if enough else nan
     notes = _notes(block)
     records = []

@@ -568,7 +568,7 @@ class _Assembler:
                                      and upper <= 1):
             self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
                              f"declare '{target}' with lower: 0 and upper: 1")
-        elif kind in ("simplex", "correlation_factor") and structure != kind:
+        elif kind in ("simplex", "correlation_factor", "covariance_factor") and structure != kind:
             self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
                              f"declare '{target}' with structure: {kind}")
 

@@ -3,7 +3,8 @@
 Each transform is bound to the unknown's declared shape. `constrain` takes the unknown's 1-D slice
 of the unconstrained vector; `log_jacobian_and_gradient` is log |det J| of the map from that slice
 to the unknown's free coordinates (all of them, or the first K-1 of a simplex, or the strictly lower
-entries of a Cholesky factor); `constrain_vjp` pulls a gradient with respect to the constrained
+entries of a correlation matrix's Cholesky factor, or the lower triangle with the diagonal of a
+covariance matrix's); `constrain_vjp` pulls a gradient with respect to the constrained
 value back to the slice. `forward` does all three in one pass for the compiled model's hot path.
 """
 
@@ -454,10 +455,69 @@ class CorrelationFactor(Transform):
         return chol, log_jac, backward
 
 
+class CovarianceFactor(Transform):
+    """A K x K lower-triangular matrix with a positive diagonal (the Cholesky factor of a
+    covariance matrix) from K(K+1)/2 free values, row by row: entries below the diagonal are the
+    values themselves and diagonal entries their exponentials. log|J| is the sum of the values
+    that become diagonal entries."""
+
+    structure = "covariance_factor"
+
+    def __init__(self, shape: tuple[int, ...]) -> None:
+        if len(shape) != 2 or shape[0] != shape[1] or shape[0] < 1:
+            raise ValueError("a Cholesky factor of a covariance matrix needs a shape [K, K]")
+        super().__init__(shape)
+        self._rows, self._cols = np.tril_indices(self.shape[0])
+        self._on_diagonal = self._rows == self._cols
+        self._jac_grad = self._on_diagonal.astype(float)
+
+    def size(self, shape):
+        k = int(shape[0])
+        return k * (k + 1) // 2
+
+    def _entries(self, u):
+        return np.where(self._on_diagonal, np.exp(u), u)
+
+    def constrain(self, u_slice):
+        x = np.zeros(self.shape)
+        x[self._rows, self._cols] = self._entries(np.asarray(u_slice, dtype=float))
+        return x
+
+    def unconstrain(self, x):
+        x = np.asarray(x, dtype=float).reshape(self.shape)
+        entries = x[self._rows, self._cols]
+        with np.errstate(all="ignore"):
+            return np.where(self._on_diagonal, np.log(entries), entries)
+
+    def log_jacobian_and_gradient(self, u_slice):
+        u = np.asarray(u_slice, dtype=float)
+        return float(np.sum(u[self._on_diagonal])), self._jac_grad
+
+    def _vjp(self, entries, upstream):
+        y = np.reshape(upstream, self.shape)[self._rows, self._cols]
+        # d exp(u)/du = exp(u) on the diagonal, 1 below it
+        return np.where(self._on_diagonal, y * entries, y)
+
+    def constrain_vjp(self, u_slice, upstream):
+        return self._vjp(self._entries(np.asarray(u_slice, dtype=float)), upstream)
+
+    def forward(self, u_slice):
+        u = np.asarray(u_slice, dtype=float)
+        entries = self._entries(u)
+        x = np.zeros(self.shape)
+        x[self._rows, self._cols] = entries
+
+        def backward(upstream: Array) -> Array:
+            return self._vjp(entries, upstream) + self._jac_grad
+
+        return x, float(np.sum(u[self._on_diagonal])), backward
+
+
 STRUCTURES.update(
     {
         "simplex": Simplex,
         "ordered": Ordered,
         "correlation_factor": CorrelationFactor,
+        "covariance_factor": CovarianceFactor,
     }
 )

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg
 
-from worker.samplers.target import Target, density_and_gradient
+from worker.samplers.target import Target, all_finite, density_and_gradient
 
 
 class Metric:
@@ -28,6 +28,17 @@ class Metric:
             self._cholesky = np.linalg.cholesky(self.inverse)
         else:
             self._sd = np.sqrt(self.inverse)
+        # A diagonal of ones: M^-1 p is p itself (p * 1.0 == p exactly), so loops may skip it.
+        self.unit = kind != "full" and bool(np.all(self.inverse == 1.0))
+        self._workspace: Workspace | None = None
+
+    def workspace(self, step_size: float) -> Workspace:
+        """Scratch buffers and step-size vectors for loops at ``step_size``, kept while it stays
+        (a transition is built per iteration, and sampling keeps one step size throughout)."""
+        space = self._workspace
+        if space is None or space.step_size != step_size:
+            space = self._workspace = Workspace.build(self.inverse.shape[0], step_size)
+        return space
 
     @classmethod
     def identity(cls, kind: str, dimension: int) -> Metric:
@@ -47,7 +58,10 @@ class Metric:
     def draw_momentum(self, rng: np.random.Generator) -> np.ndarray:
         z = rng.standard_normal(self.inverse.shape[0])
         if self.kind == "full":
-            return scipy.linalg.solve_triangular(self._cholesky, z, lower=True, trans="T")
+            # z comes from the generator, so it is finite and the check would be wasted.
+            return scipy.linalg.solve_triangular(
+                self._cholesky, z, lower=True, trans="T", check_finite=False
+            )
         return z / self._sd
 
     def as_json(self) -> dict:
@@ -56,6 +70,31 @@ class Metric:
         if self.kind == "full":
             return {"preconditioning": self.kind, "covariance": self.inverse.tolist()}
         return {"preconditioning": self.kind, "scales": self._sd.tolist()}
+
+
+@dataclass(slots=True)
+class Workspace:
+    """Preallocated arrays for a leapfrog loop at one step size.
+
+    Multiplying by a vector of copies of a scalar gives the same numbers as multiplying by the
+    scalar, without numpy converting the Python float on every call.
+    """
+
+    step_size: float
+    half: np.ndarray  # momentum after the first half step
+    move: np.ndarray  # step * M^-1 (half-step momentum)
+    forward: tuple[np.ndarray, np.ndarray]  # (step, step / 2) as vectors
+    backward: tuple[np.ndarray, np.ndarray]  # (-step, -step / 2)
+
+    @classmethod
+    def build(cls, dimension: int, step_size: float) -> Workspace:
+        return cls(
+            step_size,
+            np.empty(dimension),
+            np.empty(dimension),
+            (np.full(dimension, step_size), np.full(dimension, 0.5 * step_size)),
+            (np.full(dimension, -step_size), np.full(dimension, 0.5 * -step_size)),
+        )
 
 
 @dataclass(slots=True)
@@ -81,6 +120,17 @@ def leapfrog(
     log_density, new_gradient = density_and_gradient(target, new_position)
     new_momentum = half + (0.5 * step) * new_gradient
     return new_position, new_momentum, log_density, new_gradient
+
+
+def finite(x: np.ndarray) -> bool:
+    """worker.samplers.target.all_finite(x), the same answer at the cost of one dot product
+    when the entries are moderate, as they are on every trajectory that has not diverged.
+
+    A finite x . x means every |x_i| < 1.4e154 (a sum of non-negative terms cannot hide an
+    infinite one), so the sum that all_finite takes cannot overflow and is finite as well; only
+    otherwise is that sum needed.
+    """
+    return x.dot(x) < math.inf or all_finite(x)
 
 
 def hamiltonian(log_density: float, momentum: np.ndarray, metric: Metric) -> float:

@@ -13,6 +13,28 @@ maximum depth; divergence when the energy error is too large), with the refineme
   the two ends. When two subtrees are merged we also test the tree formed by the left subtree plus
   the first point of the right one, and the last point of the left plus the right subtree, which
   catches U-turns that straddle the boundary between the halves.
+
+How the loop is written (issue 18 item 4: the sampler's own work per leapfrog step):
+
+- A subtree of depth j is built leaf by leaf rather than by recursion. Its leaves come in the order
+  the recursion visits them, and after leaf k the merges the recursion would make next are those
+  of the trailing one bits of k, lowest level first; completed halves wait in per-level slots. So
+  every random number is drawn, every sum is formed and every dot product is taken exactly as the
+  recursive description says, in the same order, and the draws are bitwise those of the recursive
+  form (tests/samplers/test_pinned_draws.py pins them).
+- A subtree is described by its build order: "first" is its point next to where it was started
+  from, "last" its far end. Merging an earlier subtree E with a later one L then reads the same in
+  both directions: rho = rho_E + rho_L, checked at first_E and last_L; rho_E + p_first_L, checked at
+  first_E and first_L; p_last_E + rho_L, checked at last_E and last_L. When E and L are single
+  points the three sums are the same vector and the three checks the same, so only one is made.
+- Each point keeps (step/2) * gradient, which the next leapfrog step from it in the same direction
+  would compute again; the velocity M^-1 p of a point is computed once, for its kinetic energy, and
+  reused by the U-turn checks; the half-step momentum and the position increment are written into
+  two buffers the metric keeps (Metric.workspace, built once per step size rather than once per
+  transition, since the chain builds a transition per iteration). A diagonal metric of ones
+  multiplies by nothing (x * 1.0 == x exactly).
+- Positions and gradients are checked finite by worker.samplers.hamiltonian.finite (written out
+  here): the answer of worker.samplers.target.all_finite for the price of one dot product.
 """
 
 from __future__ import annotations
@@ -21,42 +43,8 @@ import math
 
 import numpy as np
 
-from worker.samplers.hamiltonian import Metric, State, hamiltonian, leapfrog
-from worker.samplers.target import Target
-
-
-class _Tree:
-    """A contiguous stretch of trajectory: its two ends, momentum sum, weight and chosen sample."""
-
-    __slots__ = (
-        "q_minus", "p_minus", "g_minus", "v_minus",
-        "q_plus", "p_plus", "g_plus", "v_plus",
-        "rho", "log_weight", "sample", "sample_energy",
-        "accept_sum", "steps", "valid", "divergent",
-    )  # fmt: skip
-
-    def __init__(
-        self,
-        q: np.ndarray,
-        p: np.ndarray,
-        g: np.ndarray,
-        v: np.ndarray,
-        log_weight: float,
-        sample: State,
-        energy: float,
-    ):
-        self.q_minus = self.q_plus = q
-        self.p_minus = self.p_plus = p
-        self.g_minus = self.g_plus = g
-        self.v_minus = self.v_plus = v
-        self.rho = p
-        self.log_weight = log_weight
-        self.sample = sample
-        self.sample_energy = energy
-        self.accept_sum = 0.0
-        self.steps = 0
-        self.valid = True
-        self.divergent = False
+from worker.samplers.hamiltonian import Metric, State
+from worker.samplers.target import Target, all_finite
 
 
 def log_add(a: float, b: float) -> float:
@@ -64,31 +52,6 @@ def log_add(a: float, b: float) -> float:
     if a < b:
         a, b = b, a
     return a + math.log1p(math.exp(b - a))
-
-
-def _continues(v_minus: np.ndarray, v_plus: np.ndarray, rho: np.ndarray) -> bool:
-    """The generalized no-U-turn criterion (Betancourt 2017, section A.4.2)."""
-    return bool(v_minus.dot(rho) > 0.0) and bool(v_plus.dot(rho) > 0.0)
-
-
-def _join(left: _Tree, right: _Tree) -> bool:
-    """Store the span of left+right in ``left``'s ends; return True when the joined tree turns.
-
-    Both the whole-tree check and the two checks across the boundary are made here.
-    """
-    rho = left.rho + right.rho
-    turning = not _continues(left.v_minus, right.v_plus, rho)
-    if not turning:
-        rho_left = left.rho + right.p_minus
-        turning = not _continues(left.v_minus, right.v_minus, rho_left)
-    if not turning:
-        rho_right = left.p_plus + right.rho
-        turning = not _continues(left.v_plus, right.v_plus, rho_right)
-    left.q_plus, left.p_plus, left.g_plus, left.v_plus = (
-        right.q_plus, right.p_plus, right.g_plus, right.v_plus,
-    )  # fmt: skip
-    left.rho = rho
-    return turning
 
 
 class NutsTransition:
@@ -107,43 +70,73 @@ class NutsTransition:
         self.step_size = step_size
         self.maximum_tree_depth = maximum_tree_depth
         self.divergence_threshold = divergence_threshold
+        inverse = metric.inverse
+        self._full = inverse if metric.kind == "full" else None
+        self._diagonal = None if metric.kind == "full" or metric.unit else inverse
+        self._workspace = metric.workspace(step_size)
+        # Per level of a subtree: the completed earlier half waiting for its sibling.
+        self._waiting: list[tuple] = [()] * maximum_tree_depth
+
+    def _velocity(self, p: np.ndarray) -> np.ndarray:
+        if self._full is not None:
+            return self._full @ p
+        if self._diagonal is not None:
+            return self._diagonal * p
+        return p
 
     def __call__(self, state: State, rng: np.random.Generator) -> tuple[State, dict[str, float]]:
         metric = self.metric
         p0 = metric.draw_momentum(rng)
-        h0 = hamiltonian(state.log_density, p0, metric)
-        tree = _Tree(state.position, p0, state.gradient, metric.velocity(p0), 0.0, state, h0)
+        v0 = self._velocity(p0)
+        # hamiltonian(state.log_density, p0, metric), reusing the velocity
+        h0 = -state.log_density + 0.5 * float(p0.dot(v0))
+        if not math.isfinite(h0):
+            h0 = math.inf
+        # The two ends of the trajectory: position, momentum, gradient, velocity and the
+        # (step/2) * gradient of a step leaving the trajectory from that end (None until needed).
+        q0, g0 = state.position, state.gradient
+        minus = (q0, p0, g0, v0, None)
+        plus = minus
+        rho = p0
+        log_weight = 0.0
+        sample_q, sample_log_density, sample_g = q0, state.log_density, g0
+        sample_energy = h0
         accept_sum = 0.0
         steps = 0
         depth = 0
         divergent = False
+        eps = self.step_size
         while depth < self.maximum_tree_depth:
             forward = rng.random() < 0.5
-            if forward:
-                new = self._build(tree.q_plus, tree.p_plus, tree.g_plus, 1.0, depth, h0, rng)
-            else:
-                new = self._build(tree.q_minus, tree.p_minus, tree.g_minus, -1.0, depth, h0, rng)
+            step = eps if forward else -eps
+            q, p, g, _, half_g = plus if forward else minus
+            if half_g is None:
+                half_g = (0.5 * step) * g
+            new = self._subtree(q, p, g, half_g, step, depth, h0, rng)
             depth += 1
-            accept_sum += new.accept_sum
-            steps += new.steps
-            if not new.valid:
-                divergent = new.divergent
+            (valid, new_divergent, new_accept, new_steps, new_log_weight, new_q, new_log_density,
+             new_g, new_energy, first_p, first_v, last, new_rho) = new  # fmt: skip
+            accept_sum += new_accept
+            steps += new_steps
+            if not valid:
+                divergent = new_divergent
                 break
             # Biased progressive sampling: move to the new subtree's sample with prob w_new/w_old.
-            if math.log(rng.random()) < new.log_weight - tree.log_weight:
-                tree.sample, tree.sample_energy = new.sample, new.sample_energy
-            tree.log_weight = log_add(tree.log_weight, new.log_weight)
+            if math.log(rng.random()) < new_log_weight - log_weight:
+                sample_q, sample_log_density, sample_g = new_q, new_log_density, new_g
+                sample_energy = new_energy
+            log_weight = log_add(log_weight, new_log_weight)
+            # The trajectory so far is the earlier tree; its end next to the new subtree is the
+            # end the new subtree was started from.
+            near, far = (plus, minus) if forward else (minus, plus)
+            turning, rho = _merge_turns(
+                rho, far[3], near[1], near[3], new_rho, first_p, first_v, last[1], last[3],
+                depth == 1,
+            )  # fmt: skip
             if forward:
-                turning = _join(tree, new)
+                plus = last
             else:
-                turning = _join(new, tree)
-                tree.q_minus, tree.p_minus, tree.g_minus, tree.v_minus = (
-                    new.q_minus, new.p_minus, new.g_minus, new.v_minus,
-                )  # fmt: skip
-                tree.q_plus, tree.p_plus, tree.g_plus, tree.v_plus = (
-                    new.q_plus, new.p_plus, new.g_plus, new.v_plus,
-                )  # fmt: skip
-                tree.rho = new.rho
+                minus = last
             if turning:
                 break
         stats = {
@@ -151,69 +144,160 @@ class NutsTransition:
             "doublings": float(depth),
             "gradient_calls": float(steps),
             "accept_probability": accept_sum / steps,
-            "energy": tree.sample_energy,
+            "energy": sample_energy,
             "divergent": float(divergent),
-            "log_density": tree.sample.log_density,
+            "log_density": sample_log_density,
         }
-        return tree.sample, stats
+        if sample_q is q0:  # the chain stays where it was
+            return state, stats
+        return State(sample_q, sample_log_density, sample_g), stats
 
-    def _build(
+    def _subtree(
         self,
         q: np.ndarray,
         p: np.ndarray,
         g: np.ndarray,
-        direction: float,
+        half_g: np.ndarray,
+        step: float,
         depth: int,
         h0: float,
         rng: np.random.Generator,
-    ) -> _Tree:
-        """A subtree of 2**depth leapfrog steps from the edge (q, p, g), going ``direction``."""
-        if depth == 0:
-            return self._one_step(q, p, g, direction, h0)
-        inner = self._build(q, p, g, direction, depth - 1, h0, rng)
-        if not inner.valid:
-            return inner
-        if direction > 0:
-            outer = self._build(inner.q_plus, inner.p_plus, inner.g_plus, direction, depth - 1,
-                                h0, rng)  # fmt: skip
-        else:
-            outer = self._build(inner.q_minus, inner.p_minus, inner.g_minus, direction,
-                                depth - 1, h0, rng)  # fmt: skip
-        inner.accept_sum += outer.accept_sum
-        inner.steps += outer.steps
-        if not outer.valid:
-            inner.valid = False
-            inner.divergent = outer.divergent
-            return inner
-        total = log_add(inner.log_weight, outer.log_weight)
-        # Uniform progressive sampling within a subtree: each point in proportion to its weight.
-        if math.log(rng.random()) < outer.log_weight - total:
-            inner.sample, inner.sample_energy = outer.sample, outer.sample_energy
-        inner.log_weight = total
-        if direction > 0:
-            inner.valid = not _join(inner, outer)
-            return inner
-        outer.sample, outer.sample_energy = inner.sample, inner.sample_energy
-        outer.log_weight = total
-        outer.accept_sum, outer.steps = inner.accept_sum, inner.steps
-        outer.valid = not _join(outer, inner)
-        return outer
+    ) -> tuple:
+        """A subtree of 2**depth leapfrog steps of signed size ``step`` from the edge (q, p, g).
 
-    def _one_step(
-        self, q: np.ndarray, p: np.ndarray, g: np.ndarray, direction: float, h0: float
-    ) -> _Tree:
-        q1, p1, log_density, g1 = leapfrog(
-            self.target, self.metric, q, p, g, direction * self.step_size
-        )
-        h1 = hamiltonian(log_density, p1, self.metric)
-        error = h1 - h0
-        v1 = self.metric.velocity(p1) if math.isfinite(h1) else np.zeros_like(p1)
-        tree = _Tree(q1, p1, g1, v1, -error, State(q1, log_density, g1), h1)
-        tree.steps = 1
-        if not math.isfinite(error) or error > self.divergence_threshold:
-            tree.valid = False
-            tree.divergent = True
-            tree.accept_sum = 0.0
-        else:
-            tree.accept_sum = 1.0 if error <= 0 else math.exp(-error)
-        return tree
+        Returns (valid, divergent, accept_sum, steps, log_weight, sample position, sample log
+        density, sample gradient, sample energy, first momentum, first velocity, last point as
+        (q, p, g, velocity, (step/2) * gradient), rho).
+        """
+        target = self.target
+        full, diagonal = self._full, self._diagonal
+        space = self._workspace
+        half, move = space.half, space.move
+        threshold = self.divergence_threshold
+        waiting = self._waiting
+        add, multiply, random = np.add, np.multiply, rng.random
+        log, log1p, exp, isfinite, inf = math.log, math.log1p, math.exp, math.isfinite, math.inf
+        steps, half_steps = space.forward if step > 0 else space.backward
+        for k in range(1 << depth):
+            # One leapfrog step (Neal 2011, eq. 5.18-5.20), with its log density, gradient and
+            # energy checked as worker.samplers.target.density_and_gradient and
+            # worker.samplers.hamiltonian.hamiltonian do.
+            add(p, half_g, out=half)
+            if full is not None:
+                np.matmul(full, half, out=move)
+                multiply(steps, move, out=move)
+            elif diagonal is not None:
+                multiply(diagonal, half, out=move)
+                multiply(steps, move, out=move)
+            else:
+                multiply(steps, half, out=move)
+            q = add(q, move)
+            h1 = inf
+            if q.dot(q) < inf or all_finite(q):  # finite(q), written out
+                try:
+                    log_density, g = target.log_density_and_gradient(q)
+                except ArithmeticError:
+                    log_density = -inf
+                else:
+                    log_density = float(log_density)
+                    g = np.asarray(g, dtype=np.float64)
+                if isfinite(log_density) and (g.dot(g) < inf or all_finite(g)):  # finite(g)
+                    half_g = multiply(half_steps, g)
+                    p = add(half, half_g)
+                    if full is not None:
+                        v = full @ p
+                    elif diagonal is not None:
+                        v = multiply(diagonal, p)
+                    else:
+                        v = p
+                    h1 = -log_density + 0.5 * float(p.dot(v))
+                    if not isfinite(h1):
+                        h1 = inf
+            error = h1 - h0
+            if not error <= threshold:  # also when error is NaN or infinite
+                return self._ended(k, depth, 0.0, True, 0)
+            accept = 1.0 if error <= 0 else exp(-error)
+            # The leaf as a one-point subtree; then the merges the recursion makes after it.
+            log_weight = -error
+            sample_q, sample_log_density, sample_g, sample_energy = q, log_density, g, h1
+            first_p, first_v, rho = p, v, p
+            level = 0
+            while (k >> level) & 1:
+                (earlier_accept, earlier_log_weight, earlier_q, earlier_log_density, earlier_g,
+                 earlier_energy, earlier_first_p, earlier_first_v, earlier_last_p, earlier_last_v,
+                 earlier_rho) = waiting[level]  # fmt: skip
+                accept = earlier_accept + accept
+                # log_add(earlier_log_weight, log_weight), written out
+                if earlier_log_weight < log_weight:
+                    total = log_weight + log1p(exp(earlier_log_weight - log_weight))
+                else:
+                    total = earlier_log_weight + log1p(exp(log_weight - earlier_log_weight))
+                # Uniform progressive sampling within a subtree: each point in proportion to its
+                # weight; the later half's sample is kept with probability w_later / w_total.
+                if not log(random()) < log_weight - total:
+                    sample_q, sample_g = earlier_q, earlier_g
+                    sample_log_density, sample_energy = earlier_log_density, earlier_energy
+                log_weight = total
+                # The generalized criterion on the merged tree, then (unless both halves are
+                # single points, where these are the same check) across the boundary.
+                later_rho = rho
+                rho = add(earlier_rho, later_rho)
+                turning = not (earlier_first_v.dot(rho) > 0.0 and v.dot(rho) > 0.0)
+                if not turning and level:
+                    across = add(earlier_rho, first_p)
+                    turning = not (earlier_first_v.dot(across) > 0.0
+                                   and first_v.dot(across) > 0.0)
+                    if not turning:
+                        across = add(earlier_last_p, later_rho)
+                        turning = not (earlier_last_v.dot(across) > 0.0 and v.dot(across) > 0.0)
+                first_p, first_v = earlier_first_p, earlier_first_v
+                level += 1
+                if turning:
+                    return self._ended(k, depth, accept, False, level)
+            if level < depth:
+                waiting[level] = (
+                    accept, log_weight, sample_q, sample_log_density, sample_g, sample_energy,
+                    first_p, first_v, p, v, rho,
+                )  # fmt: skip
+        return (True, False, accept, 1 << depth, log_weight, sample_q, sample_log_density,
+                sample_g, sample_energy, first_p, first_v, (q, p, g, v, half_g), rho)  # fmt: skip
+
+    def _ended(self, k: int, depth: int, accept: float, divergent: bool, level: int) -> tuple:
+        """The invalid subtree when leaf k diverged (level 0) or a merge up to ``level`` turned.
+
+        Its acceptance statistics are summed as the recursion returns: each waiting earlier half
+        above ``level`` that the ended part is the later sibling of adds its own.
+        """
+        for above in range(level, depth):
+            if (k >> above) & 1:
+                accept = self._waiting[above][0] + accept
+        return (False, divergent, accept, k + 1, 0.0, None, 0.0, None, 0.0, None, None, None,
+                None)  # fmt: skip
+
+
+def _merge_turns(
+    earlier_rho: np.ndarray,
+    earlier_first_v: np.ndarray,
+    earlier_last_p: np.ndarray,
+    earlier_last_v: np.ndarray,
+    later_rho: np.ndarray,
+    later_first_p: np.ndarray,
+    later_first_v: np.ndarray,
+    later_last_p: np.ndarray,
+    later_last_v: np.ndarray,
+    single_points: bool,
+) -> tuple[bool, np.ndarray]:
+    """(True when the merged tree turns, its rho): the generalized criterion (Betancourt 2017,
+    section A.4.2) on the whole tree, then on the two trees straddling the boundary."""
+    rho = earlier_rho + later_rho
+    if not (earlier_first_v.dot(rho) > 0.0 and later_last_v.dot(rho) > 0.0):
+        return True, rho
+    if single_points:
+        return False, rho
+    across = earlier_rho + later_first_p
+    if not (earlier_first_v.dot(across) > 0.0 and later_first_v.dot(across) > 0.0):
+        return True, rho
+    across = earlier_last_p + later_rho
+    if not (earlier_last_v.dot(across) > 0.0 and later_last_v.dot(across) > 0.0):
+        return True, rho
+    return False, rho

@@ -43,6 +43,7 @@ _CLASSES: list[type[Distribution]] = [
     multivariate.Dirichlet,
     multivariate.MultivariateNormal,
     multivariate.LkjCorrelationFactor,
+    multivariate.WishartFactor,
     discrete.BernoulliProbability,
     discrete.BernoulliLogOdds,
     discrete.PoissonRate,

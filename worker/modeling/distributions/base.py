@@ -36,6 +36,7 @@ VARIATE_PHRASES: dict[str, str] = {
     "simplex": "non-negative vectors summing to 1",
     "counts_summing_to_trials": "vectors of non-negative integers summing to the argument 'trials'",
     "correlation_factor": "Cholesky factors of correlation matrices",
+    "covariance_factor": "lower-triangular matrices with a positive diagonal (Cholesky factors)",
 }
 
 # Tolerance for structural equalities of floating-point variates (sums to one, unit-norm rows).
@@ -194,6 +195,8 @@ class Distribution:
                 ok = np.all(integral & (v >= 0), axis=-1) & (np.sum(v, axis=-1) == args["trials"])
             elif kind == "correlation_factor":
                 ok = correlation_factor_valid(v)
+            elif kind == "covariance_factor":
+                ok = covariance_factor_valid(v)
             else:
                 raise ValueError(f"unknown variate kind {kind!r}")
         return np.asarray(ok)
@@ -239,6 +242,16 @@ def correlation_factor_valid(v: Array) -> Array:
         np.abs(np.sum(v * v, axis=-1) - 1.0) <= STRUCTURE_TOLERANCE * v.shape[-1], axis=-1
     )
     return upper_zero & diagonal & unit_rows
+
+
+def covariance_factor_valid(v: Array) -> Array:
+    """Per matrix: square, finite, lower triangular, positive diagonal."""
+    if v.ndim < 2 or v.shape[-1] != v.shape[-2]:
+        return np.zeros(v.shape[:-2] if v.ndim >= 2 else (), dtype=bool)
+    finite = np.all(np.isfinite(v), axis=(-2, -1))
+    upper_zero = np.all(np.triu(v, 1) == 0, axis=(-2, -1))
+    diagonal = np.all(np.diagonal(v, axis1=-2, axis2=-1) > 0, axis=-1)
+    return finite & upper_zero & diagonal
 
 
 def positive(*arrays: Array) -> bool:

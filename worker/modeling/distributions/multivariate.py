@@ -1,4 +1,5 @@
-"""Distributions on vectors and matrices: Dirichlet, multivariate normal, LKJ (Cholesky form)."""
+"""Distributions on vectors and matrices: Dirichlet, multivariate normal, LKJ (Cholesky form),
+Wishart (Cholesky form)."""
 
 from __future__ import annotations
 
@@ -8,7 +9,14 @@ from scipy.special import betaln, digamma, gammaln, xlogy
 
 from ..special import LOG_2, LOG_2PI, softmax, sum_last
 from ..transforms import cholesky_from_partial_correlations
-from .base import STRUCTURE_TOLERANCE, Array, Distribution, Summed, correlation_factor_valid
+from .base import (
+    STRUCTURE_TOLERANCE,
+    Array,
+    Distribution,
+    Summed,
+    correlation_factor_valid,
+    covariance_factor_valid,
+)
 
 Pointwise = tuple[Array, dict[str, Array], Array | None]
 
@@ -171,3 +179,103 @@ class LkjCorrelationFactor(Distribution):
 
     def _default_shape(self, values):
         raise ValueError("lkj_correlation_factor draws need an explicit shape [..., K, K]")
+
+
+LOG_PI = float(np.log(np.pi))
+
+
+class WishartFactor(Distribution):
+    """Wishart(nu, S) on W = L L^T, as a density on its Cholesky factor L (lower triangular,
+    positive diagonal) with respect to the K(K+1)/2 entries on and below the diagonal.
+
+    The scale is given by its own Cholesky factor C (S = C C^T; entries above the diagonal are not
+    read). With W's density |W|^((nu-K-1)/2) exp(-tr(S^-1 W)/2) / (2^(nu K/2) |S|^(nu/2)
+    Gamma_K(nu/2)) (Muirhead 1982, Aspects of Multivariate Statistical Theory, Definition 3.2.1,
+    from memory; checked against scipy.stats.wishart in tests/modeling/test_wishart_factor.py) and
+    the Jacobian of L -> W = L L^T, |dW/dL| = 2^K prod_j L_jj^(K-j+1) (docs/distributions-wishart.md
+    derives it; Muirhead 1982, Theorem 2.1.9), for 1-based j:
+
+        log p(L) = sum_j (nu - j) log L_jj - ||C^-1 L||_F^2 / 2 - nu sum_j log C_jj
+                   - (nu K/2 - K) log 2 - log Gamma_K(nu/2),
+
+    since tr(S^-1 L L^T) = ||C^-1 L||_F^2 and the powers of L_jj from |W| and the Jacobian add up
+    to nu - j. Needs nu > K - 1.
+    """
+
+    name = "wishart_factor"
+    arguments = ("degrees_of_freedom", "scale_cholesky")
+    variate_kind = "covariance_factor"
+    event_ndim = 2
+    argument_support = {"degrees_of_freedom": "positive", "scale_cholesky": "cholesky_factor"}
+    argument_event_ndim = {"scale_cholesky": 2}
+
+    def _log_density_and_pointwise(self, x, degrees_of_freedom, scale_cholesky, wrt) -> Pointwise:
+        k = x.shape[-1]
+        nu = np.asarray(degrees_of_freedom, dtype=float)
+        chol = np.tril(scale_cholesky)
+        factor = np.tril(x)
+        diagonal = np.diagonal(x, axis1=-2, axis2=-1)
+        scale_diagonal = np.diagonal(chol, axis1=-2, axis2=-1)
+        usable = scale_diagonal > 0
+        if not np.all(usable):
+            # a factor with a zero on its diagonal is singular; those elements are out of
+            # support and masked below, so solve with a harmless diagonal instead of failing
+            chol = chol.copy()
+            index = np.arange(k)
+            chol[..., index, index] = np.where(usable, scale_diagonal, 1.0)
+        z = np.linalg.solve(chol, factor)  # C^-1 L, lower triangular
+        j = np.arange(1, k + 1, dtype=float)
+        half_nu = 0.5 * nu
+        # log Gamma_K(a) = K(K-1)/4 log pi + sum_j log Gamma(a + (1 - j)/2)
+        shifted = half_nu[..., None] + 0.5 * (1.0 - j)
+        log_multigamma = 0.25 * k * (k - 1) * LOG_PI + np.sum(gammaln(shifted), axis=-1)
+        log_diagonal = np.log(diagonal)
+        log_scale_diagonal = np.sum(np.log(scale_diagonal), axis=-1)
+        val = (
+            np.sum((nu[..., None] - j) * log_diagonal, axis=-1)
+            - 0.5 * np.sum(z * z, axis=(-2, -1))
+            - nu * log_scale_diagonal
+            - (half_nu * k - k) * LOG_2
+            - log_multigamma
+        )
+        grads: dict[str, Array] = {}
+        if "x" in wrt or "scale_cholesky" in wrt:
+            u = np.linalg.solve(np.swapaxes(chol, -1, -2), z)  # C^-T C^-1 L
+            eye = np.eye(k)
+            if "x" in wrt:
+                grads["x"] = ((nu[..., None] - j) / diagonal)[..., None] * eye - np.tril(u)
+            if "scale_cholesky" in wrt:
+                # d(-||C^-1 L||^2 / 2)/dC = C^-T (C^-1 L)(C^-1 L)^T, kept on and below the diagonal
+                grads["scale_cholesky"] = (
+                    np.tril(u @ np.swapaxes(z, -1, -2))
+                    - (nu[..., None] / scale_diagonal)[..., None] * eye
+                )
+        if "degrees_of_freedom" in wrt:
+            grads["degrees_of_freedom"] = (
+                np.sum(log_diagonal, axis=-1) - log_scale_diagonal - 0.5 * k * LOG_2
+                - 0.5 * np.sum(digamma(shifted), axis=-1)
+            )
+        bad = (
+            ~(nu > k - 1)
+            | ~covariance_factor_valid(x)
+            | ~np.all(usable, axis=-1)
+        )
+        if np.shape(bad) != val.shape:
+            bad = np.broadcast_to(bad, val.shape)
+        return val, grads, bad if bad.any() else None
+
+    def _sample(self, rng, shape, degrees_of_freedom, scale_cholesky):
+        # Bartlett (1933): L = C A with A lower triangular, A_jj^2 ~ chi-square(nu - j + 1) for
+        # 1-based j and N(0, 1) entries below the diagonal, all independent; C A is lower
+        # triangular with a positive diagonal, so it is the Cholesky factor of W = C A A^T C^T
+        k = shape[-1]
+        batch = tuple(shape[:-2])
+        nu = np.broadcast_to(np.asarray(degrees_of_freedom)[..., None], batch + (1,))
+        a = np.tril(rng.standard_normal(tuple(shape)), -1)
+        index = np.arange(k)
+        a[..., index, index] = np.sqrt(rng.chisquare(nu - index, batch + (k,)))
+        return np.tril(scale_cholesky) @ a
+
+    def _default_shape(self, values):
+        nu, chol = values
+        return np.broadcast_shapes(nu.shape, chol.shape[:-2]) + chol.shape[-2:]
