@@ -149,7 +149,7 @@ class SummedTerms:
             for name in wrt:
                 a = np.asarray(x if name == "x" else args[name], dtype=float)
                 ndim = d.event_ndim if name == "x" else d.argument_event_ndim.get(name, 0)
-                full = np.array(np.broadcast_to(a, self.shape + a.shape[a.ndim - ndim:]))
+                full = np.array(np.broadcast_to(a, self.shape + a.shape[a.ndim - ndim:]), order="C")
                 if name == "x":
                     x = full
                 else:
