@@ -46,13 +46,8 @@ def job_evidence(runtime: Runtime, job: Job, chains: list[Chain]) -> Evidence:
         raise ApiProblem(422, "not-posterior-draws", "The draws are not posterior draws",
                          unusable + ".", [{"pointer": "/sampler/method", "message": unusable}])
     body = _body(runtime, job.id)
-    problems = improper_prior_problems(body["model"])
-    if problems:
-        raise ApiProblem(422, "improper-prior", "The prior is not proper",
-                         f"Job {job.id}'s prior does not integrate to one, so its marginal "
-                         "likelihood is not defined; nothing was computed.", problems)
-    model = compile_model(body["model"], body["data"])
-    if model.discrete_size:
+    if any(isinstance(d, dict) and d.get("type") == "integer"
+           for d in (body["model"].get("unknowns") or {}).values()):
         # Bridge sampling fits a normal proposal to the continuous unknowns; over integer ones it
         # would need a sum over their values, which it does not do (docs/discrete-unknowns.md).
         message = ("bridge sampling estimates the marginal likelihood of continuous unknowns "
@@ -60,6 +55,12 @@ def job_evidence(runtime: Runtime, job: Job, chains: list[Chain]) -> Evidence:
         raise ApiProblem(422, "integer-unknowns", "The model has integer unknowns",
                          f"Job {job.id}: {message}; nothing was computed.",
                          [{"pointer": "/model/unknowns", "message": message}])
+    problems = improper_prior_problems(body["model"])
+    if problems:
+        raise ApiProblem(422, "improper-prior", "The prior is not proper",
+                         f"Job {job.id}'s prior does not integrate to one, so its marginal "
+                         "likelihood is not defined; nothing was computed.", problems)
+    model = compile_model(body["model"], body["data"])
     load = draw_loader(runtime, chains)
     width = len(model.unknown_names)
     draws = np.stack([model.unconstrain_draws(load(chain.chain_index)[:, :width])
