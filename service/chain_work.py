@@ -10,6 +10,7 @@ callbacks never wait on the database.
 
 from __future__ import annotations
 
+import hashlib
 import logging
 import os
 import socket
@@ -28,7 +29,15 @@ from service.dispatch import send_finish_task
 from service.runtime import Runtime
 from service.store.arrays import ENCODING, encode_array
 from service.store.engine import transaction
-from service.store.models import TERMINAL_STATES, Chain, ChainArray, Job, utc_now
+from service.store.large_values import write_chain_array_data
+from service.store.models import (
+    TERMINAL_STATES,
+    Chain,
+    ChainArray,
+    CheckpointBlock,
+    Job,
+    utc_now,
+)
 from service.versions import software_versions
 
 log = logging.getLogger(__name__)
@@ -45,6 +54,8 @@ class Lease:
     body: dict[str, Any]
     # the spec's and the data's fingerprints from submission: the compiled model's cache key
     model_key: str | None = None
+    # the records blocks of an incremental checkpoint, in order (none for a version-1 snapshot)
+    blocks: list[bytes] = field(default_factory=list)
 
 
 def take_lease(
@@ -115,7 +126,10 @@ def take_lease(
                 )
             return None
         detail = {"attempt": chain.attempts, "worker_host": host, "worker_pid": pid}
-        if chain.checkpoint is not None:
+        checkpoint, blocks = chain.checkpoint, _checkpoint_blocks(session, chain.id)
+        if blocks is None:  # a corrupt block: start over, which gives the same draws
+            checkpoint, blocks = None, []
+        if checkpoint is not None:
             detail["resumed_from_iteration"] = chain.checkpoint_iteration
         events.record(session, job_id, "chain_state", "running", chain_index, detail)
         started = session.execute(
@@ -127,11 +141,27 @@ def take_lease(
         if started == 1:
             events.record(session, job_id, "job_state", "running")
         return Lease(
-            chain.id, job_id, chain_index, token, chain.attempts, chain.checkpoint, job.body,
+            chain.id, job_id, chain_index, token, chain.attempts, checkpoint, job.body,
             # the reparametrisation setting changes the compiled model's coordinates
             f"{job.spec_sha256}:{job.data_sha256}:"
             f"{(job.body.get('sampler') or {}).get('reparametrise', True)}",
+            blocks,
         )
+
+
+def _checkpoint_blocks(session: Any, chain_id: int) -> list[bytes] | None:
+    """The chain's stored records blocks in order, each checked against its SHA-256; None when
+    one is corrupt."""
+    rows = session.execute(
+        select(CheckpointBlock.data, CheckpointBlock.sha256)
+        .where(CheckpointBlock.chain_id == chain_id)
+        .order_by(CheckpointBlock.start_iteration)
+    ).all()
+    blocks = [bytes(row.data) for row in rows]
+    if any(hashlib.sha256(b).hexdigest() != r.sha256 for b, r in zip(blocks, rows, strict=True)):
+        log.warning("a checkpoint block of chain row %s is corrupt; it starts over", chain_id)
+        return None
+    return blocks
 
 
 def _cancel_queued_chain(session: Any, job_id: str, chain_index: int) -> None:
@@ -158,13 +188,18 @@ class ChainMonitor:
     divergences: int = 0
     warmup_divergences: int | None = None
     stop_reason: str | None = None
-    _checkpoint: tuple[bytes, int] | None = None
+    # Incremental checkpoints not yet written: the newest state, and every records block since
+    # the last write (all must reach the store, in order, with that state).
+    _state: tuple[bytes, int] | None = None
+    _blocks: list[Any] = field(default_factory=list)
+    _pending_lock: threading.Lock = field(default_factory=threading.Lock)
     _written_checkpoint_iteration: int = -1
     _stop_flag: threading.Event = field(default_factory=threading.Event)
     _closing: threading.Event = field(default_factory=threading.Event)
     _thread: threading.Thread | None = None
     _started: float = field(default_factory=time.monotonic)
-    # The running chain's snapshot(), for checkpoints by time as well as by iterations.
+    # The running chain's incremental_checkpoint(), for checkpoints by time as well as by
+    # iterations.
     snapshot_source: Any = None
     _last_checkpoint: float = field(default_factory=time.monotonic)
 
@@ -194,8 +229,11 @@ class ChainMonitor:
     def should_stop(self) -> bool:
         return self._stop_flag.is_set()
 
-    def checkpoint(self, blob: bytes) -> None:
-        self._checkpoint = (bytes(blob), self.iteration)
+    def checkpoint(self, checkpoint: Any) -> None:
+        """Keep an engine Checkpoint (worker.samplers.chain) for the writer thread."""
+        with self._pending_lock:
+            self._blocks.append(checkpoint)
+            self._state = (checkpoint.state, int(checkpoint.iteration))
         self._last_checkpoint = time.monotonic()
 
     # --- the writer thread ---------------------------------------------------------------------
@@ -232,27 +270,59 @@ class ChainMonitor:
             "updated_at": now,
             "lease_expires_at": now + timedelta(seconds=settings.lease_seconds),
         }
-        pending = self._checkpoint
+        with self._pending_lock:
+            pending, blocks = self._state, list(self._blocks)
         if pending is not None and pending[1] != self._written_checkpoint_iteration:
             values.update(checkpoint=pending[0], checkpoint_iteration=pending[1], checkpoint_at=now)
+        else:
+            pending = None
         with transaction(self.runtime.sessions) as session:
+            # The fenced UPDATE comes first and the blocks only if it held: a worker that lost its
+            # lease appends nothing, and the lease cannot change hands until this commits (the
+            # taker's UPDATE of the same row waits for it, then sees the renewed lease).
             held = session.execute(
                 update(Chain)
                 .where(Chain.id == self.lease.chain_id, Chain.lease_token == self.lease.token)
                 .values(**values)
                 .execution_options(synchronize_session=False)
             ).rowcount
+            if held and pending is not None and blocks:
+                _append_blocks(session, self.lease.chain_id, blocks)
             cancelled = session.scalar(
                 select(Job.cancel_requested_at).where(Job.id == self.lease.job_id)
             )
         if pending is not None and held:
             self._written_checkpoint_iteration = pending[1]
+            with self._pending_lock:
+                del self._blocks[: len(blocks)]
         if not held:
             self._stop("lease_lost")
         elif cancelled is not None:
             self._stop("cancelled")
         elif time.monotonic() - self._started > settings.chain_time_limit:
             self._stop("time_limit")
+
+
+def _append_blocks(session: Any, chain_id: int, blocks: list[Any]) -> None:
+    """Store records blocks that continue the chain's stored ones. Blocks from their first
+    iteration on are replaced: what a chain that started over (its checkpoint unusable) or a
+    written-off earlier holder left there no longer fits this run's state."""
+    session.execute(
+        delete(CheckpointBlock).where(
+            CheckpointBlock.chain_id == chain_id,
+            CheckpointBlock.start_iteration >= blocks[0].start,
+        )
+    )
+    session.add_all(
+        CheckpointBlock(
+            chain_id=chain_id,
+            start_iteration=int(block.start),
+            stop_iteration=int(block.iteration),
+            sha256=hashlib.sha256(block.records).hexdigest(),
+            data=block.records,
+        )
+        for block in blocks
+    )
 
 
 @dataclass(frozen=True)
@@ -299,14 +369,7 @@ def run_chain(
         from worker.runner import compile_body
 
         model = runtime.models.borrow(lease.model_key, lambda: compile_body(lease.body))
-        chain_run = _start_or_resume(lease, model)
-        monitor.snapshot_source = chain_run.snapshot
-        result = chain_run.run(
-            progress=monitor.progress,
-            should_stop=monitor.should_stop,
-            checkpoint=monitor.checkpoint,
-            checkpoint_every=runtime.settings.checkpoint_every,
-        )
+        result = _run(runtime, lease, model, monitor)
     except Exception as error:
         monitor.close()
         runtime.models.give_back(lease.model_key, model)
@@ -338,6 +401,25 @@ def run_chain(
     return ChainOutcome(outcome if ended else "lease lost")
 
 
+def _run(runtime: Runtime, lease: Lease, model: Any, monitor: ChainMonitor) -> Any:
+    """The chain's result. Only the result leaves: the chain itself, whose unconstrained draws are
+    as large as the reported ones, is garbage before the result is encoded and stored."""
+    chain_run = _start_or_resume(lease, model)
+    if chain_run.snapshot is None:  # an approximation run restarts; it takes no checkpoints
+        return chain_run.run(progress=monitor.progress, should_stop=monitor.should_stop)
+    monitor.snapshot_source = chain_run.incremental_checkpoint
+    try:
+        return chain_run.run(
+            progress=monitor.progress,
+            should_stop=monitor.should_stop,
+            checkpoint=monitor.checkpoint,
+            checkpoint_every=runtime.settings.checkpoint_every,
+            incremental=True,
+        )
+    finally:
+        monitor.snapshot_source = None
+
+
 def _start_or_resume(lease: Lease, model: Any = None) -> Any:
     """The chain from its checkpoint, or from the start when the checkpoint cannot be used.
 
@@ -347,8 +429,11 @@ def _start_or_resume(lease: Lease, model: Any = None) -> Any:
     from worker import runner
 
     if lease.checkpoint is not None:
+        blocks, lease.blocks = lease.blocks, []  # let them go once the chain holds their records
         try:
-            return runner.resume_chain(lease.body, lease.chain_index, lease.checkpoint, model)
+            return runner.resume_chain(
+                lease.body, lease.chain_index, lease.checkpoint, model, blocks
+            )
         except Exception as error:  # any unreadable or mismatched snapshot: start over
             log.warning(
                 "checkpoint of chain %s of job %s unusable (%s); starting it over",
@@ -452,9 +537,12 @@ def store_result(
     """Store a chain's draws and statistics, only while this delivery holds the lease.
 
     ``stopped`` is set for a chain its wall-time limit stopped: its draws so far are stored the
-    same way and the chain ends ``timed_out`` at the iteration it reached.
+    same way and the chain ends ``timed_out`` at the iteration it reached. The result's draws are
+    let go once encoded (``values`` keeps their width, no rows): a long chain's draws, their
+    compressed form and the database driver's copy of that are then never held all at once.
     """
     draws = encode_array(np.asarray(result.values, dtype=np.float64))
+    result.values = np.empty((0, *np.shape(result.values)[1:]))  # not a view: that would keep them
     stats = {name: encode_array(np.asarray(v)) for name, v in dict(result.stats).items()}
     now = utc_now()
     state = "succeeded" if stopped is None else "timed_out"
@@ -497,12 +585,13 @@ def store_result(
         if not done:
             return False
         started_at = session.scalar(select(Chain.started_at).where(Chain.id == lease.chain_id))
+        session.execute(delete(CheckpointBlock).where(CheckpointBlock.chain_id == lease.chain_id))
         session.execute(delete(ChainArray).where(ChainArray.chain_id == lease.chain_id))
         integers = getattr(result, "integer_names", frozenset())
         types = ["int64" if name in integers else "float64" for name in result.names]
         rows = [("draws", "draws", draws, list(result.names))]
         rows += [("stat", name, encoded, None) for name, encoded in stats.items()]
-        session.add_all(
+        stored = [
             ChainArray(
                 chain_id=lease.chain_id,
                 kind=kind,
@@ -513,10 +602,14 @@ def store_result(
                 dtype=encoded.dtype,
                 shape=encoded.shape,
                 sha256=encoded.sha256,
-                data=encoded.data,
+                # the draws go in pieces once the row exists (service/store/large_values.py)
+                data=b"" if kind == "draws" else encoded.data,
             )
             for kind, name, encoded, columns in rows
-        )
+        ]
+        session.add_all(stored)
+        session.flush()
+        write_chain_array_data(session, stored[0].id, draws.data)
         events.record(
             session,
             lease.job_id,

@@ -17,6 +17,7 @@ from service.runtime import Runtime
 from service.store.arrays import decode_array
 from service.store.engine import transaction
 from service.store.models import TERMINAL_STATES, Chain, ChainArray, Job, utc_now
+from service.stored_draws import StoredDraws
 from service.versions import software_versions
 
 log = logging.getLogger(__name__)
@@ -25,17 +26,27 @@ log = logging.getLogger(__name__)
 def load_chain_result(
     runtime: Runtime, chain_id: int, adapted: dict | None, evaluations: Any = None
 ) -> Any:
-    """A stored chain as the engine's ChainResult (checksums verified on the way out);
-    ``evaluations`` the chain row's counts of model evaluations (service/evaluation_counts.py)."""
+    """A stored chain as the engine's ChainResult without its draws: its statistics (checksums
+    verified on the way out), names, adapted settings and ``evaluations`` (the chain row's counts,
+    service/evaluation_counts.py). ``values`` is an empty (draws, 0) array that gives the number of
+    draws: the draws themselves are read a quantity at a time (service/stored_draws.py)."""
     from worker.runner import ChainResult
 
     with runtime.sessions() as session:
-        rows = session.scalars(select(ChainArray).where(ChainArray.chain_id == chain_id)).all()
-    draws = next(row for row in rows if row.kind == "draws")
-    stats = {row.name: decode_array(row.data, row.sha256) for row in rows if row.kind == "stat"}
+        stats = {
+            row.name: decode_array(row.data, row.sha256)
+            for row in session.scalars(
+                select(ChainArray).where(ChainArray.chain_id == chain_id, ChainArray.kind == "stat")
+            )
+        }
+        draws = session.execute(
+            select(ChainArray.columns, ChainArray.shape).where(
+                ChainArray.chain_id == chain_id, ChainArray.kind == "draws"
+            )
+        ).one()
     return ChainResult(
         names=list(draws.columns or []),
-        values=decode_array(draws.data, draws.sha256),
+        values=np.empty((int(draws.shape[0]), 0)),
         stats=stats,
         adapted=adapted or {},
         completed=True,
@@ -44,22 +55,16 @@ def load_chain_result(
 
 
 def load_chain_results(runtime: Runtime, chains: list[Chain], with_counts: bool) -> list[Any]:
-    """Every chain's ChainResult, their draws copied as they are decoded into one
-    (chains, draws, quantities) array: the job's draws are held once (plus one chain's decoded
-    copy at a time), and the engine pools them without stacking a second copy."""
-    results: list[Any] = []
-    pooled: np.ndarray | None = None
-    for position, chain in enumerate(chains):
-        counts = evaluation_counts.engine_counts(chain) if with_counts else None
-        result = load_chain_result(runtime, chain.id, chain.adapted, counts)
-        values = np.asarray(result.values, dtype=np.float64)
-        if position == 0:
-            pooled = np.empty((len(chains), *values.shape))
-        if pooled is not None and values.shape == pooled.shape[1:]:
-            pooled[position] = values
-            result.values = pooled[position]
-        results.append(result)
-    return results
+    """Every chain's ChainResult as ``load_chain_result`` gives it."""
+    return [
+        load_chain_result(
+            runtime,
+            chain.id,
+            chain.adapted,
+            evaluation_counts.engine_counts(chain) if with_counts else None,
+        )
+        for chain in chains
+    ]
 
 
 def _close(runtime: Runtime, job_id: str, state: str, **values: Any) -> bool:
@@ -111,7 +116,8 @@ def finish(runtime: Runtime, job_id: str) -> str:
         return _finish_partial(runtime, job, chains)
     try:
         results = load_chain_results(runtime, chains, with_counts=True)
-        outcome = runner.finish_job(job.body, results)
+        with StoredDraws(runtime, [chain.id for chain in chains]) as draws:
+            outcome = runner.finish_job(job.body, results, draws)
     except Exception as error:
         log.exception("finishing job %s failed", job_id)
         _close(runtime, job_id, "failed", error=f"{type(error).__name__}: {error}")
@@ -131,7 +137,7 @@ def finish(runtime: Runtime, job_id: str) -> str:
 def _finish_partial(runtime: Runtime, job: Job, chains: list[Chain]) -> str:
     """Close a job a chain of which hit its wall-time limit: ``timed_out``, with what it drew."""
     try:
-        results = [load_chain_result(runtime, c.id, c.adapted) for c in chains]
+        results = load_chain_results(runtime, chains, with_counts=False)
         closing = summarise_partial(runtime, job, chains, results)
     except Exception as error:
         log.exception("finishing timed-out job %s failed", job.id)

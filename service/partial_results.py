@@ -16,6 +16,7 @@ from sqlalchemy import select
 
 from service.runtime import Runtime
 from service.store.models import Chain, Event, Job
+from service.stored_draws import StoredDraws
 from worker.diagnostics.splitting import MIN_DRAWS_PER_CHAIN
 
 WALL_TIME_CHECK = "wall_time_limit"
@@ -131,7 +132,8 @@ def summarise_partial(
             "verdict": verdict,
             "error": _reason(limit, lengths, None),
         }
-    outcome = runner.finish_job(job.body, [_truncated(r, summarised) for r in results])
+    with StoredDraws(runtime, [c.id for c in chains], summarised) as draws:
+        outcome = runner.finish_job(job.body, [_truncated(r, summarised) for r in results], draws)
     verdict = dict(outcome["verdict"])
     verdict["failed_checks"] = [check, *verdict.get("failed_checks", [])]
     verdict["passed"] = False

@@ -11,7 +11,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import secrets
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -30,10 +30,10 @@ from worker.diagnostics.discrete import (
     pattern_table,
     value_tables,
 )
-from worker.diagnostics.summary import DEFAULT_INTERVAL, interval_problem
+from worker.diagnostics.summary import DEFAULT_INTERVAL, QuantityDraws, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
-from worker.samplers import Chain, EvaluationCounts, SamplerSettings
-from worker.samplers.chain import sampling_sequence
+from worker.samplers import Chain, EvaluationCounts, SamplerSettings, SnapshotError
+from worker.samplers.chain import Checkpoint, sampling_sequence
 from worker.samplers.compound import integer_chain, restore_integer_chain
 from worker.samplers.settings import INITIALISATIONS, METHODS, PRECONDITIONINGS
 from worker.samplers.target import CountedTarget
@@ -385,16 +385,35 @@ def pattern_problems(body: dict) -> list[Problem]:
 
 
 def discrete_summary(
-    body: dict, draws: np.ndarray, names: list[str], summary: list[dict], integers: Any
+    body: dict,
+    draws: np.ndarray | QuantityDraws,
+    names: list[str],
+    summary: list[dict],
+    integers: Any,
 ) -> list[dict]:
     """Adds each integer-valued quantity's value probabilities to its summary record (member
     ``discrete``; None for the others) and returns the joint-pattern tables the body's
-    ``summary.patterns`` asks for (worker/diagnostics/discrete.py)."""
-    tables = value_tables(draws, names, integers)
+    ``summary.patterns`` asks for (worker/diagnostics/discrete.py). Draws read a quantity at a
+    time give the same tables (each is computed per quantity, or per pattern's elements)."""
+    wanted = (body.get("summary") or {}).get("patterns") or []
+    if isinstance(draws, np.ndarray):
+        tables = value_tables(draws, names, integers)
+        patterns = [pattern_table(draws, name, names) for name in wanted]
+    else:
+        tables = {}
+        for j, name in enumerate(names):
+            if name in integers:
+                tables.update(value_tables(draws.quantity(j)[:, :, None], [name], {name}))
+        patterns = []
+        for name in wanted:
+            members = flat_members(name, names)
+            if not members:  # as pattern_table says it
+                raise ValueError(f"no quantity named {name!r}")
+            elements = np.stack([draws.quantity(c) for c in members], axis=2)
+            patterns.append(pattern_table(elements, name, [names[c] for c in members]))
     for record in summary:
         record["discrete"] = tables.get(record["name"])
-    wanted = (body.get("summary") or {}).get("patterns") or []
-    return [pattern_table(draws, name, names) for name in wanted]
+    return patterns
 
 
 def summary_interval(body: dict) -> float:
@@ -501,15 +520,21 @@ class ChainRun:
         self,
         progress: ProgressCallback | None = None,
         should_stop: Callable[[], bool] | None = None,
-        checkpoint: Callable[[bytes], None] | None = None,
+        checkpoint: Callable[[bytes], None] | Callable[[Checkpoint], None] | None = None,
         checkpoint_every: int = 100,
+        incremental: bool = False,
     ) -> ChainResult:
-        """Run the chain to its end (or until ``should_stop()``), then report its draws."""
+        """Run the chain to its end (or until ``should_stop()``), then report its draws.
+
+        With ``incremental`` the checkpoints are ``Checkpoint``s (new records and state apart;
+        ``resume_chain`` takes the state and every records block), else snapshot bytes.
+        """
         output = self.chain.run(
             progress=progress,
             should_stop=should_stop,
             checkpoint=checkpoint,
             checkpoint_every=checkpoint_every,
+            incremental=incremental,
         )
         return ChainResult(
             names=list(self.model.quantity_names),
@@ -531,14 +556,21 @@ class ChainRun:
         rng = np.random.default_rng(sampling_sequence(self.seed, GENERATED_CHILD))
         width = len(self.model.quantity_names)
         rows = np.empty((draws.shape[0], width), dtype=np.float64)
-        # the compiled model reports one draw at a time (per-draw outputs are random per draw)
+        # The compiled model reports one draw at a time (per-draw outputs are random per draw).
+        # It gets a copy of each row, not a view: a model keeps its last input in its value
+        # slots, and a view would keep the whole draws matrix alive in the worker's model cache.
         for i, u in enumerate(draws):
-            rows[i] = self.model.report(u, rng)
+            rows[i] = self.model.report(u.copy(), rng)
         return rows
 
     def snapshot(self) -> bytes:
         """The chain's complete state; ``resume_chain`` continues from it exactly."""
         return self.chain.snapshot()
+
+    def incremental_checkpoint(self) -> Checkpoint:
+        """The records since the previous incremental checkpoint and the state apart (between
+        iterations, as the chain's own checkpoints; see worker.samplers.chain.Checkpoint)."""
+        return self.chain.incremental_checkpoint()
 
 
 def compile_body(body: dict) -> Any:
@@ -590,17 +622,23 @@ def _require_warm_records(body: dict, model: Any = None) -> None:
         raise InvalidSubmission(problems)
 
 
-def resume_chain(body: dict, chain_index: int, blob: bytes, model: Any = None) -> ChainRun:
+def resume_chain(
+    body: dict, chain_index: int, blob: bytes, model: Any = None, blocks: Sequence[bytes] = ()
+) -> ChainRun:
     """Continue chain ``chain_index`` from a snapshot taken by ``ChainRun.snapshot`` or a
-    checkpoint; refuses a snapshot made with other settings than the body's. ``model`` as for
-    ``start_chain``."""
+    checkpoint (an incremental one's state with its records ``blocks`` in order); refuses a
+    snapshot made with other settings than the body's. ``model`` as for ``start_chain``."""
     resolved = _resolved_with_seed(body)
     model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
     if model.discrete_size:
+        # integer chains' snapshots hold every record (worker/samplers/compound.py); records
+        # blocks of incremental checkpoints are not theirs yet
+        if blocks:
+            raise SnapshotError("a chain with integer unknowns resumes from a whole snapshot")
         chain: Chain = restore_integer_chain(model, blob)
     else:
-        chain = Chain.restore(model, blob)
+        chain = Chain.restore(model, blob, blocks)
     if chain.settings != _chain_settings(resolved):
         raise ValueError("the snapshot was made with different sampler settings than this job's")
     return ChainRun(model, chain, seed)
@@ -625,23 +663,30 @@ def pooled_draws(results: list[ChainResult]) -> np.ndarray:
     return np.stack([np.asarray(r.values, dtype=np.float64) for r in results])
 
 
-def finish_job(body: dict, results: list[ChainResult]) -> dict:
+def finish_job(
+    body: dict, results: list[ChainResult], draws: QuantityDraws | None = None
+) -> dict:
     """Summary, sampler report and verdict of a job's completed chains, all JSON-able.
 
     Returns ``{"summary": [per-quantity records], "sampler": report, "verdict": verdict,
     "patterns": [joint-pattern tables of summary.patterns]}``; the sampler report adds each
     chain's adapted step size and its evaluations of the model (with gradient, and of the log
-    density alone, by phase) to ``sampler_checks``' counts.
+    density alone, by phase) to ``sampler_checks``' counts. ``draws``, when given, are the
+    chains' draws read a quantity at a time (the service streams them from its store); the
+    results' ``values`` are then not read.
     """
     if not results:
         raise ValueError("a job needs at least one chain to finish")
     if not all(r.completed for r in results):
         raise ValueError("every chain must be complete before the job is summarised")
-    lengths = {np.asarray(r.values).shape for r in results}
-    if len(lengths) != 1:
-        raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
+    if draws is None:
+        lengths = {np.asarray(r.values).shape for r in results}
+        if len(lengths) != 1:
+            raise ValueError(f"chains of different shapes cannot be pooled: {sorted(lengths)}")
+        draws = pooled_draws(results)
+    elif tuple(draws.shape[:1]) != (len(results),):
+        raise ValueError(f"draws of {draws.shape[0]} chains for {len(results)} results")
     resolved = resolve_sampler({"seed": 0, **(body.get("sampler") or {})})
-    draws = pooled_draws(results)
     names = list(results[0].names)
     model = compile_body(body)
     summary = summarize(draws, names, summary_interval(body))

@@ -1,5 +1,5 @@
-"""Tables of the results store: jobs, their chains, stored arrays, labels, the event log and the
-model registry."""
+"""Tables of the results store: jobs, their chains, stored arrays, running chains' checkpoint
+blocks, labels, the event log and the model registry."""
 
 from __future__ import annotations
 
@@ -176,6 +176,27 @@ class Chain(Base):
     checkpoint_at: Mapped[datetime | None] = mapped_column(UtcDateTime)
     adapted: Mapped[dict[str, Any] | None] = mapped_column(JSON)
     error: Mapped[str | None] = mapped_column(Text)
+
+
+class CheckpointBlock(Base):
+    """The records (draws and statistics) of a stretch of a running chain's iterations, written by
+    one incremental checkpoint (migration 0009; worker.samplers.chain.Checkpoint). With the
+    chain's ``checkpoint`` (its state without records) the blocks from iteration 0 resume it
+    exactly; each checkpoint adds one block, so writing them is linear in the chain's length.
+    Written in the transaction that moves ``checkpoint`` on, under the lease; deleted with the
+    chain's results."""
+
+    __tablename__ = "checkpoint_blocks"
+    __table_args__ = (
+        UniqueConstraint("chain_id", "start_iteration", name="uq_checkpoint_blocks_start"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    chain_id: Mapped[int] = mapped_column(Integer, ForeignKey("chains.id", ondelete="CASCADE"))
+    start_iteration: Mapped[int] = mapped_column(Integer)
+    stop_iteration: Mapped[int] = mapped_column(Integer)
+    sha256: Mapped[str] = mapped_column(String(64))
+    data: Mapped[bytes] = mapped_column(LargeBinary)
 
 
 class ChainArray(Base):

@@ -13,10 +13,10 @@ from typing import Any
 
 import numpy as np
 import requests
-from sqlalchemy import create_engine, select
+from sqlalchemy import create_engine, func, select
 from sqlalchemy.orm import Session
 
-from service.store.models import Chain, ChainArray, Event, Job
+from service.store.models import Chain, ChainArray, CheckpointBlock, Event, Job
 from tests.harness.in_process import in_process
 
 TERMINAL = ("succeeded", "failed", "cancelled", "timed_out")
@@ -89,6 +89,26 @@ class StoreView:
                     )
                 ).all()
             )
+
+    def checkpoint_parts(self, job_id: str, chain_index: int = 0) -> tuple[Any, list[Any]]:
+        """A chain's stored checkpoint (state, iteration) and its blocks' (start, stop, bytes),
+        read in one transaction, so they are what one checkpoint write left together."""
+        with Session(self.engine) as session, session.begin():
+            chain = session.execute(
+                select(Chain.id, Chain.checkpoint, Chain.checkpoint_iteration).where(
+                    Chain.job_id == job_id, Chain.chain_index == chain_index
+                )
+            ).one()
+            blocks = session.execute(
+                select(
+                    CheckpointBlock.start_iteration,
+                    CheckpointBlock.stop_iteration,
+                    func.length(CheckpointBlock.data),
+                )
+                .where(CheckpointBlock.chain_id == chain.id)
+                .order_by(CheckpointBlock.start_iteration)
+            ).all()
+        return chain, [tuple(b) for b in blocks]
 
     def job_states(self) -> dict[str, str]:
         with Session(self.engine) as session:

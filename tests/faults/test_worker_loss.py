@@ -29,6 +29,7 @@ from tests.faults.job_watch import (
 from tests.service.bodies import normal_mean
 from worker import runner
 from worker.celery_app import make_celery
+from worker.samplers import snapshot as snapshot_format
 
 FAST_LEASES = {
     "DRAWYARD_LEASE_SECONDS": "3",
@@ -45,7 +46,8 @@ def test_a_killed_worker_chain_resumes_on_another_worker_from_a_timed_checkpoint
     stays unacknowledged in Redis, which would hand it out again only after the visibility
     timeout (longer than the chain time limit, so not within this test): only the sweeper can
     bring the chain back. Checkpoints here are by time (every 0.5 s; the iteration interval is
-    out of reach), so this also shows that a time-triggered snapshot resumes exactly."""
+    out of reach), so this also shows that a time-triggered snapshot resumes exactly, from the
+    state and the records blocks the dead worker's checkpoints left in the store."""
     env = {
         **FAST_LEASES,
         "DRAWYARD_CHECKPOINT_EVERY": "1000000",
@@ -65,6 +67,17 @@ def test_a_killed_worker_chain_resumes_on_another_worker_from_a_timed_checkpoint
     row = wait_until(checkpointed, 120, "a checkpoint", service.logs)
     victim = next(i for i, w in enumerate(service.workers) if row.worker_pid in _group(w.pid))
     service.kill_worker(victim)
+    # What the dead worker left: incremental checkpoints (migration 0009), blocks of records
+    # from iteration 0 without gaps up to the stored state's iteration, and a state that holds
+    # no records (a version-2 snapshot starting its records there), far smaller than they are.
+    stored, blocks = store.checkpoint_parts(job_id)
+    assert blocks and blocks[0][0] == 0, blocks
+    assert all(a[1] == b[0] for a, b in zip(blocks, blocks[1:], strict=False)), blocks
+    assert blocks[-1][1] == stored.checkpoint_iteration
+    header, arrays = snapshot_format.decode(bytes(stored.checkpoint))
+    assert header["records_from"] == header["iteration"] == stored.checkpoint_iteration
+    assert arrays["draws"].shape[0] == 0
+    assert len(stored.checkpoint) < sum(size for *_, size in blocks)
     job = job_ended(job_url, 300, service.logs)
     assert job["state"] == "succeeded", service.logs()
     (after,) = store.chains(job_id)
@@ -79,6 +92,7 @@ def test_a_killed_worker_chain_resumes_on_another_worker_from_a_timed_checkpoint
         )
     ]
     assert len(resumed) == 1 and resumed[0] >= 1000
+    assert store.checkpoint_parts(job_id)[1] == []  # the blocks go once the result is stored
     _, got = http_draws(job_url)
     assert np.array_equal(bits(got), bits(in_process_draws(body)))
     # the evaluation counts travelled in the checkpoint: the uninterrupted chain's, exactly

@@ -118,3 +118,51 @@ def test_a_warm_started_chain_resumes_anywhere_with_identical_draws(method, metr
         resumed = Chain.restore(target(), first.snapshot())
         assert resumed.schedule == first.schedule
         assert same_output(resumed.run(), reference), f"{method}/{metric}: differs after {stop}"
+
+
+@pytest.mark.parametrize("method", ["nuts", "metropolis"])
+def test_incremental_checkpoints_resume_exactly_from_the_state_and_every_block(method) -> None:
+    """Each incremental checkpoint carries only the records since the one before; the state of
+    checkpoint k with blocks 0..k resumes exactly, and a resumed chain's next checkpoints carry on
+    from where it was restored."""
+    settings = SamplerSettings(method=method, warmup_iterations=150, draws=100)
+    seed = np.random.SeedSequence(80)
+    taken: list = []
+    reference = Chain(target(), settings, seed).run(
+        checkpoint=taken.append, checkpoint_every=40, incremental=True
+    )
+    assert [(c.start, c.iteration) for c in taken] == [(40 * k, 40 * k + 40) for k in range(6)]
+    for k, checkpoint in enumerate(taken):
+        blocks = [c.records for c in taken[: k + 1]]
+        assert same_output(Chain.restore(target(), checkpoint.state, blocks).run(), reference)
+    resumed = Chain.restore(target(), taken[2].state, [c.records for c in taken[:3]])
+    later: list = []
+    resumed.run(checkpoint=later.append, checkpoint_every=40, incremental=True)
+    assert later[0].start == 120
+    blocks = [c.records for c in taken[:3] + later]
+    assert same_output(Chain.restore(target(), later[-1].state, blocks).run(), reference)
+
+
+def test_a_state_without_its_blocks_or_with_a_gap_is_refused() -> None:
+    settings = SamplerSettings(warmup_iterations=50, draws=50)
+    taken: list = []
+    Chain(target(), settings, np.random.SeedSequence(81)).run(
+        checkpoint=taken.append, checkpoint_every=20, incremental=True
+    )
+    with pytest.raises(SnapshotError, match="records end at iteration 0"):
+        Chain.restore(target(), taken[1].state)
+    with pytest.raises(SnapshotError, match="where 0 was next"):
+        Chain.restore(target(), taken[1].state, [taken[1].records])
+
+
+def test_a_state_is_the_same_size_at_every_checkpoint() -> None:
+    """What makes checkpoints linear: the state leaves the records out, so it does not grow."""
+    settings = SamplerSettings(warmup_iterations=100, draws=900)
+    taken: list = []
+    Chain(target(), settings, np.random.SeedSequence(82)).run(
+        checkpoint=taken.append, checkpoint_every=100, incremental=True
+    )
+    sizes = {len(c.state) for c in taken}
+    assert max(sizes) - min(sizes) < 64  # the JSON header's digits only
+    # and each block holds its 100 iterations, at iteration 200 as at 900
+    assert abs(len(taken[-1].records) - len(taken[1].records)) < 64

@@ -11,7 +11,8 @@ tails; common practice).
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
+from typing import Protocol, runtime_checkable
 
 import numpy as np
 
@@ -21,8 +22,27 @@ from worker.diagnostics.rhat import split_rhat_batch
 from worker.diagnostics.splitting import MIN_DRAWS_PER_CHAIN
 
 DEFAULT_INTERVAL = 0.8
-# quantities handled per vectorised pass, bounded so a wide model does not need gigabytes at once
-CELLS_PER_PASS = 2_000_000
+# Draws handled per vectorised pass (as many quantities as fit, at least one), bounded so that a
+# long or wide job's summary never needs much memory: the diagnostics' temporaries (ranks,
+# transforms, sorted copies) are several times a pass. 400,000 float64 draws are 3.2 MB: one
+# quantity of 4 chains of 100,000 draws, or 100 quantities of a default job (4 x 1000), which keeps
+# the per-pass overhead negligible. The records do not depend on it (every computation is per
+# quantity; a test checks identical records at several sizes).
+CELLS_PER_PASS = 400_000
+
+
+
+@runtime_checkable
+class QuantityDraws(Protocol):
+    """Draws that are read one quantity at a time (the service's finishing step streams them from
+    its store): ``shape`` is (chains, draws, quantities) and ``quantity(j)`` gives quantity j's
+    draws, shaped (chains, draws)."""
+
+    @property
+    def shape(self) -> tuple[int, int, int]: ...
+
+    def quantity(self, index: int) -> np.ndarray: ...
+
 
 NOTE_CONSTANT = "constant"
 NOTE_NOT_FINITE = "not_finite"
@@ -56,9 +76,10 @@ def interval_problem(level: object) -> str | None:
 
 
 def summarize(
-    draws: np.ndarray, names: Sequence[str], interval: float = DEFAULT_INTERVAL
+    draws: np.ndarray | QuantityDraws, names: Sequence[str], interval: float = DEFAULT_INTERVAL
 ) -> list[dict]:
-    """One record per quantity of ``draws`` shaped ``(chains, draws, quantities)``.
+    """One record per quantity of ``draws`` shaped ``(chains, draws, quantities)``, an array or
+    a ``QuantityDraws`` (then read a quantity at a time, never whole).
 
     A record holds, in this order: ``name``; ``median``; ``interval`` (``level``, ``lower`` and
     ``upper``: the central interval's end points, the (1 - level)/2 and (1 + level)/2 quantiles);
@@ -70,10 +91,23 @@ def summarize(
     problem = interval_problem(interval)
     if problem:
         raise ValueError(problem)
-    values = np.asarray(draws, dtype=np.float64)
-    if values.ndim != 3:
-        raise ValueError(f"expected draws shaped (chains, draws, quantities), got {values.shape}")
-    chains, n, width = values.shape
+    fill: Callable[[np.ndarray, int], None]
+    if isinstance(draws, QuantityDraws):
+        shape = tuple(draws.shape)
+
+        def fill(block: np.ndarray, start: int) -> None:
+            for k in range(block.shape[0]):
+                block[k] = draws.quantity(start + k)
+    else:
+        values = np.asarray(draws, dtype=np.float64)
+        shape = values.shape
+
+        def fill(block: np.ndarray, start: int) -> None:
+            block[...] = np.moveaxis(values[:, :, start : start + block.shape[0]], 2, 0)
+
+    if len(shape) != 3:
+        raise ValueError(f"expected draws shaped (chains, draws, quantities), got {shape}")
+    chains, n, width = shape
     if len(names) != width:
         raise ValueError(f"{len(names)} names for {width} quantities")
     level = float(interval)
@@ -82,7 +116,10 @@ def summarize(
     per_pass = max(1, CELLS_PER_PASS // max(1, chains * n))
     records: list[dict] = []
     for start in range(0, width, per_pass):
-        block = np.moveaxis(values[:, :, start : start + per_pass], 2, 0)
+        # A contiguous (quantities, chains, draws) copy of the pass either way, so an array and
+        # the same draws read a quantity at a time give the same records, to the last bit.
+        block = np.empty((min(per_pass, width - start), chains, n))
+        fill(block, start)
         records.extend(
             _summarize_block(block, names[start : start + per_pass], probabilities, labels, level)
         )

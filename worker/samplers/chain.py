@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -76,6 +76,22 @@ class EvaluationCounts:
 
     def as_json(self) -> dict[str, dict[str, int]]:
         return {"gradient": dict(self.gradient), "log_density": dict(self.log_density)}
+
+
+@dataclass(frozen=True)
+class Checkpoint:
+    """An incremental checkpoint: the records of iterations ``start`` to ``iteration`` (new since
+    the chain's previous one) and a snapshot of the state without any records.
+
+    ``Chain.restore(target, state, blocks)`` with every ``records`` block since the chain began,
+    in order, continues exactly where the chain was; so each checkpoint costs the new records plus
+    the state, not every draw so far.
+    """
+
+    start: int
+    iteration: int
+    records: bytes
+    state: bytes
 
 
 def sampling_sequence(seed: np.random.SeedSequence, child: int) -> np.random.SeedSequence:
@@ -169,6 +185,7 @@ class Chain:
         )
         self._counts_known = True
         self._allocate()
+        self._records_given = 0
 
     def _setup(self, target: Target, settings: SamplerSettings) -> None:
         # A CountedTarget passed in keeps the counts it already has (they are warm-up).
@@ -222,15 +239,18 @@ class Chain:
         self,
         progress: ProgressCallback | None = None,
         should_stop: Callable[[], bool] | None = None,
-        checkpoint: Callable[[bytes], None] | None = None,
+        checkpoint: Callable[[bytes], None] | Callable[[Checkpoint], None] | None = None,
         checkpoint_every: int = 100,
+        incremental: bool = False,
     ) -> ChainOutput:
         """Run to the end, or until ``should_stop()`` is true (polled before every iteration).
 
         ``progress(phase, iteration, divergences)`` gets the phase of the iteration just finished
         ("warmup" or "sampling"), the number of iterations finished counting warm-up, and the
         divergences so far in that phase; it is called about every 1% of iterations and after the
-        last. ``checkpoint(snapshot_bytes)`` is called after every ``checkpoint_every`` iterations.
+        last. ``checkpoint(snapshot_bytes)`` is called after every ``checkpoint_every`` iterations;
+        with ``incremental`` it gets ``incremental_checkpoint()`` instead (the new records and the
+        state apart), so the cost of each checkpoint does not grow with the chain.
         """
         if checkpoint_every < 1:
             raise ValueError("checkpoint_every must be at least 1")
@@ -247,7 +267,7 @@ class Chain:
                 progress(phase, done, self.divergences[phase])
             if checkpoint is not None and done % checkpoint_every == 0:
                 if done < self.total_iterations:
-                    checkpoint(self.snapshot())
+                    checkpoint(self.incremental_checkpoint() if incremental else self.snapshot())
         return self.output()
 
     def step(self) -> None:
@@ -370,10 +390,12 @@ class Chain:
         warmup = self.settings.warmup_iterations
         done_warmup = min(self.iteration, warmup)
         done_draws = max(0, self.iteration - warmup)
+        # Views, not copies (a long chain's draws are its largest array): rows already written are
+        # never written again, since the iteration only moves forward.
         return ChainOutput(
-            draws=self.draws[:done_draws].copy(),
-            stats={k: v[:done_draws].copy() for k, v in self.stats.items()},
-            warmup_stats={k: v[:done_warmup].copy() for k, v in self.warmup_stats.items()},
+            draws=self.draws[:done_draws],
+            stats={k: v[:done_draws] for k, v in self.stats.items()},
+            warmup_stats={k: v[:done_warmup] for k, v in self.warmup_stats.items()},
             adapted=self.adapted(),
             completed=self.iteration == self.total_iterations,
             evaluations=self.evaluation_counts(),
@@ -396,11 +418,60 @@ class Chain:
 
     # ---- snapshot / restore --------------------------------------------------------------------
 
-    def snapshot(self) -> bytes:
-        """The complete state as bytes (see worker.samplers.snapshot for the format)."""
+    def _records(self, start: int, stop: int) -> dict[str, np.ndarray]:
+        """The draws and statistics of iterations ``start`` to ``stop``, as views, by phase."""
         warmup = self.settings.warmup_iterations
-        done_warmup = min(self.iteration, warmup)
-        done_draws = max(0, self.iteration - warmup)
+        w0, w1 = min(start, warmup), min(stop, warmup)
+        d0, d1 = max(0, start - warmup), max(0, stop - warmup)
+        return {
+            "draws": self.draws[d0:d1],
+            **{f"stat_{k}": v[d0:d1] for k, v in self.stats.items()},
+            **{f"warmup_stat_{k}": v[w0:w1] for k, v in self.warmup_stats.items()},
+        }
+
+    def _load_records(self, start: int, arrays: dict[str, np.ndarray]) -> int:
+        """Put back records of iterations from ``start``; returns the iteration after the last."""
+        warmup = self.settings.warmup_iterations
+        rows = arrays["draws"].shape[0]
+        warmup_rows = arrays[f"warmup_stat_{next(iter(self._types))}"].shape[0]
+        stop = start + warmup_rows + rows
+        # warm-up rows end by the end of warm-up; sampling rows start right after it
+        if (warmup_rows and start + warmup_rows > warmup) or (
+            rows and start + warmup_rows < warmup
+        ):
+            raise snapshot_format.SnapshotError("records that do not fit the chain's phases")
+        if stop > self.total_iterations:
+            raise snapshot_format.SnapshotError("records past the chain's last iteration")
+        d0 = max(0, start + warmup_rows - warmup)
+        self.draws[d0 : d0 + rows] = arrays["draws"]
+        for k, v in self.stats.items():
+            v[d0 : d0 + rows] = arrays[f"stat_{k}"]
+        for k, v in self.warmup_stats.items():
+            v[start : start + warmup_rows] = arrays[f"warmup_stat_{k}"]
+        return stop
+
+    def records(self, start: int) -> bytes:
+        """The records of iterations ``start`` to the current one, as a block (the format of
+        worker.samplers.snapshot, kind RECORDS_FORMAT)."""
+        header = {"start": start, "stop": self.iteration, "dimension": self.dimension}
+        return snapshot_format.encode(
+            header, self._records(start, self.iteration), snapshot_format.RECORDS_FORMAT
+        )
+
+    def incremental_checkpoint(self) -> Checkpoint:
+        """The records since the previous incremental checkpoint (or since the chain began or was
+        restored: the caller holds the earlier ones) and the state without records."""
+        start, self._records_given = self._records_given, self.iteration
+        return Checkpoint(
+            start, self.iteration, self.records(start), self.snapshot(records_from=self.iteration)
+        )
+
+    def snapshot(self, records_from: int = 0) -> bytes:
+        """The complete state as bytes (see worker.samplers.snapshot for the format), with the
+        records (draws, statistics) of iterations ``records_from`` onward: 0 gives a snapshot that
+        resumes alone; a later start needs the earlier records as blocks (``restore``)."""
+        if not 0 <= records_from <= self.iteration:
+            raise ValueError(f"records_from {records_from} outside 0..{self.iteration}")
         header = {
             "settings": self.settings.as_dict(),
             "dimension": self.dimension,
@@ -409,16 +480,15 @@ class Chain:
             "log_density": self.state.log_density,
             "divergences": self.divergences,
             "estimator_count": self.estimator.count,
+            "records_from": records_from,
         }
         if self._counts_known:
             header["evaluations"] = self.evaluations.as_json()
         arrays = {
             "position": self.state.position,
             "gradient": self.state.gradient,
-            "draws": self.draws[:done_draws],
             **self.estimator.arrays("estimator_"),
-            **{f"stat_{k}": v[:done_draws] for k, v in self.stats.items()},
-            **{f"warmup_stat_{k}": v[:done_warmup] for k, v in self.warmup_stats.items()},
+            **self._records(records_from, self.iteration),
         }
         if self.warm_covariance is not None:
             header["warm_start"] = True
@@ -437,8 +507,12 @@ class Chain:
         return snapshot_format.encode(header, arrays)
 
     @classmethod
-    def restore(cls, target: Target, blob: bytes) -> Chain:
-        """A chain that continues exactly where the snapshotted one stopped."""
+    def restore(cls, target: Target, blob: bytes, blocks: Sequence[bytes] = ()) -> Chain:
+        """A chain that continues exactly where the snapshotted one stopped.
+
+        ``blocks``: the records blocks of iterations before the snapshot's ``records_from``, in
+        order and without gaps (``Checkpoint.records``); none for a snapshot that holds them all.
+        """
         header, arrays = snapshot_format.decode(blob)
         settings = SamplerSettings.from_dict(header["settings"])
         if int(target.dimension) != header["dimension"]:
@@ -471,13 +545,24 @@ class Chain:
         )
         chain.estimator = RunningCovariance(chain.dimension, settings.preconditioning == "full")
         chain.estimator.load(int(header["estimator_count"]), arrays, "estimator_")
-        done = arrays["draws"].shape[0]
-        chain.draws[:done] = arrays["draws"]
-        for k, v in chain.stats.items():
-            v[:done] = arrays[f"stat_{k}"]
-        for k, v in chain.warmup_stats.items():
-            n = arrays[f"warmup_stat_{k}"].shape[0]
-            v[:n] = arrays[f"warmup_stat_{k}"]
+        reached = 0
+        for block in blocks:
+            found, records = snapshot_format.decode(block, snapshot_format.RECORDS_FORMAT)
+            if found.get("dimension") != chain.dimension or found.get("start") != reached:
+                raise snapshot_format.SnapshotError(
+                    f"a records block for iterations from {found.get('start')} where "
+                    f"{reached} was next"
+                )
+            reached = chain._load_records(reached, records)
+        if reached != int(header.get("records_from", 0)):
+            raise snapshot_format.SnapshotError(
+                f"the records end at iteration {reached}; the snapshot's start at "
+                f"{header.get('records_from', 0)}"
+            )
+        if chain._load_records(reached, arrays) != chain.iteration:
+            raise snapshot_format.SnapshotError("the records do not reach the snapshot's iteration")
+        # later incremental checkpoints hand out records from here: the caller holds the rest
+        chain._records_given = chain.iteration
         if chain._metropolis:
             chain.proposal = RandomWalkProposal(
                 settings.preconditioning, arrays["proposal_covariance"], float(header["log_scale"])
