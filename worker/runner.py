@@ -32,7 +32,7 @@ from worker.diagnostics.discrete import (
 )
 from worker.diagnostics.summary import DEFAULT_INTERVAL, QuantityDraws, interval_problem
 from worker.problems import InvalidSubmission, Problem, escape_token
-from worker.samplers import Chain, EvaluationCounts, SamplerSettings, SnapshotError
+from worker.samplers import Chain, EvaluationCounts, SamplerSettings
 from worker.samplers.chain import Checkpoint, sampling_sequence
 from worker.samplers.compound import integer_chain, restore_integer_chain
 from worker.samplers.settings import INITIALISATIONS, METHODS, PRECONDITIONINGS
@@ -632,11 +632,7 @@ def resume_chain(
     model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
     if model.discrete_size:
-        # integer chains' snapshots hold every record (worker/samplers/compound.py); records
-        # blocks of incremental checkpoints are not theirs yet
-        if blocks:
-            raise SnapshotError("a chain with integer unknowns resumes from a whole snapshot")
-        chain: Chain = restore_integer_chain(model, blob)
+        chain: Chain = restore_integer_chain(model, blob, blocks)
     else:
         chain = Chain.restore(model, blob, blocks)
     if chain.settings != _chain_settings(resolved):

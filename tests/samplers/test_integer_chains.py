@@ -27,16 +27,27 @@ def job(spec: dict, data: dict, **sampler) -> dict:
             "sampler": {k: v for k, v in resolved.items() if v is not None}}
 
 
+def resumed_from_checkpoints(body: dict, chain: int, stop_after: int, incremental: bool):
+    """Run until ``stop_after`` checkpoints (every 70 iterations) exist, then resume from the
+    last: a whole snapshot, or an incremental one's state with every records block before it."""
+    saved: list = []
+    start_chain(body, chain).run(checkpoint=saved.append, checkpoint_every=70,
+                                 should_stop=lambda: len(saved) >= stop_after,
+                                 incremental=incremental)
+    if not incremental:
+        return resume_chain(body, chain, saved[-1]).run()
+    return resume_chain(body, chain, saved[-1].state,
+                        blocks=[c.records for c in saved]).run()
+
+
+@pytest.mark.parametrize("incremental", [False, True])
 @pytest.mark.parametrize("method", ["nuts", "hmc", "metropolis"])
-def test_a_resumed_compound_chain_gives_the_uninterrupted_draws(method: str):
+def test_a_resumed_compound_chain_gives_the_uninterrupted_draws(method: str, incremental: bool):
     body = job(*mixture(), method=method)
     whole = start_chain(body, 1).run()
     assert isinstance(start_chain(body, 1).chain, CompoundChain)
     for stop_after in (1, 3):  # one checkpoint in warm-up, one in sampling (every 70)
-        blobs: list[bytes] = []
-        start_chain(body, 1).run(checkpoint=blobs.append, checkpoint_every=70,
-                                 should_stop=lambda b=blobs, n=stop_after: len(b) >= n)
-        resumed = resume_chain(body, 1, blobs[-1]).run()
+        resumed = resumed_from_checkpoints(body, 1, stop_after, incremental)
         assert np.array_equal(resumed.values, whole.values)
         for name, column in whole.stats.items():
             assert np.array_equal(resumed.stats[name], column), name
@@ -106,15 +117,13 @@ def test_gibbs_alone_draws_the_exact_posterior_of_a_population_size():
     assert power_shortfall(checks) is None, power_shortfall(checks)
 
 
-def test_a_gibbs_only_chain_resumes_exactly_and_reports_its_work():
+@pytest.mark.parametrize("incremental", [False, True])
+def test_a_gibbs_only_chain_resumes_exactly_and_reports_its_work(incremental: bool):
     body = job(*population())
     run = start_chain(body, 0)
     assert isinstance(run.chain, GibbsChain)
     whole = run.run()
-    blobs: list[bytes] = []
-    start_chain(body, 0).run(checkpoint=blobs.append, checkpoint_every=90,
-                             should_stop=lambda: len(blobs) >= 2)
-    resumed = resume_chain(body, 0, blobs[-1]).run()
+    resumed = resumed_from_checkpoints(body, 0, 4, incremental)
     assert np.array_equal(resumed.values, whole.values)
     assert np.array_equal(resumed.stats[CHANGES], whole.stats[CHANGES])
     assert resumed.evaluations.log_density == whole.evaluations.log_density

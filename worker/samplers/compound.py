@@ -16,6 +16,7 @@ generator's state travels in the snapshot: a resumed chain continues bit for bit
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -130,17 +131,31 @@ class CompoundChain(Chain):
         points = np.hstack([output.draws, self.integer_draws[:done]])
         return dataclasses.replace(output, draws=points)
 
-    def snapshot(self) -> bytes:
-        header, arrays = snapshot_format.decode(super().snapshot())
-        done = max(0, self.iteration - self.settings.warmup_iterations)
+    def _records(self, start: int, stop: int) -> dict[str, np.ndarray]:
+        # the integer values of each sampling draw travel with its continuous coordinates
+        records = super()._records(start, stop)
+        warmup = self.settings.warmup_iterations
+        records["integer_draws"] = self.integer_draws[max(0, start - warmup):max(0, stop - warmup)]
+        return records
+
+    def _load_records(self, start: int, arrays: dict[str, np.ndarray]) -> int:
+        stop = super()._load_records(start, arrays)
+        warmup = self.settings.warmup_iterations
+        rows = arrays["integer_draws"].shape[0]
+        first = max(0, stop - rows - warmup)
+        self.integer_draws[first:first + rows] = arrays["integer_draws"]
+        return stop
+
+    def snapshot(self, records_from: int = 0) -> bytes:
+        header, arrays = snapshot_format.decode(super().snapshot(records_from))
         header["integers"] = {"generator": self.gibbs_rng.bit_generator.state}
         arrays["integer_point"] = self.held.point[self.dimension:].copy()
-        arrays["integer_draws"] = self.integer_draws[:done]
         return snapshot_format.encode(header, arrays)
 
     @classmethod
-    def restore(cls, model: Any, blob: bytes) -> CompoundChain:
-        """The chain that continues exactly where the snapshotted one stopped."""
+    def restore(cls, model: Any, blob: bytes, blocks: Sequence[bytes] = ()) -> CompoundChain:
+        """The chain that continues exactly where the snapshotted one stopped (``blocks`` as
+        for Chain.restore)."""
         header, arrays = snapshot_format.decode(blob)
         if "integers" not in header or "integer_point" not in arrays:
             raise snapshot_format.SnapshotError("the snapshot holds no integer unknowns' state")
@@ -151,11 +166,9 @@ class CompoundChain(Chain):
         point = np.zeros(model.point_size)
         point[model.dimension:] = arrays["integer_point"]
         point[:model.dimension] = arrays["position"]
-        chain = super().restore(HeldIntegers(model, point), blob)
+        chain = super().restore(HeldIntegers(model, point), blob, blocks)
         assert isinstance(chain, CompoundChain)
         chain.gibbs_rng = _generator(header["integers"]["generator"])
-        done = arrays["integer_draws"].shape[0]
-        chain.integer_draws[:done] = arrays["integer_draws"]
         return chain
 
 
@@ -177,6 +190,7 @@ class GibbsChain(Chain):
         with np.errstate(all="ignore"):
             self.point = self._start(initial_point)
         self._allocate()
+        self._records_given = 0
 
     def _setup_gibbs(self, model: Any, settings: SamplerSettings) -> None:
         self.model = model
@@ -218,27 +232,21 @@ class GibbsChain(Chain):
         """Nothing is adapted; the final values for the record."""
         return {"position": [], "integers": self.point.tolist()}
 
-    def snapshot(self) -> bytes:
-        warmup = self.settings.warmup_iterations
-        done_warmup = min(self.iteration, warmup)
-        done_draws = max(0, self.iteration - warmup)
+    def snapshot(self, records_from: int = 0) -> bytes:
+        """The state, with the records of iterations ``records_from`` onward (as Chain's)."""
         header = {
             "settings": self.settings.as_dict(),
             "dimension": 0,
             "iteration": self.iteration,
             "integers": {"generator": self.gibbs_rng.bit_generator.state},
             "evaluations": self.evaluations.as_json(),
+            "records_from": records_from,
         }
-        arrays = {
-            "integer_point": self.point,
-            "draws": self.draws[:done_draws],
-            **{f"stat_{k}": v[:done_draws] for k, v in self.stats.items()},
-            **{f"warmup_stat_{k}": v[:done_warmup] for k, v in self.warmup_stats.items()},
-        }
+        arrays = {"integer_point": self.point, **self._records(records_from, self.iteration)}
         return snapshot_format.encode(header, arrays)
 
     @classmethod
-    def restore(cls, model: Any, blob: bytes) -> GibbsChain:
+    def restore(cls, model: Any, blob: bytes, blocks: Sequence[bytes] = ()) -> GibbsChain:
         header, arrays = snapshot_format.decode(blob)
         if header.get("dimension") != 0 or "integers" not in header:
             raise snapshot_format.SnapshotError("not a snapshot of a chain of integers alone")
@@ -256,13 +264,18 @@ class GibbsChain(Chain):
         chain.evaluations = EvaluationCounts(dict(counts["gradient"]), dict(counts["log_density"]))
         chain._counts_known = True
         chain.point = np.array(arrays["integer_point"], dtype=float)
-        done = arrays["draws"].shape[0]
-        chain.draws[:done] = arrays["draws"]
-        for k, v in chain.stats.items():
-            v[:done] = arrays[f"stat_{k}"]
-        for k, v in chain.warmup_stats.items():
-            n = arrays[f"warmup_stat_{k}"].shape[0]
-            v[:n] = arrays[f"warmup_stat_{k}"]
+        reached = 0
+        for block in blocks:
+            found, records = snapshot_format.decode(block, snapshot_format.RECORDS_FORMAT)
+            if found.get("start") != reached:
+                raise snapshot_format.SnapshotError(
+                    f"a records block for iterations from {found.get('start')} where "
+                    f"{reached} was next")
+            reached = chain._load_records(reached, records)
+        if reached != int(header.get("records_from", 0)) or \
+                chain._load_records(reached, arrays) != chain.iteration:
+            raise snapshot_format.SnapshotError("the records do not reach the snapshot's iteration")
+        chain._records_given = chain.iteration
         return chain
 
 
@@ -275,8 +288,8 @@ def integer_chain(model: Any, settings: SamplerSettings, seed: np.random.SeedSeq
     return CompoundChain(model, settings, seed, initial_point)
 
 
-def restore_integer_chain(model: Any, blob: bytes) -> Chain:
-    """``integer_chain``'s chain continued from its snapshot."""
+def restore_integer_chain(model: Any, blob: bytes, blocks: Sequence[bytes] = ()) -> Chain:
+    """``integer_chain``'s chain continued from its snapshot (and records blocks)."""
     if model.dimension == 0:
-        return GibbsChain.restore(model, blob)
-    return CompoundChain.restore(model, blob)
+        return GibbsChain.restore(model, blob, blocks)
+    return CompoundChain.restore(model, blob, blocks)
