@@ -24,7 +24,7 @@ log = logging.getLogger(__name__)
 class Settings:
     """Everything the API and the workers read from their environment.
 
-    Each field is read from ``DRAWYARD_<FIELD NAME IN CAPITALS>``; README.md lists them.
+    Each field is read from ``DRAWYARD_<FIELD NAME IN CAPITALS>``; docs/configuration.md lists them.
     """
 
     database_url: str = "sqlite:///var/drawyard.sqlite"

@@ -6,6 +6,9 @@ service/config.py. Command-line flags (--bind, --workers) override these values.
 
 import os
 
+from service.config import load_settings
+from service.structured_logs import TEXT_FORMAT
+
 bind = os.environ.get("GUNICORN_BIND", "0.0.0.0:8000")
 # WEB_CONCURRENCY is the conventional name platforms set for the number of web processes.
 workers = int(os.environ.get("WEB_CONCURRENCY", "2"))
@@ -18,19 +21,23 @@ timeout = 120
 graceful_timeout = 10
 keepalive = 5
 # The app writes each request's access line itself, as JSON with its request id
-# (service/request_records.py); gunicorn's own lines go through the same JSON formatter.
+# (service/request_records.py); gunicorn's own lines go through the same formatter as the app's,
+# so DRAWYARD_LOG_FORMAT=text makes every line of the API plain.
 accesslog = None
 errorlog = "-"
 loglevel = os.environ.get("GUNICORN_LOG_LEVEL", "info")
 logconfig_dict = {
     "version": 1,
     "disable_existing_loggers": False,
-    "formatters": {"json": {"()": "service.structured_logs.JsonLineFormatter"}},
+    "formatters": {
+        "json": {"()": "service.structured_logs.JsonLineFormatter"},
+        "text": {"format": TEXT_FORMAT},
+    },
     "filters": {"context": {"()": "service.structured_logs.JobContextFilter"}},
     "handlers": {
         "stderr": {
             "class": "logging.StreamHandler",
-            "formatter": "json",
+            "formatter": "text" if load_settings().log_format == "text" else "json",
             "filters": ["context"],
             "stream": "ext://sys.stderr",
         }

@@ -20,7 +20,7 @@ from service.problem_details import ApiProblem
 from service.web.json_lines import layout, line_of
 
 # The sampler settings the form has fields for, and how to read each one; other settings take
-# their defaults (README.md lists them).
+# their defaults (docs/samplers.md lists them).
 SAMPLER_FIELDS: dict[str, type] = {
     "method": str,
     "chains": int,

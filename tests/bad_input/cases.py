@@ -294,8 +294,9 @@ CASES = [
     Case("slice_syntax", 422, LOC, with_location("[mu, mu][1:2]")),
     Case("comparison_outside_select", 422, LOC, with_location("mu < 1")),
     Case("expression_too_long", 422, LOC, with_location(" + ".join(["mu"] * 2_600))),
-    # The registry, reuse and warm-start members (README "Model registry", "Result reuse",
-    # "Warm starts"); none needs an earlier job or model: the table's store is empty.
+    # The registry, reuse and warm-start members (docs/registry.md: "Registering models",
+    # "Result reuse", "Warm starts"); none needs an earlier job or model: the table's store is
+    # empty.
     Case("model_and_model_ref", 422, "/model_ref",
          changed(set_in(("model_ref",), {"name": "demand"}))),
     Case("model_ref_not_object", 422, "/model_ref", changed(by_name("demand"))),

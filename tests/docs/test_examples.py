@@ -22,8 +22,7 @@ from tests.harness.live_service import LiveService
 
 REPO = Path(__file__).resolve().parents[2]
 EXAMPLES = REPO / "docs" / "examples"
-# README.md joins once its reference sections have moved to docs/ (its blocks are not yet files).
-PAGES = sorted((REPO / "docs").glob("*.md"))
+PAGES = [REPO / "README.md", *sorted((REPO / "docs").glob("*.md"))]
 BLOCK = re.compile(r"^```(sh|bash|python)\n(.*?)^```", re.S | re.M)
 NAMED = re.compile(r"^# (docs/examples/[\w.-]+)")
 RUNNERS = {".sh": ["bash", "-eo", "pipefail"], ".py": [sys.executable]}
@@ -48,9 +47,39 @@ def test_every_shell_and_python_block_is_an_example_file() -> None:
         assert file.read_text() == text, f"{page.name}: the block differs from {file}"
 
 
+JSON_BLOCK = re.compile(
+    r"\(examples/([\w.-]+\.json)\)[^\n]*\n(?:[^\n]*\n)?```json\n(.*?)^```", re.S | re.M
+)
+
+
+def test_a_json_block_after_a_link_to_its_file_is_that_file() -> None:
+    """A JSON example is shown after a link to its file (within two lines): the two agree."""
+    shown = [(page, match) for page in PAGES for match in JSON_BLOCK.finditer(page.read_text())]
+    assert shown, "no JSON example found"
+    for page, match in shown:
+        file = EXAMPLES / match.group(1)
+        assert file.read_text() == match.group(2), f"{page.name}: the block differs from {file}"
+
+
 def test_every_example_file_has_its_expected_output() -> None:
     for example in runnable():
         assert example.with_suffix(".expected").exists(), example
+
+
+def test_every_example_file_is_shown_on_a_page() -> None:
+    """An example no page shows is one nobody reads; a page shows it as a block of its text."""
+    shown = {NAMED.match(text).group(1) for _, text in code_blocks() if NAMED.match(text)}
+    for example in runnable():
+        assert f"docs/examples/{example.name}" in shown, example
+
+
+def _settings(example: Path) -> dict[str, str]:
+    """The service settings an example needs (``<stem>.env``: NAME=VALUE lines, # comments)."""
+    file = example.with_suffix(".env")
+    if not file.exists():
+        return {}
+    lines = [line for line in file.read_text().splitlines() if line and not line.startswith("#")]
+    return dict(line.split("=", 1) for line in lines)
 
 
 def _expected(example: Path) -> list[re.Pattern]:
@@ -58,24 +87,26 @@ def _expected(example: Path) -> list[re.Pattern]:
     return [re.compile(line) for line in lines if line and not line.startswith("#")]
 
 
-@pytest.fixture
-def instance(live_service, redis_url: str, tmp_path: Path) -> LiveService:
+@pytest.mark.parametrize("example", runnable(), ids=lambda p: p.name)
+def test_the_example_runs_and_prints_what_it_says(
+    example: Path, live_service, redis_url: str, tmp_path: Path
+) -> None:
+    """Each example gets a fresh instance (a new store, so that keys made by one leave the next
+    open), started with the example's settings; the example sees the store's URL, as a local
+    operator's shell would, and those settings."""
     from service.store import migrate
 
     url = f"sqlite:///{(tmp_path / 'store.sqlite').resolve()}"
     migrate(url)
-    return live_service(url, redis_url, workers=1)
-
-
-@pytest.mark.parametrize("example", runnable(), ids=lambda p: p.name)
-def test_the_example_runs_and_prints_what_it_says(
-    example: Path, instance: LiveService, tmp_path: Path
-) -> None:
+    settings = _settings(example)
+    instance: LiveService = live_service(url, redis_url, workers=1, env=settings)
     work = tmp_path / "examples"
     shutil.copytree(EXAMPLES, work)
     env = {k: v for k, v in os.environ.items() if not k.startswith("DRAWYARD_")}
     env.update(
+        settings,
         DRAWYARD_URL=instance.base_url,
+        DRAWYARD_DATABASE_URL=url,
         PATH=f"{Path(sys.executable).parent}{os.pathsep}{env.get('PATH', '')}",
         PYTHONPATH=str(REPO),
     )

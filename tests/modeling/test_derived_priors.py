@@ -102,7 +102,7 @@ def _stackloss() -> np.ndarray:
 NORMAL_LIKELIHOOD = [{"name": "obs", "observed": "y", "distribution": "normal",
                       "arguments": {"location": "mu", "scale": "sigma"}}]
 INPUTS = {"n": {"type": "integer"}, "y": {"type": "real", "shape": ["n"]}}
-# p(sigma) ∝ 1/sigma: flat on log sigma (README, "Noninformative priors")
+# p(sigma) ∝ 1/sigma: flat on log sigma (docs/model-spec.md, "Noninformative priors")
 INVERSE_SCALE_SPEC = {
     "inputs": INPUTS,
     "unknowns": {"mu": {"flat_prior": True}, "log_sigma": {"flat_prior": True}},

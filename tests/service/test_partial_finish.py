@@ -4,7 +4,7 @@ The app (Flask test client) stores and queues a real job on SQLite and Redis; ea
 run here by the engine (worker.runner) and stopped after a chosen number of iterations, stored
 through the same path a worker uses when the limit stops it (service.chain_work.store_result),
 and the job closed by the finishing step (service.finishing.finish). Which branch a job takes is
-the contract in README.md ("What survives a crash"); the numbers come from the engine's own
+the contract in docs/guarantees.md; the numbers come from the engine's own
 uninterrupted run of the same body and seed, and numpy's mean of the common prefix (arithmetic).
 """
 

@@ -1,4 +1,5 @@
-"""Model names: exactly the documented rule (README "Model registry"), nothing appended.
+"""Model names: exactly the documented rule (docs/registry.md, "Registering models"), nothing
+appended.
 
 A name is 1 to 64 letters, digits, '_', '.' or '-', starting with a letter or digit. Python's
 ``re.match`` with a ``$`` anchor also accepts a trailing newline ("demand\\n"), which would register

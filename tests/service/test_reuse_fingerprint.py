@@ -2,8 +2,9 @@
 
 Checks given explicitly at their default values, or as 400.0 instead of 400, lead to the same
 verdict as checks left out (worker/diagnostics/thresholds.py: defaults overlaid with the given
-thresholds, compared as numbers), so such a submission must reuse the earlier result (README,
-"Result reuse"). A threshold switched off (null) or changed is a different verdict: no reuse.
+thresholds, compared as numbers), so such a submission must reuse the earlier result
+(docs/registry.md, "Result reuse"). A threshold switched off (null) or changed is a different
+verdict: no reuse.
 Jobs are run in process by the service's own chain and finishing code on a real SQLite store.
 """
 

@@ -1,4 +1,5 @@
-"""Reuse keeps tenant isolation and the job cap's meaning (README "Result reuse", "Limits").
+"""Reuse keeps tenant isolation and the job cap's meaning (docs/registry.md, "Result reuse";
+docs/access.md, "Limits").
 
 Another tenant's identical, seeded submission runs afresh (a result is never copied across
 tenants); a job that failed, was cancelled or timed out (its final state written into the store

@@ -1,5 +1,5 @@
-"""Which earlier jobs a warm start may name (README "Warm starts": the earlier job must have
-succeeded). A job stopped at its wall-time limit is refused like a failed one: its chains ended
+"""Which earlier jobs a warm start may name (docs/registry.md, "Warm starts": the earlier job must
+have succeeded). A job stopped at its wall-time limit is refused like a failed one: its chains ended
 mid-run, during warm-up for some, and an adaptation that did not finish is not a state to trust.
 A reused job is a succeeded job whose chains hold its source's adapted state, so it may be named.
 The timed-out job is made by the worker's own storing path (service.chain_work.store_result)

@@ -128,8 +128,8 @@ def test_non_centred_schools_match_quadrature(method: str, reference: dict) -> N
 def test_non_centred_schools_with_a_normal_prior_on_mu_pass_at_target_acceptance_095() -> None:
     """The outside report's model (mu ~ normal(0, 5); tests/samplers/eight_schools.py) through the
     spec and the runner. At the defaults 10 of 16 seeds (100-115) reported 1-5 divergences and
-    failed the verdict (README.md, "The non-centred eight schools at the defaults"); at target
-    acceptance 0.95 none of the 16 diverged. This checks the verdict and that the spec is the
+    failed the verdict (docs/validation.md, "The non-centred eight schools at the defaults"); at
+    target acceptance 0.95 none of the 16 diverged. This checks the verdict and that the spec is the
     density the sampler tests use; the accuracy of the draws, with the power to see a 2 % sd
     error, is checked by tests/samplers/test_long_runs.py and test_nuts_invariance.py."""
     from tests.samplers.eight_schools import DATA, SPEC, NonCentredSchools

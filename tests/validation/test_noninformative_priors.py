@@ -1,4 +1,4 @@
-"""The two flat priors on a normal scale the README documents, sampled, against closed forms.
+"""The two flat priors on a normal scale of docs/model-spec.md, sampled, against closed forms.
 
 For y_1..y_n ~ normal(mu, sigma) (BDA3, Gelman et al. 2013, section 3.2; the second case worked by
 the same integrals, see tests/modeling/test_derived_priors.py):

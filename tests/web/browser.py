@@ -26,7 +26,7 @@ VIEWPORT = {"width": 1200, "height": 900}
 
 
 def screenshot_folder() -> Path:
-    """tests/web/screenshots/ (committed; the README shows them) when DRAWYARD_SCREENSHOTS=update,
+    """tests/web/screenshots/ (committed; docs/web.md shows them) when DRAWYARD_SCREENSHOTS=update,
     else a scratch folder: every run still renders each page, without dirtying the checkout."""
     if os.environ.get("DRAWYARD_SCREENSHOTS") == "update":
         return SCREENSHOTS

@@ -23,7 +23,7 @@ class Target(Protocol):
 
 
 # Starts drawn uniformly on [-2, 2] per coordinate of the unconstrained scale, the same box the
-# chains' random initialisation uses (README "sampler settings"), and four of them: our choice,
+# chains' random initialisation uses (docs/samplers.md), and four of them: our choice,
 # enough to expose a second optimum of a bimodal target most of the time at a small cost.
 START_SPREAD = 2.0
 STARTS = 4

@@ -1,4 +1,4 @@
-"""Sampler settings: one frozen record per chain, with the defaults documented in README.md."""
+"""Sampler settings: one frozen record per chain, with the defaults of docs/samplers.md."""
 
 from __future__ import annotations
 
