@@ -392,6 +392,24 @@ CASES = [
                                                     "warmup_iterations": 0}))),
     Case("integer_with_warm_start", 422, "/warm_start",
          with_integer(FLAT_K, edit=lambda b: b.update({"warm_start": {"job": NO_SUCH_JOB}}))),
+    # Issue 16, summed-out integer unknowns (worker/modeling/summing.py): only integers, whose
+    # elements are independent given the rest, whose terms no other integer shares, and whose
+    # support is small enough to sum at every gradient.
+    Case("summed_out_continuous", 422, "/model/unknowns/mu/summed_out",
+         changed(set_in(("model", "unknowns", "mu"), {"summed_out": True}))),
+    Case("summed_out_coupled", 422, "/model/unknowns/k/summed_out", with_integer(
+        {"shape": ["n"], "lower": 0, "upper": 1, "summed_out": True, "flat_prior": True},
+        edit=lambda b: b["model"]["likelihood"][0]["arguments"].update(
+            {"location": "mu + 0.1 * sum(k)"})), says=("independent",)),
+    Case("summed_out_too_many_values", 422, "/model/unknowns/k/summed_out", with_integer(
+        {"lower": 1, "upper": 1500, "summed_out": True, "flat_prior": True},
+        edit=lambda b: b["model"]["likelihood"][0]["arguments"].update(
+            {"location": "mu + 0.001 * k"})), says=("1000",)),
+    Case("summed_out_shares_a_term", 422, "/model/unknowns/k/summed_out", with_integer(
+        {**FLAT_K, "summed_out": True}, edit=lambda b: (
+            b["model"]["unknowns"].update({"j": {"type": "integer", **FLAT_K}}),
+            b["model"]["likelihood"][0]["arguments"].update({"location": "mu + 0.1 * k * j"}))),
+         says=("shares a term",)),
     Case("callback_other_path", 422, "/notify/url",
          changed(set_in(("notify",), {"url": "http://127.0.0.1:9/admin"})), says=("prefix",)),
 ]

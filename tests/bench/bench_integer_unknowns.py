@@ -3,7 +3,9 @@ seconds and effective draws per second of the compound sampler, side by side in 
 
 Rows: the Gibbs sweep compounded with NUTS, with static HMC and with Metropolis; and NUTS again
 with the change year's conditional weighed value by value instead of in one batched pass (the
-ratio is what batching saves). ESS is the smallest bulk-ESS over the quantities
+ratio is what batching saves); and the same model with the change year summed out of the
+density (worker/modeling/summing.py: NUTS on the two rates alone, the year drawn per draw from
+its conditional), so the two ways sit side by side. ESS is the smallest bulk-ESS over the quantities
 (worker.diagnostics), so ESS/s is the rate of the slowest-mixing one.
 """
 
@@ -17,9 +19,11 @@ from worker.runner import compile_body, finish_job, resolve_sampler, start_chain
 CHAINS, DRAWS = 4, 1000
 
 
-def measure(label: str, method: str, batched: bool = True) -> float:
+def measure(label: str, method: str, batched: bool = True, summed: bool = False) -> float:
     body = coal_body(chains=CHAINS, draws=DRAWS, seed=7)
     body["sampler"]["method"] = method
+    if summed:
+        body["model"]["unknowns"]["change"]["summed_out"] = True
     body["sampler"] = {k: v for k, v in resolve_sampler(body["sampler"]).items() if v is not None}
     started = time.perf_counter()
     model = compile_body(body)
@@ -40,8 +44,10 @@ def main() -> None:
     hmc = measure("gibbs + static hmc", "hmc")
     metropolis = measure("gibbs + metropolis", "metropolis")
     slow = measure("gibbs (value by value) + nuts", "nuts", batched=False)
+    summed = measure("summed out + nuts", "nuts", summed=True)
     print(f"ESS/s ratios: nuts / hmc {nuts / hmc:.2f}, nuts / metropolis {nuts / metropolis:.2f}, "
-          f"batched / value-by-value conditional {nuts / slow:.2f}")
+          f"batched / value-by-value conditional {nuts / slow:.2f}, "
+          f"summed out / gibbs + nuts {summed / nuts:.2f}")
 
 
 if __name__ == "__main__":

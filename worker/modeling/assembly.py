@@ -84,6 +84,9 @@ class Assembly:
     # integer unknowns: held, not sampled by the continuous step; their values follow the
     # continuous coordinates in a point (start/stop count from `dimension`)
     held: list[UnknownSlot] = field(default_factory=list)
+    # integer unknowns summed out of the density (worker/modeling/summing.py); their start/stop
+    # count from 0 in a block of their own, since a point holds no values of theirs
+    summed: list[UnknownSlot] = field(default_factory=list)
     integer_bounds: dict[str, tuple[int, int]] = field(default_factory=dict)
 
     def terms(self) -> list[Term]:
@@ -283,6 +286,12 @@ class _Assembler:
             if declared.get("type") == "integer":
                 integers.append((name, declared, shape))
                 continue
+            if declared.get("summed_out"):
+                self.problem(pointer(*at, "summed_out"),
+                             f"unknown '{name}' is continuous: only an integer unknown "
+                             "(type: integer) can be summed out of the density")
+                self.broken.add(name)
+                continue
             lower, upper = declared.get("lower"), declared.get("upper")
             named = [side for side in ("lower", "upper") if isinstance(declared.get(side), str)]
             if named:
@@ -373,8 +382,12 @@ class _Assembler:
         node = graph.leaf(ValueType("integer", shape))
         graph.names[name] = node
         graph.integer_ranges[node] = (lower, upper)
-        self.out.held.append(UnknownSlot(name, node, offset, offset + size, shape, None))
         self.out.integer_bounds[name] = (lower, upper)
+        if declared.get("summed_out"):
+            start = sum(s.stop - s.start for s in self.out.summed)
+            self.out.summed.append(UnknownSlot(name, node, start, start + size, shape, None))
+            return offset
+        self.out.held.append(UnknownSlot(name, node, offset, offset + size, shape, None))
         return offset + size
 
     def reparametrised_unknowns(self) -> None:

@@ -10,6 +10,7 @@ from ..problems import InvalidSubmission, Problem, pointer
 from .assembly import Assembly, DistributionTerm
 from .conditionals import Conditional, conditionals
 from .shapes import batch_shape
+from .summing import Summing
 from .tape import Plan
 
 # Failures a bad point can provoke inside numpy/scipy; the contract turns them into -inf.
@@ -56,11 +57,19 @@ class CompiledModel:
         held = tuple(self._held)
         self.discrete_size = sum(s.stop - s.start for s in self._held)
         self.point_size = self.dimension + self.discrete_size
-        self._density = Plan(graph, assembly.slots, assembly.terms(), assembly.dimension,
+        # Summed-out integer unknowns (worker/modeling/summing.py): their terms enter the density
+        # as one log-sum-exp kernel each; report() draws their values after the point's.
+        self._summing = Summing(graph, assembly.slots, self._held, assembly.summed,
+                                assembly.integer_bounds, assembly.terms(), assembly.dimension,
+                                self.point_size)
+        if self._summing.problems:
+            raise InvalidSubmission(self._summing.problems)
+        self._density = Plan(graph, assembly.slots, self._summing.remaining, assembly.dimension,
                              constant=sum(q.log_jacobian_of_u for q in assembly.reparametrised),
-                             held=held)
+                             held=held, kernels=tuple(self._summing.kernels))
         # an unknown's reported value: its slot's node, or beta = R*^-1 theta where reparametrised
-        self._value_nodes = [graph.names[s.name] for s in (*assembly.slots, *self._held)]
+        self._value_nodes = [graph.names[s.name]
+                             for s in (*assembly.slots, *self._held, *self._summing.slots)]
         self._reparametrised = {q.unknown: q for q in assembly.reparametrised}
         report_nodes = (
             list(self._value_nodes)
@@ -71,7 +80,8 @@ class CompiledModel:
                for n in t.argument_nodes]
         )
         self._report = Plan(graph, assembly.slots, [], assembly.dimension,
-                            extra_outputs=tuple(report_nodes), held=held)
+                            extra_outputs=tuple(report_nodes),
+                            held=(*held, *self._summing.slots))
         self._likelihood = {t.name: t for t in assembly.likelihood}
         self.unknown_names = [n for s in (*assembly.slots, *self._held)
                               for n in flat_names(s.name, s.shape)]
@@ -80,11 +90,14 @@ class CompiledModel:
         self.conditionals: list[Conditional] = conditionals(
             graph, assembly.slots, self._held, assembly.integer_bounds,
             [*assembly.priors, *assembly.likelihood], assembly.dimension)
-        names = list(self.unknown_names)
+        # summed-out unknowns' columns follow the unknowns' (they are not in a point)
+        summed_names = [n for s in self._summing.slots for n in flat_names(s.name, s.shape)]
+        names = list(self.unknown_names) + summed_names
         # Quantities whose every value is a whole number: integer unknowns, integer derived
         # quantities and formulas, and draws from discrete distributions; downloads give them an
         # integer type.
         integers: list[str] = [n for s in self._held for n in flat_names(s.name, s.shape)]
+        integers += summed_names
         for name, node in (*assembly.derived.items(), *assembly.formulas.items()):
             flat = flat_names(name, graph.type_of(node).shape)
             names += flat
@@ -119,7 +132,9 @@ class CompiledModel:
     def _trial(self) -> list[tuple[int, ...]]:
         """Evaluate every term once at u = 0 so that misfitting arguments surface as problems."""
         problems: list[Problem] = []
-        u = self.lowest_point()
+        u = self._summing.extended(self.lowest_point())
+        for slot in self._summing.slots:
+            u[slot.start:slot.stop] = self._assembly.integer_bounds[slot.name][0]
         values = self._report.values_at(u)
         for term in (*self._assembly.priors, *self._assembly.likelihood):
             try:
@@ -273,7 +288,9 @@ class CompiledModel:
     def report(self, u: np.ndarray, rng: np.random.Generator) -> np.ndarray:
         """One row of quantity_names at u; draws come from rng in a fixed order."""
         a = self._assembly
-        values = self._report.values_at(u)
+        # summed-out unknowns first, each from its full conditional given the point
+        values = self._report.values_at(self._summing.draw(np.asarray(u, dtype=float), rng)
+                                        if self._summing.slots else u)
         pieces: list[np.ndarray] = [np.ravel(values[n]) for n in self._value_nodes]
         pieces += [np.ravel(values[n]) for n in a.derived.values()]
         pieces += [np.ravel(values[n]) for n in a.formulas.values()]

@@ -47,8 +47,12 @@ class Plan:
 
     def __init__(self, graph: Graph, slots: list[UnknownSlot], terms: list[Term],
                  dimension: int, extra_outputs: tuple[int, ...] = (), constant: float = 0.0,
-                 held: tuple[UnknownSlot, ...] = ()):
+                 held: tuple[UnknownSlot, ...] = (), kernels: tuple[Any, ...] = ()):
         """`constant` is added to every log density (a constant log-Jacobian).
+
+        `kernels` are term kernels built outside (worker/modeling/summing.py: terms summed over
+        an integer unknown), run after the terms; the plan computes the nodes each lists in its
+        `inputs`.
 
         `held` are integer unknowns: their values follow the `dimension` continuous coordinates
         in the point a call is given, and the gradient leaves them out (they are held fixed
@@ -63,6 +67,8 @@ class Plan:
             wanted.add(term.variate)
             wanted.update(term.argument_nodes)
         wanted.update(extra_outputs)
+        for kernel in kernels:
+            wanted.update(kernel.inputs)
         needed = _ancestors(graph, wanted)
         self.size = len(nodes)
         # Scalars travel as numpy scalars, not 0-d arrays: their arithmetic costs far less.
@@ -99,6 +105,7 @@ class Plan:
                 continue
             self.terms.append(term_kernel(term.variate, term.distribution, term.argument_names,
                                           term.argument_nodes, graph, term.sign_guaranteed))
+        self.terms.extend(kernels)
 
     def arrays(self) -> list[np.ndarray]:
         """Every array the plan holds: node values, and the buffers and data of its kernels."""
