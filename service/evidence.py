@@ -46,6 +46,15 @@ def job_evidence(runtime: Runtime, job: Job, chains: list[Chain]) -> Evidence:
         raise ApiProblem(422, "not-posterior-draws", "The draws are not posterior draws",
                          unusable + ".", [{"pointer": "/sampler/method", "message": unusable}])
     body = _body(runtime, job.id)
+    if any(isinstance(d, dict) and d.get("type") == "integer"
+           for d in (body["model"].get("unknowns") or {}).values()):
+        # Bridge sampling fits a normal proposal to the continuous unknowns; over integer ones it
+        # would need a sum over their values, which it does not do (docs/discrete-unknowns.md).
+        message = ("bridge sampling estimates the marginal likelihood of continuous unknowns "
+                   "only, and this model has integer unknowns")
+        raise ApiProblem(422, "integer-unknowns", "The model has integer unknowns",
+                         f"Job {job.id}: {message}; nothing was computed.",
+                         [{"pointer": "/model/unknowns", "message": message}])
     problems = improper_prior_problems(body["model"])
     if problems:
         raise ApiProblem(422, "improper-prior", "The prior is not proper",

@@ -34,6 +34,7 @@ from worker.diagnostics.summary import DEFAULT_INTERVAL, QuantityDraws, interval
 from worker.problems import InvalidSubmission, Problem, escape_token
 from worker.samplers import Chain, EvaluationCounts, SamplerSettings
 from worker.samplers.chain import Checkpoint, sampling_sequence
+from worker.samplers.compound import integer_chain, restore_integer_chain
 from worker.samplers.settings import INITIALISATIONS, METHODS, PRECONDITIONINGS
 from worker.samplers.target import CountedTarget
 from worker.warm_start import (
@@ -226,7 +227,7 @@ def _initial_value_problems(body: dict) -> list[Problem]:
         except (ValueError, KeyError, TypeError, IndexError) as error:
             problems.append(Problem(where, f"These initial values cannot be used: {error}."))
             continue
-        if point.shape != (model.dimension,) or not np.isfinite(point).all():
+        if point.shape != (model.point_size,) or not np.isfinite(point).all():
             problems.append(
                 Problem(
                     where, "These initial values lie outside the unknowns' bounds or structure."
@@ -266,6 +267,8 @@ def check_submission(
     if not problems:
         problems.extend(_approximation_problems(body))
     if not problems:
+        problems.extend(_integer_unknown_problems(body))
+    if not problems:
         problems.extend(_initial_value_problems(body))
     if not problems:
         problems.extend(warm_start_problems(body))
@@ -295,6 +298,30 @@ def _approximation_problems(body: dict) -> list[Problem]:
         reason = grid_dimension_problem(compile_body(body))
         if reason is not None:
             problems.append(Problem("/sampler/method", reason))
+    return problems
+
+
+def _integer_unknown_problems(body: dict) -> list[Problem]:
+    """What a model with integer unknowns cannot be run with: an approximation built on
+    derivatives with respect to every unknown (a Laplace approximation's curvature, a grid over
+    the unconstrained space), and warm starts, whose records hold no integer values."""
+    spec = body["model"]
+    declared = spec.get("unknowns") or {}
+    integers = [name for name, d in declared.items()
+                if isinstance(d, dict) and d.get("type") == "integer"]
+    if not integers:
+        return []
+    problems = []
+    method = (body.get("sampler") or {}).get("method")
+    if method in APPROXIMATION_METHODS:
+        problems.append(Problem("/sampler/method", f"a {method} approximation needs derivatives "
+                                f"with respect to every unknown, and '{integers[0]}' is an "
+                                "integer unknown; use nuts, hmc or metropolis, whose steps hold "
+                                "the integer unknowns while Gibbs updates move them"))
+    if body.get("warm_start") is not None:
+        problems.append(Problem("/warm_start", "a model with integer unknowns starts each chain "
+                                               "afresh: an earlier chain's record holds no "
+                                               "values of its integer unknowns"))
     return problems
 
 
@@ -570,6 +597,9 @@ def start_chain(body: dict, chain_index: int, model: Any = None) -> ChainRun | A
         return ApproximationRun(model, resolved["method"], seed, resolved["draws"], ChainResult)
     values = _initial_values_for(resolved, chain_index)
     point = None if values is None else np.asarray(model.unconstrain(values), dtype=np.float64)
+    if model.discrete_size:
+        chain: Chain = integer_chain(model, _chain_settings(resolved), seed, point)
+        return ChainRun(model, chain, seed)
     warm = None
     # Counted from here: the warm-start checks evaluate the log density at the earlier positions
     # for this chain, so they are part of its warm-up work.
@@ -601,7 +631,10 @@ def resume_chain(
     resolved = _resolved_with_seed(body)
     model = compile_body(body) if model is None else model
     seed = chain_seeds(resolved["seed"], resolved["chains"])[chain_index]
-    chain = Chain.restore(model, blob, blocks)
+    if model.discrete_size:
+        chain: Chain = restore_integer_chain(model, blob, blocks)
+    else:
+        chain = Chain.restore(model, blob, blocks)
     if chain.settings != _chain_settings(resolved):
         raise ValueError("the snapshot was made with different sampler settings than this job's")
     return ChainRun(model, chain, seed)

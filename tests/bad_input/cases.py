@@ -150,6 +150,22 @@ NO_SUCH_JOB = "0" * 32
 
 LIK = "/model/likelihood/0"
 LOC = LIK + "/arguments/location"
+def with_integer(declaration: dict, prior: dict | None = None,
+                 edit: Callable[[dict], Any] | None = None) -> bytes:
+    """The base body with an integer unknown k (issue 16), its prior when given, and an edit."""
+    def change(body: dict) -> None:
+        body["model"]["unknowns"]["k"] = {"type": "integer", **declaration}
+        if prior is not None:
+            body["model"]["priors"].append({"on": "k", **prior})
+        if edit is not None:
+            edit(body)
+
+    return changed(change)
+
+
+FLAT_K = {"lower": 1, "upper": 3, "flat_prior": True}
+
+
 CASES = [
     # Not JSON, or not sent as JSON.
     Case("truncated_json", 400, "", b'{"model": {'),
@@ -333,6 +349,67 @@ CASES = [
          changed(set_in(("notify",), {"url": "http://["})), says=("parsed",)),
     Case("callback_port_out_of_range", 422, "/notify/url",
          changed(set_in(("notify",), {"url": "http://127.0.0.1:99999/hooks/x"}))),
+    # Issue 16: integer unknowns. Their support must be finite and small enough to weigh at
+    # every update; they are never observed; their priors are distributions of integers that
+    # cover the bounds; an approximation needing derivatives in every unknown is refused.
+    Case("integer_unbounded", 422, "/model/unknowns/k",
+         with_integer({"lower": 0, "flat_prior": True}), says=("finite",)),
+    Case("integer_support_too_large", 422, "/model/unknowns/k",
+         with_integer({"lower": 0, "upper": 20_000, "flat_prior": True}), says=("limit",)),
+    Case("integer_bound_not_an_input", 422, "/model/unknowns/k/upper",
+         with_integer({"lower": 1, "upper": "stores", "flat_prior": True})),
+    Case("integer_bound_fractional", 422, "/model/unknowns/k/upper",
+         with_integer({"lower": 1, "upper": 2.5, "flat_prior": True})),
+    Case("continuous_bound_named", 422, "/model/unknowns/mu/lower",
+         changed(set_in(("model", "unknowns", "mu"), {"lower": "n"}))),
+    Case("integer_observed", 422, f"{LIK[:-2]}/1/observed", with_integer(FLAT_K, edit=lambda b: (
+        b["model"]["likelihood"].append({"name": "seen", "observed": "k",
+                                         "distribution": "poisson", "arguments": {"rate": 1}}))),
+         says=("cannot be observed",)),
+    Case("integer_continuous_prior", 422, "/model/priors/1/distribution",
+         with_integer({"lower": 1, "upper": 3},
+                      {"distribution": "normal", "arguments": {"location": 0, "scale": 1}})),
+    Case("integer_prior_misses_bounds", 422, "/model/priors/1/distribution",
+         with_integer({"lower": 0, "upper": 3},
+                      {"distribution": "bernoulli", "arguments": {"probability": 0.5}}),
+         says=("support",)),
+    Case("integer_truncated_prior_varies", 422, "/model/priors/1/distribution",
+         with_integer({"lower": 0, "upper": 5},
+                      {"distribution": "poisson", "arguments": {"rate": "exp(mu)"}}),
+         says=("normalising",)),
+    Case("integer_behind_derived_prior", 422, "/model/priors/1/on", with_integer(
+        FLAT_K, edit=lambda b: (
+            b["model"].update({"derived": {"shifted": "mu + k"}}),
+            b["model"]["priors"].append({"on": "shifted", "distribution": "normal",
+                                         "arguments": {"location": 0, "scale": 1}})))),
+    Case("integer_index_beyond_vector", 422, f"{LIK[:-2]}/0/arguments/location", with_integer(
+        FLAT_K, edit=lambda b: (
+            b["model"]["unknowns"].update({"a": {"shape": [2], "flat_prior": True}}),
+            b["model"]["likelihood"][0]["arguments"].update({"location": "mu + a[k]"}))),
+         says=("bounds",)),
+    Case("integer_with_laplace", 422, "/sampler/method", with_integer(
+        FLAT_K, edit=lambda b: b["sampler"].update({"method": "laplace", "chains": 1,
+                                                    "warmup_iterations": 0}))),
+    Case("integer_with_warm_start", 422, "/warm_start",
+         with_integer(FLAT_K, edit=lambda b: b.update({"warm_start": {"job": NO_SUCH_JOB}}))),
+    # Issue 16, summed-out integer unknowns (worker/modeling/summing.py): only integers, whose
+    # elements are independent given the rest, whose terms no other integer shares, and whose
+    # support is small enough to sum at every gradient.
+    Case("summed_out_continuous", 422, "/model/unknowns/mu/summed_out",
+         changed(set_in(("model", "unknowns", "mu"), {"summed_out": True}))),
+    Case("summed_out_coupled", 422, "/model/unknowns/k/summed_out", with_integer(
+        {"shape": ["n"], "lower": 0, "upper": 1, "summed_out": True, "flat_prior": True},
+        edit=lambda b: b["model"]["likelihood"][0]["arguments"].update(
+            {"location": "mu + 0.1 * sum(k)"})), says=("independent",)),
+    Case("summed_out_too_many_values", 422, "/model/unknowns/k/summed_out", with_integer(
+        {"lower": 1, "upper": 1500, "summed_out": True, "flat_prior": True},
+        edit=lambda b: b["model"]["likelihood"][0]["arguments"].update(
+            {"location": "mu + 0.001 * k"})), says=("1000",)),
+    Case("summed_out_shares_a_term", 422, "/model/unknowns/k/summed_out", with_integer(
+        {**FLAT_K, "summed_out": True}, edit=lambda b: (
+            b["model"]["unknowns"].update({"j": {"type": "integer", **FLAT_K}}),
+            b["model"]["likelihood"][0]["arguments"].update({"location": "mu + 0.1 * k * j"}))),
+         says=("shares a term",)),
     Case("callback_other_path", 422, "/notify/url",
          changed(set_in(("notify",), {"url": "http://127.0.0.1:9/admin"})), says=("prefix",)),
 ]

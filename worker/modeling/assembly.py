@@ -40,6 +40,12 @@ POSITIVE_KINDS = {"positive", "nonnegative"}
 JACOBIAN_FLAG = "jacobian_omitted_on_purpose"
 DISCRETE_KINDS = {"binary", "nonnegative_integer", "count_up_to_trials", "category",
                   "counts_summing_to_trials"}
+# The most values one Gibbs update of an integer unknown may weigh: elements x support size.
+# Each value costs one evaluation of the terms that involve the unknown, so this bounds the work
+# of one update to that of about 10,000 such evaluations; we chose it so that a change-point over
+# a few thousand periods, or a mixture of a few thousand rows over a handful of components, fits
+# (DEVELOPERS.md, "Integer unknowns").
+INTEGER_VALUE_LIMIT = 10_000
 
 
 @dataclass
@@ -75,6 +81,13 @@ class Assembly:
     # the other unknowns the reparametrisation considered, each with the reason it was not used
     not_reparametrised: list[dict[str, str]] = field(default_factory=list)
     reparametrise: bool = True
+    # integer unknowns: held, not sampled by the continuous step; their values follow the
+    # continuous coordinates in a point (start/stop count from `dimension`)
+    held: list[UnknownSlot] = field(default_factory=list)
+    # integer unknowns summed out of the density (worker/modeling/summing.py); their start/stop
+    # count from 0 in a block of their own, since a point holds no values of theirs
+    summed: list[UnknownSlot] = field(default_factory=list)
+    integer_bounds: dict[str, tuple[int, int]] = field(default_factory=dict)
 
     def terms(self) -> list[Term]:
         return [
@@ -262,6 +275,7 @@ class _Assembler:
     def unknowns(self, dims: DimensionTable) -> None:
         offset = 0
         graph = self.out.graph
+        integers: list[tuple[str, dict, tuple[int, ...]]] = []
         for name, declared in self.declared_unknowns.items():
             at = ("model", "unknowns", name)
             shape = dims.resolve(declared.get("shape", []), (*at, "shape"), self.problems,
@@ -269,7 +283,24 @@ class _Assembler:
             if shape is None or name in self.broken:
                 self.broken.add(name)
                 continue
+            if declared.get("type") == "integer":
+                integers.append((name, declared, shape))
+                continue
+            if declared.get("summed_out"):
+                self.problem(pointer(*at, "summed_out"),
+                             f"unknown '{name}' is continuous: only an integer unknown "
+                             "(type: integer) can be summed out of the density")
+                self.broken.add(name)
+                continue
             lower, upper = declared.get("lower"), declared.get("upper")
+            named = [side for side in ("lower", "upper") if isinstance(declared.get(side), str)]
+            if named:
+                self.problem(pointer(*at, named[0]),
+                             f"unknown '{name}': the bound of a continuous unknown must be a "
+                             "number; only an integer unknown (type: integer) may take its bound "
+                             "from an input")
+                self.broken.add(name)
+                continue
             if lower is not None and upper is not None and not lower < upper:
                 self.problem(pointer(*at), f"unknown '{name}': the lower bound {lower:g} must be "
                                            f"below the upper bound {upper:g}")
@@ -289,6 +320,75 @@ class _Assembler:
                                               None if unbounded else transform))
             offset += size
         self.out.dimension = offset
+        for name, declared, shape in integers:
+            offset = self.integer_unknown(name, declared, shape, dims, offset)
+
+    def integer_bound(self, name: str, declared: dict, side: str,
+                      dims: DimensionTable) -> int | None:
+        at = pointer("model", "unknowns", name, side)
+        bound = declared.get(side)
+        if bound is None:
+            self.problem(pointer("model", "unknowns", name),
+                         f"integer unknown '{name}' needs both a lower and an upper bound: its "
+                         "values are weighed one by one at every update, so its support must be "
+                         f"finite (the {side} bound is missing)")
+            return None
+        if isinstance(bound, str):
+            declared_input = self.declared_inputs.get(bound)
+            if (declared_input is None or declared_input.get("type") != "integer"
+                    or declared_input.get("shape")):
+                self.problem(at, f"integer unknown '{name}': the {side} bound names '{bound}', "
+                                 "which must be a scalar integer input")
+                return None
+            if bound not in dims.sizes:
+                return None  # the input's own data problem is reported already
+            return int(dims.sizes[bound])
+        if not (np.isfinite(bound) and float(bound) == round(bound)):
+            self.problem(at, f"integer unknown '{name}': the {side} bound must be a whole "
+                             f"number, got {bound:g}")
+            return None
+        return int(bound)
+
+    def integer_unknown(self, name: str, declared: dict, shape: tuple[int, ...],
+                        dims: DimensionTable, offset: int) -> int:
+        """Declare one integer unknown (a held slot after the continuous ones); the new offset."""
+        at = ("model", "unknowns", name)
+        if "structure" in declared:
+            self.problem(pointer(*at, "structure"),
+                         f"integer unknown '{name}' takes lower and upper bounds, not a structure")
+            self.broken.add(name)
+            return offset
+        lower = self.integer_bound(name, declared, "lower", dims)
+        upper = self.integer_bound(name, declared, "upper", dims)
+        if lower is None or upper is None:
+            self.broken.add(name)
+            return offset
+        if lower > upper:
+            self.problem(pointer(*at), f"integer unknown '{name}': the lower bound {lower} is "
+                                       f"above the upper bound {upper}")
+            self.broken.add(name)
+            return offset
+        size = int(np.prod(shape, dtype=np.int64))
+        values = size * (upper - lower + 1)
+        if values > INTEGER_VALUE_LIMIT:
+            self.problem(pointer(*at),
+                         f"integer unknown '{name}' has {size} element(s) of {upper - lower + 1} "
+                         f"possible values each: {values} values to weigh at every update, above "
+                         f"the limit of {INTEGER_VALUE_LIMIT}; narrow its bounds, or write the "
+                         "model with a continuous unknown in its place")
+            self.broken.add(name)
+            return offset
+        graph = self.out.graph
+        node = graph.leaf(ValueType("integer", shape))
+        graph.names[name] = node
+        graph.integer_ranges[node] = (lower, upper)
+        self.out.integer_bounds[name] = (lower, upper)
+        if declared.get("summed_out"):
+            start = sum(s.stop - s.start for s in self.out.summed)
+            self.out.summed.append(UnknownSlot(name, node, start, start + size, shape, None))
+            return offset
+        self.out.held.append(UnknownSlot(name, node, offset, offset + size, shape, None))
+        return offset + size
 
     def reparametrised_unknowns(self) -> None:
         """beta = R*^-1 (centre + spread u) for each unknown the QR plan takes; u is sampled."""
@@ -396,17 +496,31 @@ class _Assembler:
                 self.problem(pointer(*at, "on"), f"{context}: '{target}' is not a declared "
                                                  "unknown or derived quantity")
                 continue
+            integer_target = self.declared_unknowns.get(target, {}).get("type") == "integer"
             if target in self.declared_unknowns:
                 covered.add(target)
             else:
-                covered.update(self.unknowns_behind(target))
+                behind = self.unknowns_behind(target)
+                covered.update(behind)
+                held = sorted(b for b in behind
+                              if self.declared_unknowns[b].get("type") == "integer")
+                if held:
+                    self.problem(pointer(*at, "on"),
+                                 f"{context}: '{target}' depends on the integer unknown "
+                                 f"'{held[0]}'; a density on a quantity that jumps between "
+                                 "values has no Jacobian to make it a prior, so put the prior on "
+                                 f"'{held[0]}' itself (and on the continuous unknowns)")
+                    continue
             distribution = self.distribution(item, at, context)
             if distribution is None:
                 continue
-            if target in self.declared_unknowns:
+            if target in self.declared_unknowns and not integer_target:
                 self.prior_support(target, distribution, pointer(*at, "distribution"), context)
             args = self.arguments(item, at, context, distribution)
             if args is None or target in self.broken:
+                continue
+            if integer_target and not self.integer_prior_support(target, distribution, args, at,
+                                                                 context):
                 continue
             variate = graph.names[target]
             shape = graph.type_of(variate).shape
@@ -471,6 +585,53 @@ class _Assembler:
             self.problem(at, f"{context}: {distribution.name} is a distribution of {words}, so "
                              f"declare '{target}' with structure: {kind}")
 
+    def integer_prior_support(self, target: str, distribution: Distribution,
+                              args: tuple[tuple[str, ...], tuple[int, ...]], at: tuple,
+                              context: str) -> bool:
+        """A prior on an integer unknown: a distribution of integers whose support holds the
+        declared bounds, and, where the bounds cut part of it off, arguments fixed by the data
+        (the truncated prior's normalising constant then stays a constant)."""
+        graph = self.out.graph
+        lower, upper = self.out.integer_bounds[target]
+        kind = distribution.variate_kind
+        here = pointer(*at, "distribution")
+        if not distribution.discrete or distribution.event_ndim:
+            words = VARIATE_PHRASES.get(kind, kind)
+            self.problem(here, f"{context}: {distribution.name} is a distribution of {words}, but "
+                               f"'{target}' is an integer unknown; give it a distribution of "
+                               "single integers (categorical, bernoulli, binomial, poisson, ...)")
+            return False
+        values = {n: graph.nodes[k].value for n, k in zip(*args, strict=True)}
+        low, high, widest = 0.0, np.inf, np.inf
+        if kind == "binary":
+            high = widest = 1.0
+        elif kind == "category":
+            shapes = {n: np.zeros(graph.type_of(k).shape) for n, k in zip(*args, strict=True)}
+            low, high = 1.0, float(distribution.category_count(shapes))
+            widest = high
+        elif kind == "count_up_to_trials":
+            trials = values.get("trials")
+            if trials is None:
+                self.problem(pointer(*at, "arguments", "trials"),
+                             f"{context}: the trials of a prior on the integer unknown "
+                             f"'{target}' set its support, so they must be fixed by the data")
+                return False
+            high, widest = float(np.min(trials)), float(np.max(trials))
+        if lower < low or upper > high:
+            self.problem(here, f"{context}: {distribution.name} gives probability only to "
+                               f"{low:g} to {high:g}, but '{target}' is declared from {lower} to "
+                               f"{upper}; declare bounds inside the prior's support")
+            return False
+        truncated = lower > low or upper < widest
+        if truncated and any(v is None for v in values.values()):
+            self.problem(here, f"{context}: the bounds {lower} to {upper} of '{target}' cut off "
+                               f"part of the support of {distribution.name}, and its arguments "
+                               "depend on unknowns, so the cut-off prior's normalising constant "
+                               "would change with them; give arguments fixed by the data, or "
+                               "bounds that cover the whole support")
+            return False
+        return True
+
     def interval_support(self, target: str, args: dict[str, int], at: str, context: str) -> None:
         """A prior on [lower, upper] needs an unknown that cannot leave that interval."""
         graph = self.out.graph
@@ -496,6 +657,12 @@ class _Assembler:
                 self.problem(pointer(*at, "name"), f"{context}: the name '{term_name}' is used by "
                                                    "an earlier likelihood term")
             names_seen.add(term_name)
+            if self.declared_unknowns.get(observed, {}).get("type") == "integer":
+                self.problem(pointer(*at, "observed"),
+                             f"{context}: '{observed}' is an integer unknown and cannot be "
+                             "observed; a value that was observed is data: declare it as an "
+                             "input (split it in two where only some elements were observed)")
+                continue
             if observed not in self.declared_inputs:
                 what = ("an unknown" if observed in self.declared_unknowns else
                         "a derived quantity" if observed in self.declared_derived else

@@ -54,6 +54,10 @@ class Graph:
         # (data matrix node, coefficient node) -> the node that computes their product another
         # way: X @ beta as Q* @ u + Q* centre where beta is reparametrised (reparametrisation.py)
         self.products: dict[tuple[int, int], int] = {}
+        # integer unknowns' nodes, and elements taken from them, with their declared bounds:
+        # the only values that vary and may index (worker/samplers/compound.py holds them fixed
+        # while the continuous unknowns move)
+        self.integer_ranges: dict[int, tuple[int, int]] = {}
 
     # ---- building blocks
     def constant(self, value: np.ndarray, kind: str) -> int:
@@ -211,6 +215,40 @@ class Graph:
             raise ShapeError("a scalar cannot be indexed")
         if target.kind == "boolean":
             raise ShapeError("a comparison cannot be indexed")
+        if any(not self.nodes[i].constant for i in indices):
+            return self._index_by_unknown(node, args, target)
+        made = self._index_by_data(node, args, target)
+        if args[0] in self.integer_ranges:
+            self.integer_ranges[made] = self.integer_ranges[args[0]]
+        return made
+
+    def _index_by_unknown(self, node: ex.Index, args: list[int], target: ValueType) -> int:
+        """x[k] or X[k] where k varies: k must be an integer unknown (or elements of one) whose
+        bounds lie inside the indexed axis."""
+        if len(args) != 2:
+            raise ShapeError("an index that is an integer unknown selects elements of a vector "
+                             "or rows of a matrix, one index only")
+        index = args[1]
+        if index not in self.integer_ranges:
+            raise ShapeError("an index that depends on unknowns must be an integer unknown or "
+                             "elements of one (indices are otherwise fixed by the data)")
+        low, high = self.integer_ranges[index]
+        length = target.shape[0]
+        if low < 1 or high > length:
+            axis = "vector" if len(target.shape) == 1 else "row"
+            raise ShapeError(f"the index takes values {low} to {high} (its declared bounds) but "
+                             f"{axis} positions run from 1 to {length}")
+        if len(target.shape) == 2 and len(self.type_of(index).shape) > 1:
+            raise ShapeError("rows of a matrix are selected by a scalar or a vector of indices")
+        shape = self.type_of(index).shape + target.shape[1:]
+        made = self.operation(ops.TakeByUnknown(target.shape), (args[0], index),
+                              ValueType(target.kind, shape))
+        if args[0] in self.integer_ranges:
+            self.integer_ranges[made] = self.integer_ranges[args[0]]
+        return made
+
+    def _index_by_data(self, node: ex.Index, args: list[int], target: ValueType) -> int:
+        indices = args[1:]
         if len(target.shape) == 1:
             if len(indices) != 1:
                 raise ShapeError("a vector takes one index")

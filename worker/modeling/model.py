@@ -8,7 +8,9 @@ import numpy as np
 
 from ..problems import InvalidSubmission, Problem, pointer
 from .assembly import Assembly, DistributionTerm
+from .conditionals import Conditional, conditionals
 from .shapes import batch_shape
+from .summing import Summing
 from .tape import Plan
 
 # Failures a bad point can provoke inside numpy/scipy; the contract turns them into -inf.
@@ -49,10 +51,25 @@ class CompiledModel:
         graph = assembly.graph
         self.dimension = assembly.dimension
         self._slots = assembly.slots
-        self._density = Plan(graph, assembly.slots, assembly.terms(), assembly.dimension,
-                             constant=sum(q.log_jacobian_of_u for q in assembly.reparametrised))
+        # Integer unknowns' values follow the continuous coordinates in a point: the sampler's
+        # "point" is u (dimension values) then those (discrete_size values, whole numbers).
+        self._held = list(assembly.held)
+        held = tuple(self._held)
+        self.discrete_size = sum(s.stop - s.start for s in self._held)
+        self.point_size = self.dimension + self.discrete_size
+        # Summed-out integer unknowns (worker/modeling/summing.py): their terms enter the density
+        # as one log-sum-exp kernel each; report() draws their values after the point's.
+        self._summing = Summing(graph, assembly.slots, self._held, assembly.summed,
+                                assembly.integer_bounds, assembly.terms(), assembly.dimension,
+                                self.point_size)
+        if self._summing.problems:
+            raise InvalidSubmission(self._summing.problems)
+        self._density = Plan(graph, assembly.slots, self._summing.remaining, assembly.dimension,
+                             constant=sum(q.log_jacobian_of_u for q in assembly.reparametrised),
+                             held=held, kernels=tuple(self._summing.kernels))
         # an unknown's reported value: its slot's node, or beta = R*^-1 theta where reparametrised
-        self._value_nodes = [graph.names[s.name] for s in assembly.slots]
+        self._value_nodes = [graph.names[s.name]
+                             for s in (*assembly.slots, *self._held, *self._summing.slots)]
         self._reparametrised = {q.unknown: q for q in assembly.reparametrised}
         report_nodes = (
             list(self._value_nodes)
@@ -63,14 +80,24 @@ class CompiledModel:
                for n in t.argument_nodes]
         )
         self._report = Plan(graph, assembly.slots, [], assembly.dimension,
-                            extra_outputs=tuple(report_nodes))
+                            extra_outputs=tuple(report_nodes),
+                            held=(*held, *self._summing.slots))
         self._likelihood = {t.name: t for t in assembly.likelihood}
-        self.unknown_names = [n for s in assembly.slots for n in flat_names(s.name, s.shape)]
+        self.unknown_names = [n for s in (*assembly.slots, *self._held)
+                              for n in flat_names(s.name, s.shape)]
         self._prediction_shapes = self._trial()
-        names = list(self.unknown_names)
-        # Quantities whose every value is a whole number: integer derived quantities and
-        # formulas, and draws from discrete distributions; downloads give them an integer type.
-        integers: list[str] = []
+        # Gibbs updates of the integer unknowns (worker/samplers/gibbs.py), one per unknown
+        self.conditionals: list[Conditional] = conditionals(
+            graph, assembly.slots, self._held, assembly.integer_bounds,
+            [*assembly.priors, *assembly.likelihood], assembly.dimension)
+        # summed-out unknowns' columns follow the unknowns' (they are not in a point)
+        summed_names = [n for s in self._summing.slots for n in flat_names(s.name, s.shape)]
+        names = list(self.unknown_names) + summed_names
+        # Quantities whose every value is a whole number: integer unknowns, integer derived
+        # quantities and formulas, and draws from discrete distributions; downloads give them an
+        # integer type.
+        integers: list[str] = [n for s in self._held for n in flat_names(s.name, s.shape)]
+        integers += summed_names
         for name, node in (*assembly.derived.items(), *assembly.formulas.items()):
             flat = flat_names(name, graph.type_of(node).shape)
             names += flat
@@ -105,7 +132,9 @@ class CompiledModel:
     def _trial(self) -> list[tuple[int, ...]]:
         """Evaluate every term once at u = 0 so that misfitting arguments surface as problems."""
         problems: list[Problem] = []
-        u = np.zeros(self.dimension)
+        u = self._summing.extended(self.lowest_point())
+        for slot in self._summing.slots:
+            u[slot.start:slot.stop] = self._assembly.integer_bounds[slot.name][0]
         values = self._report.values_at(u)
         for term in (*self._assembly.priors, *self._assembly.likelihood):
             try:
@@ -136,6 +165,14 @@ class CompiledModel:
         if problems:
             raise InvalidSubmission(problems)
         return shapes
+
+    def lowest_point(self) -> np.ndarray:
+        """A point with every continuous coordinate 0 and every integer unknown at its lower
+        bound (a point inside the support, for trials)."""
+        point = np.zeros(self.point_size)
+        for slot in self._held:
+            point[slot.start:slot.stop] = self._assembly.integer_bounds[slot.name][0]
+        return point
 
     @staticmethod
     def _args(term: DistributionTerm, values: list[Any]) -> dict[str, np.ndarray]:
@@ -173,7 +210,24 @@ class CompiledModel:
         Pointers are relative to the mapping of values ("/mu"); the caller roots them.
         """
         problems: list[Problem] = []
-        u = np.zeros(self.dimension)
+        u = np.zeros(self.point_size)
+        for slot in self._held:
+            at = pointer(slot.name)
+            lower, upper = self._assembly.integer_bounds[slot.name]
+            if slot.name not in values:
+                problems.append(Problem(at, f"no initial value given for unknown '{slot.name}'"))
+                continue
+            try:
+                x = np.array(values[slot.name], dtype=float)
+            except (ValueError, TypeError):
+                x = np.array(np.nan)
+            if x.shape != slot.shape or not np.all((x == np.round(x)) & (x >= lower)
+                                                   & (x <= upper)):
+                problems.append(Problem(at, f"the initial value of the integer unknown "
+                                            f"'{slot.name}' must be whole numbers from {lower} "
+                                            f"to {upper} in shape {list(slot.shape)}"))
+                continue
+            u[slot.start:slot.stop] = x.ravel()
         for slot in self._slots:
             at = pointer(slot.name)
             if slot.name not in values:
@@ -209,7 +263,10 @@ class CompiledModel:
         gives them, back to the unconstrained scale (S, dimension); NaN where a value lies
         outside its support."""
         rows = np.asarray(rows, dtype=float)
-        out = np.empty((rows.shape[0], self.dimension))
+        out = np.empty((rows.shape[0], self.point_size))
+        # the integer unknowns' columns follow the continuous ones', as their values do in a point
+        if self.discrete_size:
+            out[:, self.dimension:] = rows[:, -self.discrete_size:]
         column = 0
         with np.errstate(all="ignore"):
             for slot in self._slots:
@@ -231,7 +288,9 @@ class CompiledModel:
     def report(self, u: np.ndarray, rng: np.random.Generator) -> np.ndarray:
         """One row of quantity_names at u; draws come from rng in a fixed order."""
         a = self._assembly
-        values = self._report.values_at(u)
+        # summed-out unknowns first, each from its full conditional given the point
+        values = self._report.values_at(self._summing.draw(np.asarray(u, dtype=float), rng)
+                                        if self._summing.slots else u)
         pieces: list[np.ndarray] = [np.ravel(values[n]) for n in self._value_nodes]
         pieces += [np.ravel(values[n]) for n in a.derived.values()]
         pieces += [np.ravel(values[n]) for n in a.formulas.values()]

@@ -424,6 +424,36 @@ class TakeMatrixElements(Operation):
         return [flat.reshape(self.matrix_shape)]
 
 
+class TakeByUnknown(Operation):
+    """x[k] or X[k] (rows) where the 1-based index k is an integer unknown (or elements of one).
+
+    The index is held fixed while the continuous unknowns move (worker/samplers/compound.py), so
+    it carries no gradient; its values stay inside the unknown's declared bounds, which were
+    checked against the indexed length when the graph was built.
+    """
+
+    __slots__ = ("shape",)
+
+    name = "index by an integer unknown"
+
+    def __init__(self, shape: tuple[int, ...]):
+        self.shape = shape  # the indexed vector's or matrix's shape
+
+    def forward(self, a, index):
+        return a[np.asarray(index, dtype=np.intp) - 1]
+
+    def backward(self, g, inputs, out, needs):
+        if not needs[0]:
+            return [None, None]
+        positions = np.asarray(inputs[1], dtype=np.intp) - 1
+        if len(self.shape) == 1:
+            grad = np.bincount(positions.ravel(), weights=np.ravel(g), minlength=self.shape[0])
+        else:
+            grad = np.zeros(self.shape)
+            np.add.at(grad, positions, g)
+        return [grad, None]
+
+
 class Stack(Operation):
     """A vector or matrix literal built from scalars, in row-major order."""
 

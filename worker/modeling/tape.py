@@ -46,16 +46,29 @@ class Plan:
     """The compiled log density of a graph: unknown slots, steps, and terms."""
 
     def __init__(self, graph: Graph, slots: list[UnknownSlot], terms: list[Term],
-                 dimension: int, extra_outputs: tuple[int, ...] = (), constant: float = 0.0):
-        """`constant` is added to every log density (a constant log-Jacobian)."""
+                 dimension: int, extra_outputs: tuple[int, ...] = (), constant: float = 0.0,
+                 held: tuple[UnknownSlot, ...] = (), kernels: tuple[Any, ...] = ()):
+        """`constant` is added to every log density (a constant log-Jacobian).
+
+        `kernels` are term kernels built outside (worker/modeling/summing.py: terms summed over
+        an integer unknown), run after the terms; the plan computes the nodes each lists in its
+        `inputs`.
+
+        `held` are integer unknowns: their values follow the `dimension` continuous coordinates
+        in the point a call is given, and the gradient leaves them out (they are held fixed
+        while the continuous unknowns move: worker/samplers/compound.py).
+        """
         self.dimension = dimension
         self.slots = slots
+        self._held = [(slot.node, slot.start, slot.stop, slot.shape) for slot in held]
         nodes = graph.nodes
         wanted: set[int] = set()
         for term in terms:
             wanted.add(term.variate)
             wanted.update(term.argument_nodes)
         wanted.update(extra_outputs)
+        for kernel in kernels:
+            wanted.update(kernel.inputs)
         needed = _ancestors(graph, wanted)
         self.size = len(nodes)
         # Scalars travel as numpy scalars, not 0-d arrays: their arithmetic costs far less.
@@ -92,6 +105,7 @@ class Plan:
                 continue
             self.terms.append(term_kernel(term.variate, term.distribution, term.argument_names,
                                           term.argument_nodes, graph, term.sign_guaranteed))
+        self.terms.extend(kernels)
 
     def arrays(self) -> list[np.ndarray]:
         """Every array the plan holds: node values, and the buffers and data of its kernels."""
@@ -106,6 +120,7 @@ class Plan:
     # ---- forward
     def _forward(self, u: np.ndarray) -> list[Any]:
         v = self._values
+        self._hold(u, v)
         for slot in self.slots:
             piece = u[slot.start:slot.stop]
             if slot.transform is None:
@@ -129,6 +144,7 @@ class Plan:
         everything else), each kind in one tight loop; with slopes and pullbacks given, it keeps
         what the gradient needs.
         """
+        self._hold(u, v)
         for node, start, stop in self._vectors:
             v[node] = u[start:stop]
         for node, start, stop, shape in self._unbounded:
@@ -147,6 +163,10 @@ class Plan:
             if pullbacks is not None:
                 pullbacks.append(pullback)
         return total
+
+    def _hold(self, u: np.ndarray, v: list[Any]) -> None:
+        for node, start, stop, shape in self._held:
+            v[node] = u[start] if not shape else u[start:stop].reshape(shape)
 
     def log_density(self, u: np.ndarray) -> float:
         u = np.asarray(u, dtype=float)

@@ -64,8 +64,11 @@ class GenericTerm:
         self.distribution = distribution
         self.wanted = tuple((n, k) for n, k in zip(names, nodes, strict=True)
                             if not graph.nodes[k].constant)
+        # a discrete distribution's variate varies only as an integer unknown, which is held
+        # during the continuous step: it has no gradient to ask for
         self.wrt = frozenset([n for n, _ in self.wanted]
-                             + ([] if graph.nodes[variate].constant else ["x"]))
+                             + ([] if graph.nodes[variate].constant or distribution.discrete
+                                else ["x"]))
         self.args = {n: _compact(graph.nodes[k].value) for n, k in zip(names, nodes, strict=True)
                      if graph.nodes[k].constant}
 

@@ -281,7 +281,9 @@ class Categorical(Distribution):
         val = picked - top - np.log(total)
         grads: dict[str, Array] = {}
         if "log_weights" in wrt:
-            g = shifted / (-total[..., None])
+            # C order, so that reshape(-1) is a view: log weights passed in another order give
+            # a Fortran-ordered quotient, whose reshape is a copy that would drop the += 1
+            g = np.ascontiguousarray(shifted / (-total[..., None]))
             g.reshape(-1)[flat] += 1.0
             grads["log_weights"] = g
         if bad is not None:
