@@ -127,7 +127,7 @@ def test_non_centred_schools_match_quadrature(method: str, reference: dict) -> N
 @pytest.mark.slow
 def test_non_centred_schools_with_a_normal_prior_on_mu_pass_at_target_acceptance_095() -> None:
     """The outside report's model (mu ~ normal(0, 5); tests/samplers/eight_schools.py) through the
-    spec and the runner. At the defaults 10 of 16 seeds (100-115) reported 1-5 divergences and
+    spec and the runner. At the defaults 15 of 16 seeds (100-115) reported 1-7 divergences and
     failed the verdict (docs/validation.md, "The non-centred eight schools at the defaults"); at
     target acceptance 0.95 none of the 16 diverged. This checks the verdict and that the spec is the
     density the sampler tests use; the accuracy of the draws, with the power to see a 2 % sd

@@ -106,7 +106,7 @@ def test_from_the_submit_form_to_the_expression_syntax_in_a_browser(
         screenshot(page, "docs-expressions")
         page.get_by_role("link", name="Documentation").click()
         page.get_by_role("link", name="Samplers", exact=True).click()
-        expect(page.get_by_role("heading", name="The cold schedule")).to_be_visible()
+        expect(page.get_by_role("heading", name="Warm-up", exact=True)).to_be_visible()
         # A link to a heading of another page lands on that heading.
         page.goto(f"{service.base_url}/docs/diagnostics")
         page.get_by_role("link", name="Upgrading").click()

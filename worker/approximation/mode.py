@@ -13,6 +13,9 @@ from typing import Protocol
 import numpy as np
 from scipy import optimize
 
+from worker.samplers.initialisation import InitialisationError, initial_state
+from worker.samplers.settings import SamplerSettings
+
 
 class Target(Protocol):
     dimension: int
@@ -22,13 +25,12 @@ class Target(Protocol):
     def log_density_and_gradient(self, u: np.ndarray) -> tuple[float, np.ndarray]: ...
 
 
-# Starts drawn uniformly on [-2, 2] per coordinate of the unconstrained scale, the same box the
-# chains' random initialisation uses (docs/samplers.md), and four of them: our choice,
-# enough to expose a second optimum of a bimodal target most of the time at a small cost.
-START_SPREAD = 2.0
+# Starts drawn by the chains' starting rule (worker/samplers/initialisation.py, docs/samplers.md:
+# normal draws with sd START_SPREAD on the unconstrained scale, narrowing after failures) at the
+# chains' default spread, and four of them: our choice, enough to expose a second optimum of a
+# bimodal target most of the time at a small cost.
+START_SPREAD = SamplerSettings().start_spread
 STARTS = 4
-# Tries per start to find a point of finite density before giving up; our choice.
-START_TRIES = 100
 # Two end points are the same optimum when their log densities agree to this and their positions
 # to POSITION_TOLERANCE * (1 + |u|); our choice, well above what L-BFGS leaves at convergence.
 DENSITY_TOLERANCE = 1e-4
@@ -62,11 +64,11 @@ class ModeNotFound(ValueError):
 
 
 def _start(target: Target, rng: np.random.Generator, spread: float) -> np.ndarray | None:
-    for _ in range(START_TRIES):
-        u = rng.uniform(-spread, spread, size=target.dimension)
-        if np.isfinite(target.log_density(u)):
-            return u
-    return None
+    # The gradient must be finite too: L-BFGS needs it from the first step.
+    try:
+        return initial_state(target, "random", spread, rng, None, needs_gradient=True).position
+    except InitialisationError:
+        return None
 
 
 def find_mode(target: Target, rng: np.random.Generator, starts: int = STARTS,
