@@ -4,8 +4,9 @@
   with probability min(1, pi(x') / pi(x)).
 - Haario, Saksman & Tamminen (2001), An adaptive Metropolis algorithm, Bernoulli 7(2): the proposal
   covariance is the covariance of the chain's own past draws (regularised so it stays positive
-  definite), with scale 2.38^2 / d. Here it is re-estimated at the ends of the same doubling
-  windows the Hamiltonian samplers use, so the draws from before the chain settled are forgotten.
+  definite), with scale 2.38^2 / d. Here it is refitted at the same points of warm-up the
+  Hamiltonian samplers refit their metric (worker/samplers/metric_adaptation.py), from the same
+  two-block discounted estimator, so the draws from before the chain settled are forgotten.
 - Roberts, Gelman & Gilks (1997), Weak convergence and optimal scaling of random walk Metropolis
   algorithms: optimal acceptance about 0.234 in high dimension (0.44 in one), scale 2.38 / sqrt(d).
 - Andrieu & Thoms (2008), A tutorial on adaptive MCMC, section 5 (global adaptive scaling): the
