@@ -11,10 +11,6 @@ diagnostics) keeps the integer column whole and the chain reproducible.
 
 from __future__ import annotations
 
-import os
-import signal
-import time
-
 import numpy as np
 import pytest
 
@@ -23,9 +19,9 @@ from tests.samplers.test_integer_references import coal_body
 from tests.service.test_live_service import (
     bits,
     call,
-    chains_in_store,
     finished,
     json_draws,
+    kill_first_chain_after,
     submit,
 )
 
@@ -47,15 +43,7 @@ def test_change_point_over_http_with_a_resume_matches_in_process(
     body = coal_body(chains=2, draws=1500, seed=1851)
     job_url = submit(service.base_url, body)
     job_id = job_url.rsplit("/", 1)[1]
-    deadline = time.monotonic() + 240
-    while True:
-        first = chains_in_store(sqlite_store, job_id)[0]
-        if first.checkpoint_iteration is not None and first.checkpoint_iteration >= 1200:
-            break
-        assert first.state in ("queued", "running"), f"chain 1 ended before the kill: {first.state}"
-        assert time.monotonic() < deadline, service.logs()
-        time.sleep(0.1)
-    os.kill(first.worker_pid, signal.SIGKILL)
+    kill_first_chain_after(service, sqlite_store, job_id, 1200)
     job = finished(job_url, service, timeout=600)
     assert job["chains"][0]["attempts"] == 2, service.logs()
 

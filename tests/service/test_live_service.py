@@ -93,6 +93,22 @@ def chains_in_store(database_url: str, job_id: str) -> list[Chain]:
         engine.dispose()
 
 
+def kill_first_chain_after(
+    service, database_url: str, job_id: str, iteration: int, timeout: float = 240.0
+) -> None:
+    """SIGKILL the worker process running the job's first chain once that chain has a checkpoint
+    at or past ``iteration``; fail (with the service's logs) if it ends first or time runs out."""
+    deadline = time.monotonic() + timeout
+    while True:
+        first = chains_in_store(database_url, job_id)[0]
+        if first.checkpoint_iteration is not None and first.checkpoint_iteration >= iteration:
+            break
+        assert first.state in ("queued", "running"), f"chain 1 ended before the kill: {first.state}"
+        assert time.monotonic() < deadline, service.logs()
+        time.sleep(0.1)
+    os.kill(first.worker_pid, signal.SIGKILL)
+
+
 def events_in_store(database_url: str, job_id: str) -> list[Event]:
     engine = create_engine(database_url)
     try:
@@ -258,15 +274,7 @@ def test_a_chain_whose_worker_dies_resumes_from_its_checkpoint(
     body = normal_mean(chains=1, warmup=500, draws=24_000, seed=31)
     job_url = submit(service.base_url, body)
     job_id = job_url.rsplit("/", 1)[1]
-    deadline = time.monotonic() + 120
-    while True:
-        (row,) = chains_in_store(sqlite_store, job_id)
-        if row.checkpoint_iteration is not None and row.checkpoint_iteration >= 4000:
-            break
-        assert row.state in ("queued", "running"), f"chain ended before the kill: {row.state}"
-        assert time.monotonic() < deadline, service.logs()
-        time.sleep(0.2)
-    os.kill(row.worker_pid, signal.SIGKILL)
+    kill_first_chain_after(service, sqlite_store, job_id, 4000, timeout=120)
     job = finished(job_url, service, timeout=300)
     (after,) = chains_in_store(sqlite_store, job_id)
     assert after.attempts == 2, service.logs()

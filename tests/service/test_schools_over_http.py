@@ -10,10 +10,6 @@ outside report's (tests/samplers/eight_schools.py: Rubin 1981 data, BDA3 section
 
 from __future__ import annotations
 
-import os
-import signal
-import time
-
 import numpy as np
 import pytest
 
@@ -22,9 +18,9 @@ from tests.samplers.eight_schools import DATA, SPEC
 from tests.service.test_live_service import (
     bits,
     call,
-    chains_in_store,
     finished,
     json_draws,
+    kill_first_chain_after,
     submit,
 )
 
@@ -50,15 +46,7 @@ def test_eight_schools_over_http_with_checkpoints_and_a_resume_match_in_process(
     body = {"model": SPEC, "data": DATA, "sampler": {"chains": 4, "draws": 4000, "seed": 1981}}
     job_url = submit(service.base_url, body)
     job_id = job_url.rsplit("/", 1)[1]
-    deadline = time.monotonic() + 240
-    while True:
-        first = chains_in_store(sqlite_store, job_id)[0]
-        if first.checkpoint_iteration is not None and first.checkpoint_iteration >= 1500:
-            break
-        assert first.state in ("queued", "running"), f"chain 1 ended before the kill: {first.state}"
-        assert time.monotonic() < deadline, service.logs()
-        time.sleep(0.1)
-    os.kill(first.worker_pid, signal.SIGKILL)
+    kill_first_chain_after(service, sqlite_store, job_id, 1500)
     job = finished(job_url, service, timeout=600)
     assert job["chains"][0]["attempts"] == 2, service.logs()
     expected = in_process(body)
