@@ -82,16 +82,45 @@ def _typed_cells(
     return cells
 
 
+def _with_decimal_points(cells: np.ndarray, block: np.ndarray, types: Sequence[str]) -> np.ndarray:
+    """The block's cells with every real column's cells as text, a whole value carrying ".0".
+
+    ``%.17g`` prints 1.0 as ``1``, which a JSON reader takes for an integer, so a real column
+    (an acceptance probability of exactly one, a quantity at a bound) would come back with mixed
+    types. Only blocks holding such a value take this slower path."""
+    cells = np.array(cells, dtype=object)
+    for i, kind in enumerate(list(types) or ["float64"] * block.shape[1]):
+        if kind != "float64":
+            continue
+        column = block[:, i]
+        text = np.char.mod(_CELL, column).astype(object)
+        whole = np.isfinite(column) & (column == np.round(column)) & (np.abs(column) < 1e17)
+        text[whole] = text[whole] + ".0"
+        cells[:, i] = text
+    return cells
+
+
+def _has_whole_reals(block: np.ndarray, types: Sequence[str]) -> bool:
+    real = np.array([kind == "float64" for kind in types], dtype=bool) if types else slice(None)
+    values = block[:, real]
+    return bool(np.any(np.isfinite(values) & (values == np.round(values))))
+
+
 def json_rows(values: np.ndarray, types: Sequence[str] = ()) -> Iterator[str]:
-    """``[a,b,...]`` rows separated by commas, block by block."""
+    """``[a,b,...]`` rows separated by commas, block by block; every cell of a real column has a
+    decimal point or an exponent, so JSON readers type it as a float."""
     values = np.asarray(values, dtype=np.float64)
     line = "[" + ",".join(_cell_formats(types, values.shape[1])) + "]"
+    as_text = "[" + ",".join(["%s"] * values.shape[1]) + "]"
     step = _rows_per_block(values.shape[1])
     for start in range(0, values.shape[0], step):
         block = values[start : start + step]
-        template = ",".join([line] * block.shape[0])
-        cells = _typed_cells(block, types, ("true", "false", "null")).ravel().tolist()
-        text = _formatted(template, cells, block, _NON_FINITE_JSON)
+        cells = _typed_cells(block, types, ("true", "false", "null"))
+        row = line
+        if _has_whole_reals(block, types):
+            cells, row = _with_decimal_points(cells, block, types), as_text
+        template = ",".join([row] * block.shape[0])
+        text = _formatted(template, cells.ravel().tolist(), block, _NON_FINITE_JSON)
         yield ("," if start else "") + text
 
 

@@ -37,7 +37,7 @@ def test_hopeless_models_end_with_a_named_reason(sqlite_store: str, redis_url: s
 
     job = job_ended(never_finite, 180, service.logs)
     assert job["state"] == "failed", service.logs()
-    assert "not finite at any of" in job["error"] and "chain 1 failed" in job["error"]
+    assert "no starting point found" in job["error"] and "chain 1 failed" in job["error"]
 
     job = job_ended(overflowing, 180, service.logs)
     # Either outcome is a handled one; what must not happen is a crash (no reason) or a hang.

@@ -26,6 +26,8 @@ def _values(rows: int, columns: int, non_finite: bool) -> np.ndarray:
     rng = np.random.default_rng(rows * 31 + columns)
     values = rng.normal(0, 1, (rows, columns)) * 10.0 ** rng.integers(-300, 300, (rows, columns))
     values[0, :1] = 0.1
+    if values.size >= 2:
+        values[-1, -1] = 3.0  # a whole real: "3" in CSV, "3.0" in JSON
     if non_finite and values.size >= 4:
         flat = values.reshape(-1)
         flat[[1, 2, 3]] = [np.nan, np.inf, -np.inf]
@@ -36,7 +38,11 @@ def _reference_cell(x: float, words: dict[str, float], quoted: bool) -> str:
     for word, special in words.items():
         if (np.isnan(special) and np.isnan(x)) or x == special:
             return f'"{word}"' if quoted else word
-    return f"{x:.17g}"
+    text = f"{x:.17g}"
+    # JSON: a whole real keeps a decimal point, or a reader would take it for an integer
+    if quoted and x == round(x) and abs(x) < 1e17:
+        text += ".0"
+    return text
 
 
 @pytest.mark.parametrize("rows,columns,non_finite", [(1, 1, False), (5, 3, True), (4500, 7, True),
@@ -66,6 +72,7 @@ def test_json_text_matches_the_cell_by_cell_reference_and_reads_back(
         "[" + ",".join(_reference_cell(x, JSON_WORDS, True) for x in row) + "]"
         for row in values.tolist()) + "]"
     assert text == expected
+    assert not any(type(c) is int for row in json.loads(text) for c in row)
     back = np.array([[JSON_WORDS[c] if isinstance(c, str) else c for c in row]
                      for row in json.loads(text)], dtype=float)
     assert np.array_equal(back, values, equal_nan=True)
