@@ -141,8 +141,8 @@ def mixture_data() -> list[float]:
     """Ten rows drawn once (seeded) near the two prior means: invented test input whose
     reference is the enumeration below, not the values themselves. Apart enough that the
     locations mix well (batch means put the effective sample size at about half the draws, so
-    4 chains of 20,000 give the power of the module docstring, measured: 17,000 fell just short, 5.10
-    se against 5.13, under the present warm-up), close enough
+    4 chains of 20,000 give the power of the module docstring, measured: 17,000 fell just
+    short, 5.10 se against 5.13, under the present warm-up), close enough
     that every row's membership is uncertain (posterior probabilities 0.0002 to 0.03 of the
     other component)."""
     rng = np.random.default_rng(16)
