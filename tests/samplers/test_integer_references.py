@@ -212,6 +212,12 @@ def test_mixture_membership_and_locations_match_the_enumeration():
     docstring."""
     exact = exact_mixture()
     result = run_in_process(mixture_body(chains=4, draws=20_000, seed=20261204))
+    check_mixture_draws(result, exact)
+
+
+def check_mixture_draws(result: dict, exact: dict) -> None:
+    """Each row's membership within TOLERANCE_MCSE batch-means errors of the enumeration (the
+    rare ones pooled), then the sds of both locations as a family with its power asserted."""
     names = result["names"]
     draws = result["draws"]
     wide = []
